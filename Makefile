@@ -1,0 +1,26 @@
+# Two entry points for a fresh machine with Python 3.11+:
+#   make demo   set up .venv and run the nightly job on data_demo/ (outputs under reports/demo)
+#   make test   set up .venv and run the test suite
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test setup bench clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+setup: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out reports/demo
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+clean:
+	rm -rf $(VENV) reports/demo
