@@ -1,0 +1,139 @@
+"""Static charts of a run. Functions return matplotlib Figures (Agg backend); the publisher saves them.
+
+No fitting or file I/O happens here: every chart draws tables computed by the statistics stages.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Mapping
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+
+from pipeline.life_model import WeibullFit  # noqa: E402
+
+_PER_THOUSAND = 1000.0
+
+
+def _grid(count: int, width: float = 5.0, height: float = 4.2) -> tuple[Figure, np.ndarray]:
+    columns = min(max(count, 1), 3)
+    rows = max(1, math.ceil(count / columns))
+    figure, axes = plt.subplots(rows, columns, figsize=(width * columns, height * rows), squeeze=False)
+    for extra in axes.flat[count:]:
+        extra.set_visible(False)
+    return figure, axes
+
+
+def return_rate_heatmap(age_in_service: pd.DataFrame) -> Figure:
+    """Returns per 1,000 units at risk, by build month (rows) and months in service (columns), per product."""
+    products = sorted(age_in_service["product"].unique())
+    figure, axes = _grid(len(products), width=5.2, height=5.0)
+    for axis, product in zip(axes.flat, products):
+        rows = age_in_service[(age_in_service["product"] == product) & (age_in_service["units_at_risk"] > 0)]
+        matrix = rows.pivot_table(
+            index="build_month", columns="months_in_service", values="return_rate", aggfunc="sum"
+        ).sort_index()
+        values = np.ma.masked_invalid(matrix.to_numpy(dtype=float) * _PER_THOUSAND)
+        image = axis.imshow(values, aspect="auto", interpolation="nearest", cmap="magma_r", origin="upper")
+        axis.set_title(f"{product}: returns per 1,000 at risk")
+        axis.set_xlabel("months in service")
+        axis.set_ylabel("build month")
+        columns = matrix.columns.to_numpy()
+        x_step = max(1, len(columns) // 8)
+        axis.set_xticks(np.arange(0, len(columns), x_step), [str(c) for c in columns[::x_step]])
+        labels = [f"{m:%Y-%m}" for m in matrix.index]
+        y_step = max(1, len(labels) // 12)
+        axis.set_yticks(np.arange(0, len(labels), y_step), labels[::y_step])
+        figure.colorbar(image, ax=axis, shrink=0.8)
+    figure.suptitle("Return rate by build month and months in service")
+    figure.tight_layout()
+    return figure
+
+
+def weibull_probability_plot(life_table: pd.DataFrame, fits: Mapping[str, WeibullFit | None]) -> Figure:
+    """Life-table fraction failed (with Greenwood bounds) and the fitted Weibull line with its Wald band.
+
+    Axes: log(months in service) against log(-log(1 - F)); a Weibull is a straight line of slope shape.
+    """
+    products = sorted(life_table["product"].unique())
+    figure, axes = _grid(len(products))
+    for axis, product in zip(axes.flat, products):
+        rows = life_table[(life_table["product"] == product) & (life_table["fraction_failed"] > 0)]
+        months = rows["months_in_service"].to_numpy(dtype=float)
+        axis.errorbar(
+            months,
+            _weibull_scale(rows["fraction_failed"]),
+            yerr=np.vstack(
+                [
+                    _weibull_scale(rows["fraction_failed"]) - _weibull_scale(rows["fraction_failed_lower"]),
+                    _weibull_scale(rows["fraction_failed_upper"]) - _weibull_scale(rows["fraction_failed"]),
+                ]
+            ),
+            fmt="o",
+            markersize=3.5,
+            color="#1b4965",
+            ecolor="#9fb7c9",
+            label="life table (Greenwood bounds)",
+        )
+        fit = fits.get(product)
+        if fit is not None and len(months):
+            grid = np.geomspace(max(months.min() * 0.5, 0.25), months.max() * 1.5, 120)
+            lower, upper = fit.cdf_bounds(grid)
+            axis.plot(grid, _weibull_scale(fit.cdf(grid)), color="#c0392b", label=(
+                f"Weibull shape {fit.shape:.3g}, scale {fit.scale:.4g} mo"
+            ))
+            axis.fill_between(grid, _weibull_scale(lower), _weibull_scale(upper), color="#c0392b", alpha=0.15,
+                              label=f"{fit.confidence_level:.0%} Wald band")
+        axis.set_xscale("log")
+        axis.set_title(product)
+        axis.set_xlabel("months in service (log scale)")
+        axis.set_ylabel("log(-log(1 - fraction failed))")
+        _fraction_ticks(axis)
+        axis.grid(True, which="both", alpha=0.3)
+        axis.legend(fontsize=7, loc="upper left")
+    figure.suptitle("Weibull probability plot")
+    figure.tight_layout()
+    return figure
+
+
+def _weibull_scale(fraction: pd.Series | np.ndarray) -> np.ndarray:
+    values = np.clip(np.asarray(fraction, dtype=float), 1e-12, 1 - 1e-12)
+    return np.log(-np.log1p(-values))
+
+
+def _fraction_ticks(axis: plt.Axes) -> None:
+    secondary = axis.secondary_yaxis("right", functions=(lambda y: y, lambda y: y))
+    fractions = np.array([1e-4, 1e-3, 0.01, 0.05, 0.1, 0.3, 0.632, 0.9, 0.99])
+    secondary.set_yticks(_weibull_scale(fractions), [f"{f:.2%}".rstrip("0").rstrip(".") for f in fractions])
+    secondary.set_ylabel("fraction failed")
+
+
+def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
+    """Expected future returns per calendar month, stacked by product."""
+    figure, axis = plt.subplots(figsize=(10, 4.5))
+    if forecast.empty:
+        axis.text(0.5, 0.5, "no forecast: no product has a published life model", ha="center", va="center")
+        axis.set_axis_off()
+        return figure
+    table = forecast.groupby(["month", "product"])["expected_returns"].sum().unstack("product", fill_value=0.0)
+    table = table.sort_index()
+    months = pd.to_datetime(pd.Series(table.index))
+    bottom = np.zeros(len(table))
+    for product in table.columns:
+        values = table[product].to_numpy(dtype=float)
+        axis.bar(months, values, bottom=bottom, width=25, label=product)
+        bottom += values
+    axis.set_title("Expected future returns by calendar month")
+    axis.set_xlabel("calendar month")
+    axis.set_ylabel("expected returns")
+    axis.legend(title="product")
+    axis.grid(True, axis="y", alpha=0.3)
+    figure.tight_layout()
+    return figure

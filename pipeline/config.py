@@ -1,0 +1,199 @@
+"""The run configuration: one frozen object, built once from a TOML file and command-line values.
+
+This is the only module that reads configuration files. Nothing happens at import time.
+
+TOML keys (every key optional; unknown keys are an error so that typos do not pass silently):
+
+```toml
+[warranty]
+default_months = 24              # coverage length (months) for shipment rows without warranty_months
+
+[claims]
+counted_statuses = ["approved"]  # claim statuses that count as returns in the life model
+
+[reserve]
+cost_per_claim = 85.0            # currency units; overrides the observed mean cost for every product
+cost_window_months = 12          # trailing window (months before the as-of date) for the mean cost
+[reserve.cost_per_claim_by_product]
+WP10 = 90.0                      # per-product override; wins over cost_per_claim
+
+[life_model]
+confidence_level = 0.95          # two-sided level of every confidence bound
+min_returns = 5                  # fewer counted returns than this: no fit is published for the product
+```
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+from pipeline.errors import ConfigError
+
+CLAIM_STATUSES: tuple[str, ...] = ("approved", "rejected", "no_fault_found")
+
+
+@dataclass(frozen=True)
+class WarrantySettings:
+    default_months: int = 24
+
+
+@dataclass(frozen=True)
+class ClaimSettings:
+    counted_statuses: tuple[str, ...] = ("approved",)
+
+
+@dataclass(frozen=True)
+class ReserveSettings:
+    cost_per_claim: float | None = None
+    cost_window_months: int = 12
+    cost_per_claim_by_product: tuple[tuple[str, float], ...] = ()
+
+    def override_for(self, product: str) -> float | None:
+        """The configured cost per claim (currency units) for a product, or None to use observed costs."""
+        for name, cost in self.cost_per_claim_by_product:
+            if name == product:
+                return cost
+        return self.cost_per_claim
+
+
+@dataclass(frozen=True)
+class LifeModelSettings:
+    confidence_level: float = 0.95
+    min_returns: int = 5
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """Everything one nightly run needs; passed down to every stage."""
+
+    shipments_path: Path
+    claims_path: Path
+    out_dir: Path
+    as_of_date: dt.date | None = None  # None: the latest claim_date in the claims extract
+    config_path: Path | None = None
+    warranty: WarrantySettings = field(default_factory=WarrantySettings)
+    claims: ClaimSettings = field(default_factory=ClaimSettings)
+    reserve: ReserveSettings = field(default_factory=ReserveSettings)
+    life_model: LifeModelSettings = field(default_factory=LifeModelSettings)
+
+
+def parse_date(text: str, what: str) -> dt.date:
+    """Parse an ISO date (YYYY-MM-DD), raising ConfigError that names `what`."""
+    try:
+        return dt.date.fromisoformat(text)
+    except ValueError:
+        raise ConfigError(f"{what}: {text!r} is not a date in YYYY-MM-DD form") from None
+
+
+def load_config(
+    *,
+    shipments_path: Path,
+    claims_path: Path,
+    out_dir: Path,
+    as_of_date: dt.date | None = None,
+    config_path: Path | None = None,
+) -> RunConfig:
+    """Build the run configuration from an optional TOML file and the command-line values."""
+    document: Mapping[str, Any] = {}
+    if config_path is not None:
+        try:
+            with open(config_path, "rb") as handle:
+                document = tomllib.load(handle)
+        except FileNotFoundError:
+            raise ConfigError(f"config file {config_path} does not exist") from None
+        except tomllib.TOMLDecodeError as error:
+            raise ConfigError(f"config file {config_path} is not valid TOML: {error}") from None
+        except OSError as error:
+            raise ConfigError(f"config file {config_path} cannot be read: {error}") from None
+    source = str(config_path) if config_path else "defaults"
+    return RunConfig(
+        shipments_path=shipments_path,
+        claims_path=claims_path,
+        out_dir=out_dir,
+        as_of_date=as_of_date,
+        config_path=config_path,
+        **settings_from_document(document, source),
+    )
+
+
+def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str, Any]:
+    """Validate a parsed TOML document; return the settings objects keyed as RunConfig fields."""
+    _reject_unknown(document, {"warranty", "claims", "reserve", "life_model"}, source, "")
+    warranty = _table(document, "warranty", source)
+    claims = _table(document, "claims", source)
+    reserve = _table(document, "reserve", source)
+    life_model = _table(document, "life_model", source)
+    _reject_unknown(warranty, {"default_months"}, source, "warranty.")
+    _reject_unknown(claims, {"counted_statuses"}, source, "claims.")
+    _reject_unknown(
+        reserve, {"cost_per_claim", "cost_window_months", "cost_per_claim_by_product"}, source, "reserve."
+    )
+    _reject_unknown(life_model, {"confidence_level", "min_returns"}, source, "life_model.")
+
+    default_months = _int(warranty, "default_months", 24, source, "warranty.", minimum=1)
+    statuses = claims.get("counted_statuses", ["approved"])
+    if (
+        not isinstance(statuses, list)
+        or not statuses
+        or any(not isinstance(s, str) or s not in CLAIM_STATUSES for s in statuses)
+    ):
+        raise ConfigError(
+            f"{source}: claims.counted_statuses must be a non-empty list drawn from {list(CLAIM_STATUSES)},"
+            f" got {statuses!r}"
+        )
+    by_product_table = _table(reserve, "cost_per_claim_by_product", source)
+    by_product = tuple(
+        sorted(
+            (str(name), _cost(by_product_table, name, source, "reserve.cost_per_claim_by_product."))
+            for name in by_product_table
+        )
+    )
+    cost = _cost(reserve, "cost_per_claim", source, "reserve.") if "cost_per_claim" in reserve else None
+    level = life_model.get("confidence_level", 0.95)
+    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.5 <= float(level) < 1.0:
+        raise ConfigError(f"{source}: life_model.confidence_level must be a number in [0.5, 1), got {level!r}")
+    return {
+        "warranty": WarrantySettings(default_months=default_months),
+        "claims": ClaimSettings(counted_statuses=tuple(dict.fromkeys(statuses))),
+        "reserve": ReserveSettings(
+            cost_per_claim=cost,
+            cost_window_months=_int(reserve, "cost_window_months", 12, source, "reserve.", minimum=1),
+            cost_per_claim_by_product=by_product,
+        ),
+        "life_model": LifeModelSettings(
+            confidence_level=float(level),
+            min_returns=_int(life_model, "min_returns", 5, source, "life_model.", minimum=2),
+        ),
+    }
+
+
+def _table(document: Mapping[str, Any], key: str, source: str) -> Mapping[str, Any]:
+    value = document.get(key, {})
+    if not isinstance(value, Mapping):
+        raise ConfigError(f"{source}: [{key}] must be a table")
+    return value
+
+
+def _reject_unknown(table: Mapping[str, Any], known: set[str], source: str, prefix: str) -> None:
+    unknown = sorted(set(table) - known)
+    if unknown:
+        raise ConfigError(f"{source}: unknown key(s) {', '.join(prefix + k for k in unknown)}; known: {sorted(known)}")
+
+
+def _int(table: Mapping[str, Any], key: str, default: int, source: str, prefix: str, *, minimum: int) -> int:
+    value = table.get(key, default)
+    if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+        raise ConfigError(f"{source}: {prefix}{key} must be an integer >= {minimum}, got {value!r}")
+    return value
+
+
+def _cost(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
+    value = table[key]
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
+        raise ConfigError(f"{source}: {prefix}{key} must be a number >= 0 (currency units), got {value!r}")
+    return float(value)

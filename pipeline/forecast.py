@@ -1,0 +1,123 @@
+"""Expected future returns per build month and calendar month, until every unit's warranty ends.
+
+For a row of `s` surviving units observed to age `a` months under a warranty of `W` months, the
+expected returns in months in service k = floor(a)+1 .. W are
+
+    s * (F(hi) - F(lo)) / R(a),    lo = max(a, k-1), hi = k,
+
+i.e. the conditional probability of failing in (lo, hi] given survival to `a` (the first interval is
+the rest of the current month in service). Computed in log space as
+    s * exp(logR(lo) - logR(a)) * (-expm1(logR(hi) - logR(lo))).
+Each expected return is placed in the calendar month that holds the midpoint of its age interval,
+counted from the row's warranty start date (months of 365.25/12 days).
+
+Pure functions over DataFrames; the life model comes in as anything with `log_survival(t)`.
+"""
+
+from __future__ import annotations
+
+from typing import Mapping, Protocol
+
+import numpy as np
+import pandas as pd
+
+DAYS_PER_MONTH = 365.25 / 12
+
+FORECAST_DETAIL_COLUMNS = (
+    "product",
+    "build_month",
+    "sale_month",
+    "warranty_months",
+    "months_in_service",
+    "month",
+    "expected_returns",
+)
+
+
+class LifeDistribution(Protocol):
+    """A fitted life distribution in months: log R(t) for t >= 0."""
+
+    def log_survival(self, t: np.ndarray) -> np.ndarray: ...
+
+
+def expected_future_returns(
+    suspensions: pd.DataFrame, models: Mapping[str, LifeDistribution]
+) -> pd.DataFrame:
+    """Expected returns per suspension row x future month in service x calendar month.
+
+    `suspensions` has the columns of the fit_suspensions model (product, build_month, sale_month,
+    warranty_months, warranty_start_date, observed_age_months, suspensions). Products without a model
+    are left out (the caller reports them). Returns FORECAST_DETAIL_COLUMNS; `month` is the first day
+    of the calendar month.
+    """
+    pieces = []
+    for product, rows in suspensions.groupby("product", sort=True):
+        model = models.get(product)
+        if model is None:
+            continue
+        pieces.append(_product_forecast(rows, model))
+    if not pieces:
+        return pd.DataFrame({c: pd.Series(dtype=_dtype(c)) for c in FORECAST_DETAIL_COLUMNS})
+    return pd.concat(pieces, ignore_index=True)
+
+
+def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFrame:
+    age = rows["observed_age_months"].to_numpy(dtype=float)
+    warranty = rows["warranty_months"].to_numpy(dtype=np.int64)
+    survivors = rows["suspensions"].to_numpy(dtype=float)
+    open_rows = np.flatnonzero((age < warranty) & (survivors > 0))
+    first_month = np.floor(age[open_rows]).astype(np.int64) + 1
+    months_left = warranty[open_rows] - first_month + 1
+    row_index = np.repeat(open_rows, months_left)
+    # month in service k for each (row, future month): first_month, first_month + 1, ..., W
+    offsets = np.arange(months_left.sum()) - np.repeat(np.cumsum(months_left) - months_left, months_left)
+    months_in_service = np.repeat(first_month, months_left) + offsets
+
+    observed = age[row_index]
+    lower = np.maximum(observed, months_in_service - 1.0)
+    upper = months_in_service.astype(float)
+    log_r_observed = model.log_survival(observed)
+    log_r_lower = model.log_survival(lower)
+    log_r_upper = model.log_survival(upper)
+    # naive: survivors * (F(upper) - F(lower)) / R(observed)
+    expected = survivors[row_index] * np.exp(log_r_lower - log_r_observed) * -np.expm1(log_r_upper - log_r_lower)
+
+    start = pd.to_datetime(rows["warranty_start_date"].to_numpy()[row_index])
+    start_coordinate = (
+        start.year.to_numpy() * 12
+        + (start.month.to_numpy() - 1)
+        + (start.day.to_numpy() - 1) / start.days_in_month.to_numpy()
+    )
+    month_index = np.floor(start_coordinate + (lower + upper) / 2.0).astype(np.int64)
+    # datetime64[M] counts months from 1970-01
+    month = (month_index - 1970 * 12).astype("datetime64[M]").astype("datetime64[s]")
+
+    return pd.DataFrame(
+        {
+            "product": rows["product"].to_numpy()[row_index],
+            "build_month": rows["build_month"].to_numpy()[row_index],
+            "sale_month": rows["sale_month"].to_numpy()[row_index],
+            "warranty_months": warranty[row_index],
+            "months_in_service": months_in_service,
+            "month": month,
+            "expected_returns": expected,
+        }
+    )
+
+
+def forecast_by_month(detail: pd.DataFrame) -> pd.DataFrame:
+    """Expected returns per product x build month x calendar month (the published forecast grain)."""
+    grouped = detail.groupby(["product", "build_month", "month"], sort=True, as_index=False)
+    summed = grouped["expected_returns"].sum()
+    summed["month"] = pd.to_datetime(summed["month"]).dt.date
+    return summed
+
+
+def _dtype(column: str) -> str:
+    if column in ("warranty_months", "months_in_service"):
+        return "int64"
+    if column == "expected_returns":
+        return "float64"
+    if column == "month":
+        return "datetime64[s]"
+    return "object"

@@ -1,0 +1,131 @@
+"""The run report (Markdown): what was read, what was fitted, what is forecast, and the cautions.
+
+Pure text rendering from the run's tables; no computation beyond formatting and totals.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Mapping
+
+import pandas as pd
+
+CAUTIONS = (
+    "Reserve figures are statistical estimates (expected future returns x cost per claim, undiscounted, "
+    "no inflation, no prediction interval yet). They are for review by finance and auditors before anything "
+    "is booked, under the accounting rules that apply to you.",
+    "A flagged build month or a poor fit is a statistical signal, not a finding. Anything that may touch "
+    "safety goes to qualified engineers and is handled under local regulations; do not wait for this report.",
+    "The model assumes one Weibull life per product, independent units and a complete claims extract up to "
+    "the as-of date. Claims still in the reporting pipeline, recalls, design changes and field campaigns "
+    "are not in the data and can make the forecast too low.",
+)
+
+
+def _number(value: Any, digits: int = 4) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "n/a"
+    if isinstance(value, float):
+        return f"{value:,.{digits}g}" if abs(value) < 1e5 else f"{value:,.0f}"
+    return f"{value:,}" if isinstance(value, int) else str(value)
+
+
+def _money(value: Any) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "n/a"
+    return f"{value:,.2f}"
+
+
+def _table(frame: pd.DataFrame) -> str:
+    header = "| " + " | ".join(frame.columns) + " |"
+    rule = "|" + "|".join("---" for _ in frame.columns) + "|"
+    body = ["| " + " | ".join(str(v) for v in row) + " |" for row in frame.itertuples(index=False)]
+    return "\n".join([header, rule, *body])
+
+
+def render_report(
+    *,
+    manifest: Mapping[str, Any],
+    life_model: pd.DataFrame,
+    reserve_totals: pd.DataFrame,
+    reconciliation: pd.DataFrame,
+    quarantine: pd.DataFrame,
+    warnings: list[str],
+) -> str:
+    """The run report as Markdown."""
+    lines = [
+        f"# Warranty returns forecast — as of {manifest['as_of_date']}",
+        "",
+        f"As-of date {manifest['as_of_date']} ({manifest['as_of_source']}). "
+        f"Run finished {manifest['finished_utc']} UTC in {manifest['seconds_total']:.1f} s.",
+        "",
+        "## Cautions",
+        "",
+        *[f"- {text}" for text in CAUTIONS],
+        "",
+    ]
+    if warnings:
+        lines += ["## Warnings", "", *[f"- {text}" for text in warnings], ""]
+
+    lines += ["## Reserve by product", ""]
+    shown = reserve_totals.assign(
+        units=reserve_totals["units"].map(lambda v: f"{int(v):,}"),
+        returns_to_date=reserve_totals["returns_to_date"].map(lambda v: f"{int(v):,}"),
+        cost_to_date=reserve_totals["cost_to_date"].map(_money),
+        expected_future_returns=reserve_totals["expected_future_returns"].map(lambda v: _number(v, 6)),
+        cost_per_claim=reserve_totals["cost_per_claim"].map(_money),
+        reserve=reserve_totals["reserve"].map(_money),
+    )[["product", "units", "returns_to_date", "cost_to_date", "expected_future_returns", "cost_per_claim",
+       "reserve", "forecast_status", "cost_basis"]]
+    total = reserve_totals["reserve"].sum(min_count=1)
+    lines += [
+        _table(shown),
+        "",
+        f"Total reserve over products with a forecast: {_money(total)} (currency units of the claims extract). "
+        "Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`.",
+        "",
+        "## Life model (Weibull, maximum likelihood on grouped data)",
+        "",
+    ]
+    level = life_model["confidence_level"].dropna()
+    level_text = f"{level.iloc[0]:.0%}" if len(level) else "95%"
+    fitted = life_model.assign(
+        shape=life_model.apply(lambda r: _bounded(r["shape"], r["shape_lower"], r["shape_upper"]), axis=1),
+        scale_months=life_model.apply(lambda r: _bounded(r["scale"], r["scale_lower"], r["scale_upper"]), axis=1),
+        b10_months=life_model.apply(lambda r: _bounded(r["b10"], r["b10_lower"], r["b10_upper"]), axis=1),
+        returns=life_model["returns"].map(lambda v: f"{v:,.0f}"),
+        suspensions=life_model["suspensions"].map(lambda v: f"{v:,.0f}"),
+    )[["product", "status", "shape", "scale_months", "b10_months", "returns", "suspensions"]]
+    lines += [
+        f"Estimates with {level_text} Wald bounds (log scale) in brackets. Scale and B10 in months in service.",
+        "",
+        _table(fitted),
+        "",
+    ]
+    for row in life_model.itertuples(index=False):
+        if row.status != "fitted":
+            lines.append(f"- **{row.product}**: {row.status}: {row.message}")
+    lines += ["", "## Data read", ""]
+    lines += [_table(reconciliation), ""]
+    facts = manifest.get("facts", {})
+    if facts:
+        lines += ["| fact | count |", "|---|---|", *[f"| {k} | {v:,} |" for k, v in facts.items()], ""]
+    if len(quarantine):
+        counts = quarantine.groupby(["source_file", "column", "reason"]).size().reset_index(name="rows")
+        lines += ["### Quarantined rows by reason (details in `quarantine.parquet`)", "", _table(counts), ""]
+    lines += [
+        "## Charts",
+        "",
+        "- `return_rate_heatmap.png`: returns per 1,000 units at risk by build month and months in service.",
+        "- `weibull_probability_plot.png`: life-table fraction failed with Greenwood bounds, fitted Weibull line "
+        "and its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
+        "- `expected_returns_by_month.png`: expected future returns per calendar month.",
+        "",
+    ]
+    return "\n".join(lines)
+
+
+def _bounded(estimate: float, lower: float, upper: float) -> str:
+    if not math.isfinite(estimate):
+        return "n/a"
+    return f"{estimate:.4g} [{lower:.4g}, {upper:.4g}]"

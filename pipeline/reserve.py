@@ -1,0 +1,121 @@
+"""Cost per claim and the warranty reserve per build month (currency units of the claims extract).
+
+reserve = expected future returns x cost per claim, undiscounted and without inflation; the figures
+are estimates for review by finance and auditors, not booked amounts.
+
+Cost per claim, per product, first that applies:
+  1. the configured override (`reserve.cost_per_claim_by_product`, then `reserve.cost_per_claim`);
+  2. the mean cost of counted returns filed in the trailing window (`reserve.cost_window_months`)
+     ending at the as-of date;
+  3. the mean cost of every counted return filed by the as-of date;
+  4. none: the product's reserve is left empty and the run report says so.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Iterable
+
+import numpy as np
+import pandas as pd
+
+from pipeline.config import ReserveSettings
+
+RESERVE_COLUMNS = (
+    "product",
+    "build_month",
+    "units",
+    "units_in_channel",
+    "returns_to_date",
+    "cost_to_date",
+    "expected_future_returns",
+    "cost_per_claim",
+    "reserve",
+    "cost_basis",
+    "forecast_status",
+)
+
+
+def cost_per_claim_by_product(
+    claim_costs: pd.DataFrame, products: Iterable[str], settings: ReserveSettings
+) -> pd.DataFrame:
+    """One row per product: cost_per_claim (currency units), cost_basis (words), basis_returns (count).
+
+    `claim_costs` has the columns of the claim_cost_by_product model.
+    """
+    observed = claim_costs.set_index("product")
+    rows = []
+    for product in sorted(set(products)):
+        override = settings.override_for(product)
+        if override is not None:
+            rows.append((product, override, "configured", 0))
+            continue
+        if product in observed.index:
+            costs = observed.loc[product]
+            if costs["window_returns"] > 0:
+                rows.append(
+                    (
+                        product,
+                        float(costs["window_mean_cost"]),
+                        f"mean of returns filed in the {settings.cost_window_months} months to the as-of date",
+                        int(costs["window_returns"]),
+                    )
+                )
+                continue
+            if costs["all_time_returns"] > 0:
+                rows.append(
+                    (
+                        product,
+                        float(costs["all_time_mean_cost"]),
+                        "mean of all returns (none in the trailing window)",
+                        int(costs["all_time_returns"]),
+                    )
+                )
+                continue
+        rows.append((product, math.nan, "none: no counted return to price; set reserve.cost_per_claim", 0))
+    return pd.DataFrame(rows, columns=["product", "cost_per_claim", "cost_basis", "basis_returns"])
+
+
+def reserve_by_build_month(
+    cohort_summary: pd.DataFrame,
+    forecast: pd.DataFrame,
+    costs: pd.DataFrame,
+    forecast_status: dict[str, str],
+) -> pd.DataFrame:
+    """The reserve per product x build month.
+
+    `cohort_summary` has the columns of the cohort_summary model; `forecast` is expected returns per
+    product x build month x month; `forecast_status` says per product whether a forecast exists
+    ("forecast") or why not. Products without a forecast get empty expected returns and reserve.
+    """
+    expected = (
+        forecast.groupby(["product", "build_month"], as_index=False)["expected_returns"]
+        .sum()
+        .rename(columns={"expected_returns": "expected_future_returns"})
+    )
+    table = cohort_summary.merge(expected, on=["product", "build_month"], how="left")
+    table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
+    status = table["product"].map(forecast_status).fillna("no forecast")
+    has_forecast = status.eq("forecast")
+    table["forecast_status"] = status
+    table["expected_future_returns"] = np.where(
+        has_forecast, table["expected_future_returns"].fillna(0.0), np.nan
+    )
+    table["reserve"] = table["expected_future_returns"] * table["cost_per_claim"]
+    return table.loc[:, list(RESERVE_COLUMNS)].sort_values(["product", "build_month"], ignore_index=True)
+
+
+def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
+    """Product totals of the per-build-month reserve; a product with any empty reserve has an empty total."""
+    sums = reserve.groupby("product", as_index=False).agg(
+        build_months=("build_month", "count"),
+        units=("units", "sum"),
+        returns_to_date=("returns_to_date", "sum"),
+        cost_to_date=("cost_to_date", "sum"),
+        expected_future_returns=("expected_future_returns", lambda s: s.sum(min_count=len(s))),
+        reserve=("reserve", lambda s: s.sum(min_count=len(s))),
+        cost_per_claim=("cost_per_claim", "first"),
+        cost_basis=("cost_basis", "first"),
+        forecast_status=("forecast_status", "first"),
+    )
+    return sums

@@ -1,0 +1,101 @@
+-- age_in_service: the age-in-service matrix (returns by build month and months in service, with the
+-- units at risk in each cell), as a long table.
+-- Grain: one row per product x build_month x months_in_service with units at risk or returns.
+-- Parameters: none. Reads: fit_suspensions, fit_returns.
+-- units_at_risk: units observed into month k (observed age above k-1) less their share of the
+-- returns their group had before month k. units_withdrawn: survivors whose observation ended inside
+-- month k (age at the as-of date between k-1 and k). return_rate = returns / units_at_risk.
+with suspension_rows as (
+    select product, build_month, sale_month, warranty_months, observed_age_months, units, suspensions
+    from fit_suspensions
+),
+
+group_units as (
+    select product, build_month, sale_month, warranty_months, sum(units) as units
+    from suspension_rows
+    group by product, build_month, sale_month, warranty_months
+),
+
+months_in_service as (
+    select range as months_in_service
+    from range(1, (select coalesce(max(warranty_months), 0) + 1 from group_units))
+),
+
+group_returns_by_month as (
+    select product, build_month, sale_month, warranty_months, months_in_service, returns, return_cost
+    from fit_returns
+),
+
+group_returns_before_month as (
+    select
+        sale_group.product,
+        sale_group.build_month,
+        sale_group.sale_month,
+        sale_group.warranty_months,
+        sale_group.units,
+        month.months_in_service,
+        coalesce(sum(returned.returns), 0) as returns_before
+    from group_units as sale_group
+    cross join months_in_service as month
+    left join group_returns_by_month as returned
+        on sale_group.product = returned.product
+        and sale_group.build_month = returned.build_month
+        and sale_group.sale_month = returned.sale_month
+        and sale_group.warranty_months = returned.warranty_months
+        and returned.months_in_service < month.months_in_service
+    where month.months_in_service <= sale_group.warranty_months
+    group by
+        sale_group.product, sale_group.build_month, sale_group.sale_month, sale_group.warranty_months,
+        sale_group.units, month.months_in_service
+),
+
+units_at_risk_by_month as (
+    select
+        row_.product,
+        row_.build_month,
+        before.months_in_service,
+        sum(row_.units * (1.0 - least(before.returns_before::double / before.units, 1.0))) as units_at_risk,
+        sum(
+            case
+                when row_.observed_age_months < before.months_in_service then row_.suspensions
+                else 0
+            end
+        ) as units_withdrawn
+    from suspension_rows as row_
+    join group_returns_before_month as before
+        on row_.product = before.product
+        and row_.build_month = before.build_month
+        and row_.sale_month = before.sale_month
+        and row_.warranty_months = before.warranty_months
+        and row_.observed_age_months > before.months_in_service - 1
+    group by row_.product, row_.build_month, before.months_in_service
+),
+
+returns_by_month as (
+    select
+        product,
+        build_month,
+        months_in_service,
+        sum(returns) as returns,
+        sum(return_cost) as return_cost
+    from group_returns_by_month
+    group by product, build_month, months_in_service
+)
+
+select
+    coalesce(at_risk.product, returned.product) as product,
+    coalesce(at_risk.build_month, returned.build_month) as build_month,
+    coalesce(at_risk.months_in_service, returned.months_in_service)::integer as months_in_service,
+    coalesce(at_risk.units_at_risk, 0.0) as units_at_risk,
+    coalesce(returned.returns, 0)::bigint as returns,
+    coalesce(returned.return_cost, 0.0) as return_cost,
+    coalesce(at_risk.units_withdrawn, 0.0) as units_withdrawn,
+    case
+        when coalesce(at_risk.units_at_risk, 0) > 0 then coalesce(returned.returns, 0) / at_risk.units_at_risk
+    end as return_rate
+from units_at_risk_by_month as at_risk
+full outer join returns_by_month as returned
+    on at_risk.product = returned.product
+    and at_risk.build_month = returned.build_month
+    and at_risk.months_in_service = returned.months_in_service
+where coalesce(at_risk.units_at_risk, 0) > 0 or coalesce(returned.returns, 0) > 0

@@ -1,0 +1,25 @@
+-- claim_cost_by_product: the observed cost of a counted return, per product.
+-- Grain: one row per product with at least one counted in-coverage return.
+-- Parameters: $as_of_date, $cost_window_months.
+-- Reads: claims_matched_to_units.
+-- window_mean_cost: mean cost (currency units) of returns filed in the trailing window ending at the
+-- as-of date; all_time_mean_cost: over every return filed by the as-of date.
+with counted_returns as (
+    select product, claim_date, cost
+    from claims_matched_to_units
+    where is_return
+),
+
+window_start as (
+    select ($as_of_date::date - to_months($cost_window_months))::date as first_excluded_date
+)
+
+select
+    product,
+    count(*) filter (where claim_date > window_start.first_excluded_date) as window_returns,
+    avg(cost) filter (where claim_date > window_start.first_excluded_date)::double as window_mean_cost,
+    count(*) as all_time_returns,
+    avg(cost)::double as all_time_mean_cost
+from counted_returns
+cross join window_start
+group by product

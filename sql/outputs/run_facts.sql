@@ -1,0 +1,59 @@
+-- run_facts: counts that explain how the data was read, for the manifest and the run report.
+-- Grain: one row per fact. Parameters: none.
+-- Reads: units_aged_to_as_of, claims_matched_to_units, sale_month_groups, fit_returns.
+with unit_facts as (
+    select
+        sum(units) as units_total,
+        sum(case when is_in_channel then units else 0 end) as units_in_channel,
+        sum(case when is_sale_date_imputed and not is_in_channel then units else 0 end)
+            as units_in_service_sale_date_imputed,
+        sum(case when is_sold_after_as_of then units else 0 end) as units_sold_after_as_of_counted_unsold
+    from units_aged_to_as_of
+),
+
+claim_facts as (
+    select
+        count(*) filter (where is_return) as returns_counted,
+        count(*) filter (where is_counted_status and not is_in_coverage) as claims_out_of_coverage,
+        count(*) filter (where status = 'rejected') as claims_rejected,
+        count(*) filter (where status = 'no_fault_found') as claims_no_fault_found,
+        count(*) filter (where not is_counted_status) as claims_status_not_counted,
+        count(*) filter (where is_sale_date_imputed) as claims_sale_date_imputed,
+        count(*) filter (where is_group_reassigned) as claims_assigned_to_nearest_sale_month,
+        count(*) filter (where is_serial_unknown) as claims_with_unknown_serial
+    from claims_matched_to_units
+    where not is_quarantined
+),
+
+returns_per_group as (
+    select product, build_month, sale_month, warranty_months, sum(returns) as returns
+    from fit_returns
+    group by product, build_month, sale_month, warranty_months
+),
+
+overfull_groups as (
+    select count(*) as groups_with_more_returns_than_units
+    from sale_month_groups
+    join returns_per_group using (product, build_month, sale_month, warranty_months)
+    where returns_per_group.returns > sale_month_groups.units
+)
+
+unpivot (
+    select
+        coalesce(unit_facts.units_total, 0)::bigint as units_total,
+        coalesce(unit_facts.units_in_channel, 0)::bigint as units_in_channel,
+        coalesce(unit_facts.units_in_service_sale_date_imputed, 0)::bigint as units_in_service_sale_date_imputed,
+        coalesce(unit_facts.units_sold_after_as_of_counted_unsold, 0)::bigint as units_sold_after_as_of_counted_unsold,
+        coalesce(claim_facts.returns_counted, 0)::bigint as returns_counted,
+        coalesce(claim_facts.claims_out_of_coverage, 0)::bigint as claims_out_of_coverage,
+        coalesce(claim_facts.claims_rejected, 0)::bigint as claims_rejected,
+        coalesce(claim_facts.claims_no_fault_found, 0)::bigint as claims_no_fault_found,
+        coalesce(claim_facts.claims_status_not_counted, 0)::bigint as claims_status_not_counted,
+        coalesce(claim_facts.claims_sale_date_imputed, 0)::bigint as claims_sale_date_imputed,
+        coalesce(claim_facts.claims_assigned_to_nearest_sale_month, 0)::bigint as claims_assigned_to_nearest_sale_month,
+        coalesce(claim_facts.claims_with_unknown_serial, 0)::bigint as claims_with_unknown_serial,
+        coalesce(overfull_groups.groups_with_more_returns_than_units, 0)::bigint as groups_with_more_returns_than_units
+    from unit_facts, claim_facts, overfull_groups
+)
+on columns(*)
+into name fact value count
