@@ -1,0 +1,89 @@
+"""Expected future returns: closed forms, calendar placement and a published prediction."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline.forecast import expected_failures_within, expected_future_returns, forecast_by_month
+from pipeline.life_model import WeibullFitter, weibull_log_survival
+import reference_values as ref  # tests/ is on sys.path under pytest
+
+
+class Weibull:
+    def __init__(self, shape: float, scale: float) -> None:
+        self.shape, self.scale = shape, scale
+
+    def log_survival(self, t):
+        return weibull_log_survival(t, self.shape, self.scale)
+
+
+def suspension_rows(**columns) -> pd.DataFrame:
+    base = {
+        "product": ["P"],
+        "build_month": [dt.date(2024, 1, 1)],
+        "sale_month": [dt.date(2024, 1, 1)],
+        "warranty_months": [5],
+        "warranty_start_date": [dt.date(2024, 1, 1)],
+        "observed_age_months": [2.5],
+        "is_in_channel": [False],
+        "units": [1000],
+        "suspensions": [1000.0],
+    }
+    base.update({key: [value] for key, value in columns.items()})
+    return pd.DataFrame(base)
+
+
+def test_exponential_total_and_months_match_closed_form():
+    # common practice, no source: with shape 1 the life is memoryless, so the expected returns over
+    # the rest of the warranty are s * (1 - exp(-(W - a) / scale)) and month k gets the interval share.
+    model = Weibull(1.0, 50.0)
+    detail = expected_future_returns(suspension_rows(), {"P": model})
+    assert detail["months_in_service"].tolist() == [3, 4, 5]
+    expected_intervals = [(2.5, 3.0), (3.0, 4.0), (4.0, 5.0)]
+    for (lo, hi), value in zip(expected_intervals, detail["expected_returns"]):
+        assert value == pytest.approx(1000 * (np.exp(-(lo - 2.5) / 50) - np.exp(-(hi - 2.5) / 50)), rel=1e-12)
+    assert detail["expected_returns"].sum() == pytest.approx(1000 * -np.expm1(-2.5 / 50), rel=1e-12)
+    # midpoints 2.75, 3.5 and 4.5 months after 2024-01-01 fall in March, April and May
+    assert [m.date() for m in pd.to_datetime(detail["month"])] == [
+        dt.date(2024, 3, 1), dt.date(2024, 4, 1), dt.date(2024, 5, 1),
+    ]
+
+
+def test_weibull_conditional_probability_matches_direct_formula():
+    # common practice, no source: P(fail in (lo, hi] | alive at a) = (R(lo) - R(hi)) / R(a)
+    shape, scale = 2.3, 40.0
+    detail = expected_future_returns(suspension_rows(observed_age_months=0.4, warranty_months=3), {"P": Weibull(shape, scale)})
+    survival = lambda t: np.exp(-((t / scale) ** shape))  # noqa: E731
+    direct = [(survival(lo) - survival(hi)) / survival(0.4) * 1000 for lo, hi in [(0.4, 1), (1, 2), (2, 3)]]
+    assert detail["expected_returns"].tolist() == pytest.approx(direct, rel=1e-10)
+
+
+def test_mature_rows_products_without_model_and_channel_units():
+    rows = pd.concat(
+        [
+            suspension_rows(observed_age_months=5.0),  # warranty over: nothing left to forecast
+            suspension_rows(product="Q"),  # no model for Q
+            suspension_rows(observed_age_months=0.0, warranty_start_date=dt.date(2024, 2, 10)),  # in channel
+        ],
+        ignore_index=True,
+    )
+    detail = expected_future_returns(rows, {"P": Weibull(1.0, 50.0)})
+    assert set(detail["product"]) == {"P"}
+    assert detail["months_in_service"].tolist() == [1, 2, 3, 4, 5]
+    assert detail["expected_returns"].sum() == pytest.approx(1000 * -np.expm1(-5 / 50), rel=1e-12)
+    by_month = forecast_by_month(detail)
+    # 2024-02-10 is day 10 of 29: coordinate 1 + 9/29; midpoints 0.5..4.5 months -> Feb .. Jun
+    assert by_month["month"].tolist() == [dt.date(2024, m, 1) for m in (2, 3, 4, 5, 6)]
+
+
+def test_bearing_cage_prediction_of_new_failures_in_300_hours():
+    # Meeker & Escobar (1998), Table 12.1 (value from memory: 5.057; 5.058 recomputed): expected failures
+    # among the 1,697 surviving bearing cages if each runs 300 more hours, under the Weibull MLE.
+    data = ref.reference_life_data("bearing_cage.csv")
+    fit = WeibullFitter(min_returns=1).fit(data)
+    value = expected_failures_within(fit, data.suspension_ages, data.suspension_counts, 300.0)
+    assert value == pytest.approx(ref.BEARING_NEW_FAILURES_300H, abs=5e-4)
