@@ -121,3 +121,16 @@ def _dtype(column: str) -> str:
     if column == "month":
         return "datetime64[s]"
     return "object"
+
+
+def expected_failures_within(
+    model: LifeDistribution, ages: np.ndarray, counts: np.ndarray, horizon: float
+) -> float:
+    """Expected failures among `counts` survivors at `ages` if each runs `horizon` more (same time unit).
+
+    sum counts * (R(a) - R(a + horizon)) / R(a), in log space.
+    """
+    ages = np.asarray(ages, dtype=float)
+    log_r_now = model.log_survival(ages)
+    log_r_later = model.log_survival(ages + horizon)
+    return float(np.sum(np.asarray(counts, dtype=float) * -np.expm1(log_r_later - log_r_now)))

@@ -6,7 +6,9 @@
 -- returns their group had before month k. units_withdrawn: survivors whose observation ended inside
 -- month k (age at the as-of date between k-1 and k). return_rate = returns / units_at_risk.
 with suspension_rows as (
-    select product, build_month, sale_month, warranty_months, observed_age_months, units, suspensions
+    select
+        product, build_month, sale_month, warranty_months, warranty_start_date, observed_age_months, units,
+        suspensions
     from fit_suspensions
 ),
 
@@ -54,12 +56,17 @@ units_at_risk_by_month as (
         row_.product,
         row_.build_month,
         before.months_in_service,
-        sum(row_.units * (1.0 - least(before.returns_before::double / before.units, 1.0))) as units_at_risk,
+        -- ordered sums: floating-point sums in a fixed order, so reruns give identical bytes
+        sum(
+            row_.units * (1.0 - least(before.returns_before::double / before.units, 1.0))
+            order by row_.sale_month, row_.warranty_months, row_.warranty_start_date
+        ) as units_at_risk,
         sum(
             case
                 when row_.observed_age_months < before.months_in_service then row_.suspensions
                 else 0
             end
+            order by row_.sale_month, row_.warranty_months, row_.warranty_start_date
         ) as units_withdrawn
     from suspension_rows as row_
     join group_returns_before_month as before
@@ -77,7 +84,7 @@ returns_by_month as (
         build_month,
         months_in_service,
         sum(returns) as returns,
-        sum(return_cost) as return_cost
+        sum(return_cost)::double as return_cost
     from group_returns_by_month
     group by product, build_month, months_in_service
 )

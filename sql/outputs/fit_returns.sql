@@ -15,6 +15,6 @@ select
     warranty_months,
     months_in_service,
     count(*) as returns,
-    sum(cost)::double as return_cost
+    sum(cost) as return_cost
 from counted_returns
 group by product, build_month, sale_month, warranty_months, months_in_service

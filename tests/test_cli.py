@@ -1,0 +1,168 @@
+"""The whole command on the shipped demo data, and runs that must fail cleanly.
+
+The demo data's true parameters come from its own seeded generator (data_demo/truth.json).
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from pipeline import exit_codes
+from pipeline.cli import main
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "data_demo"
+SHIPMENTS = DEMO / "shipments.parquet"
+CLAIMS = DEMO / "claims.csv"
+
+EXPECTED_FILES = {
+    "age_in_service.parquet", "life_model.parquet", "life_table.parquet", "forecast.parquet",
+    "reserve.parquet", "reserve_by_product.parquet", "quarantine.parquet", "fit_returns.parquet",
+    "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
+    "expected_returns_by_month.png", "report.md", "manifest.json",
+}
+
+
+def run(*args: str) -> int:
+    return main(["run", "--shipments", str(SHIPMENTS), "--claims", str(CLAIMS), *args])
+
+
+@pytest.fixture(scope="module")
+def demo_out(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("demo") / "out"
+    assert run("--out", str(out)) == exit_codes.SUCCESS
+    return out
+
+
+def test_demo_run_writes_every_output(demo_out):
+    assert {p.name for p in demo_out.iterdir()} == EXPECTED_FILES
+    assert not [p for p in demo_out.parent.iterdir() if p.name.startswith(".")]  # no leftovers
+    manifest = json.loads((demo_out / "manifest.json").read_text())
+    assert manifest["as_of_date"] == "2026-11-30"
+    assert set(manifest["outputs"]) == EXPECTED_FILES - {"manifest.json"}
+    for extract in manifest["reconciliation"]:
+        assert extract["rows_read"] == extract["rows_used"] + extract["rows_quarantined"] + extract["rows_after_as_of"]
+    assert {i["extract"] for i in manifest["inputs"]} == {"shipments", "claims"}
+    assert all(len(i["sha256"]) == 64 for i in manifest["inputs"])
+    assert set(manifest["seconds_by_stage"]) >= {"shaping", "fit", "forecast", "reserve", "charts"}
+    assert manifest["versions"]["duckdb"] != "not installed"
+    report = (demo_out / "report.md").read_text()
+    assert "## Cautions" in report and "qualified engineers" in report
+
+
+def test_quarantine_is_exactly_the_planted_rows(demo_out):
+    planted = pd.read_csv(DEMO / "planted_defects.csv")
+    quarantine = pd.read_parquet(demo_out / "quarantine.parquet")
+    got = set(zip(quarantine["source_file"], quarantine["row_number"], quarantine["column"], quarantine["reason"]))
+    want = set(zip(planted["source_file"], planted["row_number"], planted["column"], planted["reason"]))
+    assert got == want
+
+
+def test_true_parameters_lie_within_the_fitted_bounds(demo_out):
+    # the generator's own truth (invented demo data); the defective line is excluded by design
+    truth = json.loads((DEMO / "truth.json").read_text())
+    defect_line = truth["defect"]["product"]
+    life_model = pd.read_parquet(demo_out / "life_model.parquet").set_index("product")
+    checked = 0
+    for product, line in truth["product_lines"].items():
+        row = life_model.loc[product]
+        assert row["status"] == "fitted" and row["converged"]
+        if product == defect_line:
+            continue
+        assert row["shape_lower"] <= line["shape"] <= row["shape_upper"], product
+        assert row["scale_lower"] <= line["scale_months"] <= row["scale_upper"], product
+        checked += 1
+    assert checked == 2
+
+
+def test_demo_tables_are_consistent(demo_out):
+    reserve = pd.read_parquet(demo_out / "reserve.parquet")
+    forecast = pd.read_parquet(demo_out / "forecast.parquet")
+    totals = pd.read_parquet(demo_out / "reserve_by_product.parquet").set_index("product")
+    assert (reserve["reserve"] == reserve["expected_future_returns"] * reserve["cost_per_claim"]).all()
+    assert forecast["expected_returns"].sum() == pytest.approx(reserve["expected_future_returns"].sum(), rel=1e-9)
+    assert totals["reserve"].sum() == pytest.approx(reserve["reserve"].sum(), rel=1e-12)
+    assert forecast["month"].min() >= pd.Timestamp("2026-11-01").date()
+    matrix = pd.read_parquet(demo_out / "age_in_service.parquet")
+    assert matrix["returns"].sum() == reserve["returns_to_date"].sum()
+    assert (matrix["returns"] <= matrix["units_at_risk"] + 1e-9).all()
+    # the defective build month has the highest month-1 return rate of its line
+    first_month = matrix[(matrix["product"] == "QCP-140") & (matrix["months_in_service"] == 1)]
+    worst = first_month.sort_values("return_rate").iloc[-1]
+    assert f"{worst['build_month']:%Y-%m}" == "2025-02"
+
+
+def test_rerun_replaces_outputs_with_identical_tables(demo_out, tmp_path):
+    before = {p.name: p.read_bytes() for p in demo_out.glob("*.parquet")}
+    assert run("--out", str(demo_out)) == exit_codes.SUCCESS
+    after = {p.name: p.read_bytes() for p in demo_out.glob("*.parquet")}
+    assert before == after
+
+
+def test_missing_required_column_fails_cleanly_and_keeps_previous_outputs(demo_out, tmp_path):
+    claims = pd.read_csv(CLAIMS, dtype=str).drop(columns="failure_date")
+    broken = tmp_path / "claims.csv"
+    claims.to_csv(broken, index=False)
+    manifest_before = (demo_out / "manifest.json").read_bytes()
+    code = main(["run", "--shipments", str(SHIPMENTS), "--claims", str(broken), "--out", str(demo_out)])
+    assert code == exit_codes.INPUT_CONTRACT
+    assert (demo_out / "manifest.json").read_bytes() == manifest_before
+    assert not [p for p in demo_out.parent.iterdir() if p.name.startswith(".")]
+
+
+def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
+    import pipeline.publish as publish
+
+    def explode(*_args, **_kwargs):
+        raise RuntimeError("disk on fire")
+
+    monkeypatch.setattr(publish, "_swap_into_place", explode)
+    out = tmp_path / "out"
+    assert run("--out", str(out)) == exit_codes.UNEXPECTED_ERROR
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize(
+    ("args", "code"),
+    [
+        (["run", "--shipments", "nope.parquet", "--claims", str(CLAIMS)], exit_codes.INPUT_UNREADABLE),
+        (["run", "--shipments", str(SHIPMENTS), "--claims", str(CLAIMS), "--as-of", "2026-13-01"],
+         exit_codes.BAD_ARGUMENTS),
+        (["run", "--shipments", str(SHIPMENTS)], exit_codes.BAD_ARGUMENTS),
+        (["frobnicate"], exit_codes.BAD_ARGUMENTS),
+    ],
+)
+def test_exit_codes(args, code, tmp_path):
+    try:
+        got = main([*args, "--out", str(tmp_path / "o")] if args[0] == "run" and "--claims" in args else args)
+    except SystemExit as exit_:  # argparse exits for bad arguments
+        got = exit_.code
+    assert got == code
+    assert not (tmp_path / "o").exists()
+
+
+def test_bad_config_exits_2(tmp_path):
+    config = tmp_path / "settings.toml"
+    config.write_text("[warranty]\ndefault_monthz = 12\n")
+    code = run("--config", str(config), "--out", str(tmp_path / "o"))
+    assert code == exit_codes.BAD_ARGUMENTS
+
+
+def test_refuses_to_replace_a_folder_that_is_not_an_output(tmp_path):
+    out = tmp_path / "precious"
+    out.mkdir()
+    (out / "thesis.txt").write_text("do not delete")
+    assert run("--out", str(out)) == exit_codes.OUTPUT_FAILED
+    assert (out / "thesis.txt").read_text() == "do not delete"
+
+
+def test_module_entry_point_runs():
+    # the console script and `python -m pipeline` share main(); check the module form starts
+    result = subprocess.run([sys.executable, "-m", "pipeline", "--help"], capture_output=True, text=True, cwd=ROOT)
+    assert result.returncode == 0 and "demo-data" in result.stdout

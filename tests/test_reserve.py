@@ -1,0 +1,69 @@
+"""Cost per claim and reserve arithmetic (common practice, no source)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+
+import pandas as pd
+import pytest
+
+from pipeline.config import ReserveSettings
+from pipeline.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+
+JAN, FEB = dt.date(2024, 1, 1), dt.date(2024, 2, 1)
+
+
+def claim_costs():
+    return pd.DataFrame(
+        {
+            "product": ["A", "B", "C"],
+            "window_returns": [4, 0, 0],
+            "window_mean_cost": [50.0, math.nan, math.nan],
+            "all_time_returns": [10, 3, 0],
+            "all_time_mean_cost": [45.0, 70.0, math.nan],
+        }
+    )
+
+
+def test_cost_per_claim_precedence():
+    costs = cost_per_claim_by_product(claim_costs(), ["A", "B", "C", "D"], ReserveSettings()).set_index("product")
+    assert costs.loc["A", "cost_per_claim"] == 50.0 and costs.loc["A", "basis_returns"] == 4
+    assert costs.loc["B", "cost_per_claim"] == 70.0 and "all returns" in costs.loc["B", "cost_basis"]
+    assert math.isnan(costs.loc["C", "cost_per_claim"]) and math.isnan(costs.loc["D", "cost_per_claim"])
+    configured = ReserveSettings(cost_per_claim=30.0, cost_per_claim_by_product=(("B", 99.0),))
+    costs = cost_per_claim_by_product(claim_costs(), ["A", "B"], configured).set_index("product")
+    assert costs["cost_per_claim"].to_dict() == {"A": 30.0, "B": 99.0}
+    assert set(costs["cost_basis"]) == {"configured"}
+
+
+def test_reserve_is_expected_returns_times_cost_and_empty_without_forecast():
+    summary = pd.DataFrame(
+        {
+            "product": ["A", "A", "B"],
+            "build_month": [JAN, FEB, JAN],
+            "units": [100, 200, 50],
+            "units_in_channel": [0, 10, 0],
+            "returns_to_date": [3, 1, 2],
+            "cost_to_date": [150.0, 50.0, 140.0],
+        }
+    )
+    forecast = pd.DataFrame(
+        {
+            "product": ["A", "A", "A"],
+            "build_month": [JAN, JAN, FEB],
+            "month": [FEB, dt.date(2024, 3, 1), dt.date(2024, 3, 1)],
+            "expected_returns": [1.5, 0.5, 4.0],
+        }
+    )
+    costs = cost_per_claim_by_product(claim_costs(), ["A", "B"], ReserveSettings())
+    reserve = reserve_by_build_month(summary, forecast, costs, {"A": "forecast", "B": "no forecast: insufficient_data"})
+    a = reserve[reserve["product"] == "A"].set_index("build_month")
+    assert a["expected_future_returns"].to_dict() == {JAN: 2.0, FEB: 4.0}
+    assert a["reserve"].to_dict() == {JAN: 100.0, FEB: 200.0}
+    b = reserve[reserve["product"] == "B"].iloc[0]
+    assert math.isnan(b["expected_future_returns"]) and math.isnan(b["reserve"])
+    totals = reserve_by_product(reserve).set_index("product")
+    assert totals.loc["A", "reserve"] == 300.0 and totals.loc["A", "units"] == 300
+    assert math.isnan(totals.loc["B", "reserve"])
+    assert totals.loc["B", "cost_to_date"] == 140.0
