@@ -57,7 +57,7 @@ def render_report(
         f"# Warranty returns forecast — as of {manifest['as_of_date']}",
         "",
         f"As-of date {manifest['as_of_date']} ({manifest['as_of_source']}). "
-        f"Run finished {manifest['finished_utc']} UTC in {manifest['seconds_total']:.1f} s.",
+        f"Run finished {manifest['finished_utc']} (UTC) in {manifest['seconds_total']:.1f} s.",
         "",
         "## Cautions",
         "",

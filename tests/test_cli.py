@@ -166,3 +166,12 @@ def test_module_entry_point_runs():
     # the console script and `python -m pipeline` share main(); check the module form starts
     result = subprocess.run([sys.executable, "-m", "pipeline", "--help"], capture_output=True, text=True, cwd=ROOT)
     assert result.returncode == 0 and "demo-data" in result.stdout
+
+
+def test_demo_data_command_writes_the_extracts(tmp_path):
+    out = tmp_path / "demo"
+    assert main(["demo-data", "--out", str(out), "--seed", "7"]) == exit_codes.SUCCESS
+    assert {"shipments.parquet", "claims.csv", "planted_defects.csv", "truth.json", "README.md"} <= {
+        p.name for p in out.iterdir()
+    }
+    assert json.loads((out / "truth.json").read_text())["seed"] == 7
