@@ -5,6 +5,7 @@ quarantine, ageing, matching claims to units, grouping) happens in the SQL model
 Python receives aggregated tables only.
 
 Layers, in the order they run (each model is one file; its table is named after the file):
+  macros/        DuckDB macros the models share (run first, as statements)
   raw/           the extracts as text with their 1-based data row numbers (CSV or Parquet)
   staging/       typed, checked rows; the first failed check per row
   intermediate/  units on their warranty clock, sale-month groups, claims matched to units
@@ -56,6 +57,7 @@ CLAIMS = ExtractContract(
     optional=("sale_date", "status", "failure_code", "serial"),
 )
 
+MACRO_FILES: tuple[str, ...] = ("macros/validation",)
 STAGING_MODELS: tuple[str, ...] = ("staging/stg_shipments", "staging/stg_claims")
 INTERMEDIATE_MODELS: tuple[str, ...] = (
     "intermediate/units_aged_to_as_of",
@@ -191,6 +193,8 @@ def shape_extracts(config: RunConfig) -> ShapedData:
     seconds: dict[str, float] = {}
     con = duckdb.connect(":memory:")
     try:
+        for macros in MACRO_FILES:
+            con.execute(read_model_sql(macros))
         started = time.perf_counter()
         ignored = {
             "shipments": load_extract(con, config.shipments_path, SHIPMENTS),

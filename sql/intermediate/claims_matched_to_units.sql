@@ -2,7 +2,7 @@
 -- unit's warranty clock, aged in months in service and assigned to a sale-month group.
 -- Grain: one row per valid staged claim with claim_date on or before the as-of date.
 -- Parameters: $as_of_date, $counted_statuses (list of statuses that count as returns).
--- Reads: stg_claims, stg_shipments, units_aged_to_as_of, sale_month_groups.
+-- Reads: stg_claims, stg_shipments, units_aged_to_as_of, sale_month_groups. Uses macros/validation.
 -- Warranty clock of a claim: its own sale_date; else its unit's clock (joined on serial); else the median
 -- clock of its product x build month (imputed, counted in the run facts).
 -- Months in service: age x = days / (365.25/12) from the clock to failure_date; MIS k = max(1, ceil(x)),
@@ -91,24 +91,30 @@ claims_with_unit as (
 referential_checks as (
     select
         *,
-        case
-            when not is_cohort_shipped
-                then {'col': 'build_month', 'reason': 'cohort_never_shipped',
-                      'detail': 'no valid shipment of product ' || product || ' build month '
-                          || strftime(build_month, '%Y-%m')}
-            when cohort_median_warranty_start_date is null
-                then {'col': 'build_month', 'reason': 'cohort_not_in_service',
-                      'detail': 'no unit of product ' || product || ' build month '
-                          || strftime(build_month, '%Y-%m') || ' was in service by ' || $as_of_date::date}
-            when is_unit_found and (unit_product <> product or unit_build_month <> build_month)
-                then {'col': 'serial', 'reason': 'serial_mismatch',
-                      'detail': 'serial ' || serial || ' was shipped as product ' || unit_product || ' build month '
-                          || strftime(unit_build_month, '%Y-%m')}
-            when failure_date < unit_known_sale_date
-                then {'col': 'failure_date', 'reason': 'failure_before_sale',
-                      'detail': 'failure_date ' || failure_date || ' is before the unit''s sale_date '
-                          || unit_known_sale_date}
-        end as problem,
+        coalesce(
+            check_that(
+                not is_cohort_shipped,
+                'build_month', 'cohort_never_shipped',
+                'no valid shipment of product ' || product || ' build month ' || strftime(build_month, '%Y-%m')
+            ),
+            check_that(
+                cohort_median_warranty_start_date is null,
+                'build_month', 'cohort_not_in_service',
+                'no unit of product ' || product || ' build month ' || strftime(build_month, '%Y-%m')
+                    || ' was in service by ' || $as_of_date::date
+            ),
+            check_that(
+                is_unit_found and (unit_product <> product or unit_build_month <> build_month),
+                'serial', 'serial_mismatch',
+                'serial ' || serial || ' was shipped as product ' || unit_product || ' build month '
+                    || strftime(unit_build_month, '%Y-%m')
+            ),
+            check_that(
+                failure_date < unit_known_sale_date,
+                'failure_date', 'failure_before_sale',
+                'failure_date ' || failure_date || ' is before the unit''s sale_date ' || unit_known_sale_date
+            )
+        ) as problem,
         coalesce(sale_date, unit_warranty_start_date, cohort_median_warranty_start_date) as warranty_start_date,
         sale_date is null and (not is_unit_found or is_unit_sale_date_imputed) as is_sale_date_imputed
     from claims_with_unit

@@ -2,7 +2,7 @@
 -- intermediate/claims_matched_to_units.sql).
 -- Grain: one row per data row of the claims file (one claim).
 -- Parameters: none.
--- Reads: raw_claims (every contract column as text, plus source_row_number).
+-- Reads: raw_claims (every contract column as text, plus source_row_number). Uses macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
 -- status is case-insensitive and defaults to approved when empty.
@@ -41,11 +41,7 @@ trimmed_text as (
 typed_values as (
     select
         *,
-        case
-            when regexp_full_match(build_month_text, '\d{4}-\d{2}')
-                then try_strptime(build_month_text, '%Y-%m')::date
-            else date_trunc('month', try_cast(build_month_text as date))::date
-        end as parsed_build_month,
+        parse_build_month(build_month_text) as parsed_build_month,
         try_cast(sale_date_text as date) as parsed_sale_date,
         try_cast(failure_date_text as date) as parsed_failure_date,
         try_cast(claim_date_text as date) as parsed_claim_date,
@@ -56,50 +52,39 @@ typed_values as (
 row_checks as (
     select
         *,
-        case
-            when claim_id_text is null
-                then {'col': 'claim_id', 'reason': 'missing_value', 'detail': 'claim_id is empty'}
-            when product_text is null
-                then {'col': 'product', 'reason': 'missing_value', 'detail': 'product is empty'}
-            when build_month_text is null
-                then {'col': 'build_month', 'reason': 'missing_value', 'detail': 'build_month is empty'}
-            when parsed_build_month is null
-                then {'col': 'build_month', 'reason': 'unparseable_value',
-                      'detail': 'build_month ' || build_month_text || ' is not YYYY-MM or a date'}
-            when failure_date_text is null
-                then {'col': 'failure_date', 'reason': 'missing_value', 'detail': 'failure_date is empty'}
-            when parsed_failure_date is null
-                then {'col': 'failure_date', 'reason': 'unparseable_value',
-                      'detail': 'failure_date ' || failure_date_text || ' is not a date'}
-            when claim_date_text is null
-                then {'col': 'claim_date', 'reason': 'missing_value', 'detail': 'claim_date is empty'}
-            when parsed_claim_date is null
-                then {'col': 'claim_date', 'reason': 'unparseable_value',
-                      'detail': 'claim_date ' || claim_date_text || ' is not a date'}
-            when sale_date_text is not null and parsed_sale_date is null
-                then {'col': 'sale_date', 'reason': 'unparseable_value',
-                      'detail': 'sale_date ' || sale_date_text || ' is not a date'}
-            when cost_text is null
-                then {'col': 'cost', 'reason': 'missing_value', 'detail': 'cost is empty'}
-            when parsed_cost is null
-                then {'col': 'cost', 'reason': 'unparseable_value',
-                      'detail': 'cost ' || cost_text || ' is not a decimal number'}
-            when parsed_cost < 0
-                then {'col': 'cost', 'reason': 'negative_cost', 'detail': 'cost ' || cost_text || ' is negative'}
-            when status_text not in ('approved', 'rejected', 'no_fault_found')
-                then {'col': 'status', 'reason': 'unknown_status',
-                      'detail': 'status ' || status_text || ' is not approved, rejected or no_fault_found'}
-            when parsed_claim_date < parsed_failure_date
-                then {'col': 'claim_date', 'reason': 'claim_before_failure',
-                      'detail': 'claim_date ' || parsed_claim_date || ' is before failure_date ' || parsed_failure_date}
-            when parsed_failure_date < parsed_sale_date
-                then {'col': 'failure_date', 'reason': 'failure_before_sale',
-                      'detail': 'failure_date ' || parsed_failure_date || ' is before sale_date ' || parsed_sale_date}
-            when parsed_failure_date < parsed_build_month
-                then {'col': 'failure_date', 'reason': 'failure_before_build',
-                      'detail': 'failure_date ' || parsed_failure_date || ' is before build month '
-                          || strftime(parsed_build_month, '%Y-%m')}
-        end as row_problem
+        coalesce(
+            check_present('claim_id', claim_id_text),
+            check_present('product', product_text),
+            check_present('build_month', build_month_text),
+            check_parsed('build_month', build_month_text, parsed_build_month, 'YYYY-MM or a date'),
+            check_present('failure_date', failure_date_text),
+            check_parsed('failure_date', failure_date_text, parsed_failure_date, 'a date'),
+            check_present('claim_date', claim_date_text),
+            check_parsed('claim_date', claim_date_text, parsed_claim_date, 'a date'),
+            check_parsed('sale_date', sale_date_text, parsed_sale_date, 'a date'),
+            check_present('cost', cost_text),
+            check_parsed('cost', cost_text, parsed_cost, 'a decimal number'),
+            check_that(parsed_cost < 0, 'cost', 'negative_cost', 'cost ' || cost_text || ' is negative'),
+            check_that(
+                status_text not in ('approved', 'rejected', 'no_fault_found'),
+                'status', 'unknown_status', 'status ' || status_text || ' is not approved, rejected or no_fault_found'
+            ),
+            check_that(
+                parsed_claim_date < parsed_failure_date,
+                'claim_date', 'claim_before_failure',
+                'claim_date ' || parsed_claim_date || ' is before failure_date ' || parsed_failure_date
+            ),
+            check_that(
+                parsed_failure_date < parsed_sale_date,
+                'failure_date', 'failure_before_sale',
+                'failure_date ' || parsed_failure_date || ' is before sale_date ' || parsed_sale_date
+            ),
+            check_that(
+                parsed_failure_date < parsed_build_month,
+                'failure_date', 'failure_before_build',
+                'failure_date ' || parsed_failure_date || ' is before build month ' || strftime(parsed_build_month, '%Y-%m')
+            )
+        ) as row_problem
     from typed_values
 ),
 
@@ -124,11 +109,11 @@ checked_rows as (
         *,
         coalesce(
             row_problem,
-            case
-                when claim_id_occurrence > 1
-                    then {'col': 'claim_id', 'reason': 'duplicate_claim_id',
-                          'detail': 'claim_id ' || claim_id_text || ' first appears at row ' || first_row_with_claim_id}
-            end
+            check_that(
+                claim_id_occurrence > 1,
+                'claim_id', 'duplicate_claim_id',
+                'claim_id ' || claim_id_text || ' first appears at row ' || first_row_with_claim_id
+            )
         ) as problem
     from claim_id_occurrences
 )
