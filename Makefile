@@ -23,4 +23,19 @@ test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 clean:
-	rm -rf $(VENV) reports/demo
+	rm -rf $(VENV) .venv-bench reports/demo
+
+# make bench   benchmark of the grouped fit against per-unit fits (scipy, lifelines); prints a table.
+# lifelines pins pandas < 3, so it gets its own venv (.venv-bench); the project declares pandas >= 2.2.
+BENCH_VENV := .venv-bench
+BENCH_STAMP := $(BENCH_VENV)/.installed
+BENCH_ARGS ?=
+
+$(BENCH_STAMP): pyproject.toml
+	$(PYTHON) -m venv $(BENCH_VENV)
+	$(BENCH_VENV)/bin/python -m pip install --quiet --upgrade pip
+	$(BENCH_VENV)/bin/python -m pip install --quiet -e . 'pandas<3' lifelines
+	touch $(BENCH_STAMP)
+
+bench: $(BENCH_STAMP)
+	$(BENCH_VENV)/bin/python -m pipeline.bench $(BENCH_ARGS)

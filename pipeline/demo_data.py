@@ -540,11 +540,11 @@ def generate_demo_data(seed: int = DEFAULT_SEED) -> DemoData:
         "serial": raw["serial"].to_numpy(dtype=object),
     })
     order = np.lexsort((claims_valid["claim_id"].to_numpy(dtype=str), raw["claim"].to_numpy()))
-    claims_valid = claims_valid.iloc[order].reset_index(drop=True).astype("str")
+    claims_valid = claims_valid.iloc[order].reset_index(drop=True).astype("string")
 
     shipments, ship_records = _plant_shipments(shipments, plant_rng)
     claims, claim_records = _plant_claims(claims_valid, list(ids[n_claims:]), plant_rng)
-    claims = claims.astype("str")
+    claims = claims.astype("string")
     planted = pd.DataFrame(ship_records + claim_records, columns=PLANTED_COLUMNS)
     planted = planted.sort_values(["source_file", "row_number"], kind="stable").reset_index(drop=True)
     planted = planted.astype({"source_file": "str", "row_number": "int64", "column": "str", "reason": "str"})
