@@ -1,4 +1,4 @@
-"""Command line of the pipeline: `warranty-forecast run | demo-data` (also `python -m pipeline`).
+"""Command line of the pipeline: `warranty-forecast run | demo-data | bench` (also `python -m pipeline`).
 
 Logging is configured here only (stderr, one line per stage). Known errors map to the exit codes of
 `pipeline.exit_codes` with one clear log line; anything else is logged with its traceback and exits 1.
@@ -60,6 +60,10 @@ def build_parser() -> argparse.ArgumentParser:
     )
     run.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
 
+    bench = commands.add_parser(
+        "bench", help="benchmark the grouped fit against per-unit fits (options: see python -m pipeline.bench -h)"
+    )
+
     demo = commands.add_parser("demo-data", help="write the seeded demo extracts")
     demo.add_argument("--out", type=Path, default=Path("data_demo"), help="folder to write (default data_demo)")
     demo.add_argument("--seed", type=int, default=20261130, help="random seed (default 20261130)")
@@ -68,6 +72,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point; returns the process exit code."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if argv[:1] == ["bench"]:  # the benchmark has its own options (python -m pipeline.bench -h)
+        from pipeline.bench import main as bench_main
+
+        return bench_main(argv[1:])
     parser = build_parser()
     arguments = parser.parse_args(argv)
     logging.basicConfig(
