@@ -6,7 +6,7 @@ No fitting or file I/O happens here: every chart draws tables computed by the st
 from __future__ import annotations
 
 import math
-from typing import Mapping
+from typing import Mapping, Protocol
 
 import matplotlib
 
@@ -20,6 +20,12 @@ from matplotlib.figure import Figure  # noqa: E402
 from pipeline.life_model import WeibullFit  # noqa: E402
 
 _PER_THOUSAND = 1000.0
+
+
+class LifeCurve(Protocol):
+    """Any fitted life distribution that gives F(t)."""
+
+    def cdf(self, t: np.ndarray) -> np.ndarray: ...
 
 
 def _grid(count: int, width: float = 5.0, height: float = 4.2) -> tuple[Figure, np.ndarray]:
@@ -57,11 +63,17 @@ def return_rate_heatmap(age_in_service: pd.DataFrame) -> Figure:
     return figure
 
 
-def weibull_probability_plot(life_table: pd.DataFrame, fits: Mapping[str, WeibullFit | None]) -> Figure:
+def weibull_probability_plot(
+    life_table: pd.DataFrame,
+    fits: Mapping[str, WeibullFit | None],
+    alternatives: Mapping[str, LifeCurve | None] | None = None,
+) -> Figure:
     """Life-table fraction failed (with Greenwood bounds) and the fitted Weibull line with its Wald band.
 
     Axes: log(months in service) against log(-log(1 - F)); a Weibull is a straight line of slope shape.
+    `alternatives` (e.g. the lognormal fits) are drawn dashed for comparison.
     """
+    alternatives = alternatives or {}
     products = sorted(life_table["product"].unique())
     figure, axes = _grid(len(products))
     for axis, product in zip(axes.flat, products):
@@ -91,6 +103,10 @@ def weibull_probability_plot(life_table: pd.DataFrame, fits: Mapping[str, Weibul
             ))
             axis.fill_between(grid, _weibull_scale(lower), _weibull_scale(upper), color="#c0392b", alpha=0.15,
                               label=f"{fit.confidence_level:.0%} Wald band")
+            alternative = alternatives.get(product)
+            if alternative is not None:
+                axis.plot(grid, _weibull_scale(alternative.cdf(grid)), color="#5c677d", linestyle="--",
+                          linewidth=1.0, label="lognormal alternative")
         axis.set_xscale("log")
         axis.set_title(product)
         axis.set_xlabel("months in service (log scale)")
@@ -135,5 +151,27 @@ def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
     axis.set_ylabel("expected returns")
     axis.legend(title="product")
     axis.grid(True, axis="y", alpha=0.3)
+    figure.tight_layout()
+    return figure
+
+
+def failure_mode_pareto(returns_by_failure_mode: pd.DataFrame) -> Figure:
+    """Counted returns by failure code, largest first, with the cumulative share, per product."""
+    by_code = returns_by_failure_mode.groupby(["product", "failure_mode"], as_index=False)["returns"].sum()
+    products = sorted(by_code["product"].unique())
+    figure, axes = _grid(len(products), width=5.2, height=4.4)
+    for axis, product in zip(axes.flat, products):
+        rows = by_code[by_code["product"] == product].sort_values(["returns", "failure_mode"], ascending=[False, True])
+        counts = rows["returns"].to_numpy(dtype=float)
+        positions = np.arange(len(rows))
+        axis.bar(positions, counts, color="#1b4965")
+        axis.set_xticks(positions, rows["failure_mode"].tolist(), rotation=35, ha="right", fontsize=8)
+        axis.set_ylabel("returns to date")
+        axis.set_title(product)
+        share = axis.twinx()
+        share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color="#c0392b", marker="o", markersize=3.5)
+        share.set_ylim(0, 105)
+        share.set_ylabel("cumulative share of returns (%)")
+    figure.suptitle("Returns by failure code (Pareto)")
     figure.tight_layout()
     return figure

@@ -18,8 +18,14 @@ cost_window_months = 12          # trailing window (months before the as-of date
 WP10 = 90.0                      # per-product override; wins over cost_per_claim
 
 [life_model]
-confidence_level = 0.95          # two-sided level of every confidence bound
-min_returns = 5                  # fewer counted returns than this: no fit is published for the product
+confidence_level = 0.95          # two-sided level of every confidence bound (Wald and likelihood-ratio)
+min_returns = 5                  # fewer counted returns: fixed-shape fit if a shape is configured, else none
+fixed_shape = 1.5                # shape from engineering experience for thin or unidentifiable data
+min_returns_per_mode = 20        # failure codes with fewer returns fold into "other"
+forecast_model = "weibull"       # "weibull", "lognormal" or "failure_modes" (competing risks by code)
+aic_threshold = 10.0             # warn when the lognormal AIC beats the Weibull by more than this
+[life_model.fixed_shape_by_product]
+QHT-360 = 2.5                    # per-product shape; wins over fixed_shape
 ```
 """
 
@@ -35,6 +41,7 @@ from typing import Any, Mapping
 from pipeline.errors import ConfigError
 
 CLAIM_STATUSES: tuple[str, ...] = ("approved", "rejected", "no_fault_found")
+FORECAST_MODELS: tuple[str, ...] = ("weibull", "lognormal", "failure_modes")
 
 
 @dataclass(frozen=True)
@@ -65,6 +72,18 @@ class ReserveSettings:
 class LifeModelSettings:
     confidence_level: float = 0.95
     min_returns: int = 5
+    fixed_shape: float | None = None
+    fixed_shape_by_product: tuple[tuple[str, float], ...] = ()
+    min_returns_per_mode: int = 20
+    forecast_model: str = "weibull"
+    aic_threshold: float = 10.0
+
+    def fixed_shape_for(self, product: str) -> float | None:
+        """The configured Weibull shape for a product (engineering experience), or None."""
+        for name, shape in self.fixed_shape_by_product:
+            if name == product:
+                return shape
+        return self.fixed_shape
 
 
 @dataclass(frozen=True)
@@ -133,7 +152,15 @@ def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str
     _reject_unknown(
         reserve, {"cost_per_claim", "cost_window_months", "cost_per_claim_by_product"}, source, "reserve."
     )
-    _reject_unknown(life_model, {"confidence_level", "min_returns"}, source, "life_model.")
+    _reject_unknown(
+        life_model,
+        {
+            "confidence_level", "min_returns", "fixed_shape", "fixed_shape_by_product", "min_returns_per_mode",
+            "forecast_model", "aic_threshold",
+        },
+        source,
+        "life_model.",
+    )
 
     default_months = _int(warranty, "default_months", 24, source, "warranty.", minimum=1)
     statuses = claims.get("counted_statuses", ["approved"])
@@ -154,6 +181,12 @@ def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str
         )
     )
     cost = _cost(reserve, "cost_per_claim", source, "reserve.") if "cost_per_claim" in reserve else None
+    shapes_by_product = _table(life_model, "fixed_shape_by_product", source)
+    forecast_model = life_model.get("forecast_model", "weibull")
+    if forecast_model not in FORECAST_MODELS:
+        raise ConfigError(
+            f"{source}: life_model.forecast_model must be one of {list(FORECAST_MODELS)}, got {forecast_model!r}"
+        )
     level = life_model.get("confidence_level", 0.95)
     if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.5 <= float(level) < 1.0:
         raise ConfigError(f"{source}: life_model.confidence_level must be a number in [0.5, 1), got {level!r}")
@@ -168,6 +201,18 @@ def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str
         "life_model": LifeModelSettings(
             confidence_level=float(level),
             min_returns=_int(life_model, "min_returns", 5, source, "life_model.", minimum=2),
+            fixed_shape=_shape(life_model, "fixed_shape", source, "life_model.") if "fixed_shape" in life_model else None,
+            fixed_shape_by_product=tuple(
+                sorted(
+                    (str(name), _shape(shapes_by_product, name, source, "life_model.fixed_shape_by_product."))
+                    for name in shapes_by_product
+                )
+            ),
+            min_returns_per_mode=_int(life_model, "min_returns_per_mode", 20, source, "life_model.", minimum=2),
+            forecast_model=forecast_model,
+            aic_threshold=_number(life_model, "aic_threshold", source, "life_model.", "")
+            if "aic_threshold" in life_model
+            else 10.0,
         ),
     }
 
@@ -192,8 +237,19 @@ def _int(table: Mapping[str, Any], key: str, default: int, source: str, prefix: 
     return value
 
 
-def _cost(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
+def _shape(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
+    value = table[key]
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.05 <= value <= 20:
+        raise ConfigError(f"{source}: {prefix}{key} must be a Weibull shape in [0.05, 20], got {value!r}")
+    return float(value)
+
+
+def _number(table: Mapping[str, Any], key: str, source: str, prefix: str, unit: str) -> float:
     value = table[key]
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
-        raise ConfigError(f"{source}: {prefix}{key} must be a number >= 0 (currency units), got {value!r}")
+        raise ConfigError(f"{source}: {prefix}{key} must be a number >= 0{unit}, got {value!r}")
     return float(value)
+
+
+def _cost(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
+    return _number(table, key, source, prefix, " (currency units)")

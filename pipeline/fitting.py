@@ -1,9 +1,15 @@
-"""The life-model stage: one Weibull fit per product from the shaped fit input.
+"""The life-model stage: per product, a Weibull fit with its bounds and diagnostics.
 
 Turns the fit_returns / fit_suspensions tables into `LifeData` (returns interval-censored in
-(k-1, k] months, suspensions right-censored at their observed age), fits, and records per product
-whether a fit can be published. A product with too few returns, or whose fit did not converge, gets
-a status and a message in the outputs instead of a crash or a silent garbage fit.
+(k-1, k] months, suspensions right-censored at their observed age) and fits each product:
+
+1. a two-parameter Weibull by maximum likelihood; when there are fewer counted returns than
+   `min_returns`, or the data cannot identify shape and scale, and a shape is configured for the
+   product (engineering experience), a fixed-shape fit that estimates only the scale; otherwise no
+   fit, and a status that says why (never a crash, never a silent garbage fit);
+2. Wald and likelihood-ratio bounds for shape, scale, B1, B10 and F at the warranty end;
+3. a goodness-of-fit test of observed against expected returns by month in service;
+4. a lognormal fitted to the same data, with both AICs, as a check on the Weibull family.
 """
 
 from __future__ import annotations
@@ -16,55 +22,111 @@ import numpy as np
 import pandas as pd
 
 from pipeline.config import LifeModelSettings
+from pipeline.errors import FitError
+from pipeline.goodness_of_fit import GoodnessOfFit, goodness_of_fit
 from pipeline.life_model import (
-    FitNotConvergedError,
     InsufficientDataError,
     LifeData,
+    LikelihoodRatioBounds,
+    UnidentifiableError,
     WeibullFit,
     WeibullFitter,
+    likelihood_ratio_bounds,
 )
+from pipeline.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
 
 FITTED = "fitted"
+FIXED_SHAPE = "fixed_shape"
 INSUFFICIENT_DATA = "insufficient_data"
+UNIDENTIFIABLE = "unidentifiable"
 NOT_CONVERGED = "not_converged"
+PUBLISHED_STATUSES = (FITTED, FIXED_SHAPE)
 
 LIFE_MODEL_COLUMNS = (
     "product",
     "status",
     "message",
+    "is_shape_fixed",
     "shape",
     "shape_lower",
     "shape_upper",
+    "shape_lr_lower",
+    "shape_lr_upper",
     "scale",
     "scale_lower",
     "scale_upper",
+    "scale_lr_lower",
+    "scale_lr_upper",
     "rate",
+    "b1",
+    "b1_lower",
+    "b1_upper",
+    "b1_lr_lower",
+    "b1_lr_upper",
     "b10",
     "b10_lower",
     "b10_upper",
+    "b10_lr_lower",
+    "b10_lr_upper",
+    "warranty_months",
+    "fraction_failed_at_warranty_end",
+    "fraction_failed_at_warranty_end_lower",
+    "fraction_failed_at_warranty_end_upper",
+    "fraction_failed_at_warranty_end_lr_lower",
+    "fraction_failed_at_warranty_end_lr_upper",
+    "lr_bounds_finite",
     "mean_life",
     "variance_life",
     "returns",
     "suspensions",
     "units",
     "log_likelihood",
+    "aic",
     "converged",
     "iterations",
     "gradient_norm",
     "confidence_level",
     "bound_method",
+    "gof_chi_square",
+    "gof_df",
+    "gof_p_value",
+    "gof_deviance",
+    "gof_deviance_df",
+    "gof_deviance_p_value",
+    "gof_largest_residual_month",
+    "lognormal_mu",
+    "lognormal_sigma",
+    "lognormal_log_likelihood",
+    "lognormal_aic",
+    "delta_aic_weibull_minus_lognormal",
+    "prefers_lognormal",
+    "family_message",
 )
 
 
 @dataclass(frozen=True)
+class WeibullOutcome:
+    """A Weibull fit, or the reason there is none (status is one of the module's status names)."""
+
+    status: str
+    message: str
+    fit: WeibullFit | None
+
+
+@dataclass(frozen=True)
 class ProductFit:
-    """The outcome of fitting one product: a fit when status is "fitted", else why not."""
+    """Everything fitted for one product; `fit` is set when status is "fitted" or "fixed_shape"."""
 
     product: str
     status: str
     message: str
     data: LifeData
+    warranty_months: int
     fit: WeibullFit | None
+    lr_bounds: LikelihoodRatioBounds | None
+    goodness: GoodnessOfFit | None
+    lognormal: LognormalFit | None
+    comparison: FamilyComparison | None
 
 
 def life_data_by_product(fit_returns: pd.DataFrame, fit_suspensions: pd.DataFrame) -> dict[str, LifeData]:
@@ -87,66 +149,166 @@ def life_data_by_product(fit_returns: pd.DataFrame, fit_suspensions: pd.DataFram
     return result
 
 
-def fit_products(data_by_product: Mapping[str, LifeData], settings: LifeModelSettings) -> dict[str, ProductFit]:
-    """Fit every product; never raises for a product's data, records the status instead."""
+def fit_weibull(data: LifeData, settings: LifeModelSettings, fixed_shape: float | None) -> WeibullOutcome:
+    """Two-parameter fit, falling back on a fixed shape for thin or unidentifiable data when one is given."""
     fitter = WeibullFitter(confidence_level=settings.confidence_level, min_returns=settings.min_returns)
+    try:
+        return WeibullOutcome(FITTED, "", fitter.fit(data))
+    except InsufficientDataError as error:
+        reason, status = str(error), INSUFFICIENT_DATA
+    except UnidentifiableError as error:
+        reason, status = str(error), UNIDENTIFIABLE
+    except FitError as error:
+        return WeibullOutcome(NOT_CONVERGED, str(error), None)
+    if fixed_shape is None:
+        return WeibullOutcome(status, f"{reason}; no fixed shape configured (life_model.fixed_shape)", None)
+    try:
+        fit = fitter.fit_fixed_shape(data, fixed_shape)
+    except FitError as error:
+        return WeibullOutcome(status, f"{reason}; fixed-shape fit also failed: {error}", None)
+    return WeibullOutcome(
+        FIXED_SHAPE,
+        f"shape fixed at {fixed_shape:g} from configuration, only the scale estimated ({reason})",
+        fit,
+    )
+
+
+def fit_products(
+    data_by_product: Mapping[str, LifeData],
+    settings: LifeModelSettings,
+    warranty_by_product: Mapping[str, int],
+) -> dict[str, ProductFit]:
+    """Fit every product; never raises for a product's data, records the status instead."""
     fits = {}
     for product, data in sorted(data_by_product.items()):
+        warranty = int(warranty_by_product[product])
+        outcome = fit_weibull(data, settings, settings.fixed_shape_for(product))
+        message = outcome.message
+        lr_bounds = goodness = None
+        if outcome.fit is not None:
+            try:
+                lr_bounds = likelihood_ratio_bounds(
+                    outcome.fit, data, cdf_ages=(float(warranty),), confidence_level=settings.confidence_level
+                )
+            except FitError as error:
+                message = _join(message, f"likelihood-ratio bounds failed: {error}")
+            goodness = _goodness(data, outcome.fit)
+        lognormal = comparison = None
         try:
-            fit = fitter.fit(data)
-        except InsufficientDataError as error:
-            fits[product] = ProductFit(product, INSUFFICIENT_DATA, str(error), data, None)
-            continue
-        except FitNotConvergedError as error:
-            fits[product] = ProductFit(product, NOT_CONVERGED, str(error), data, None)
-            continue
-        fits[product] = ProductFit(product, FITTED, "", data, fit)
+            lognormal = LognormalFitter(
+                confidence_level=settings.confidence_level, min_returns=settings.min_returns
+            ).fit(data)
+        except FitError as error:
+            if outcome.fit is not None:
+                message = _join(message, f"lognormal alternative not fitted: {error}")
+        if lognormal is not None and outcome.fit is not None and not outcome.fit.shape_fixed:
+            comparison = compare_families(outcome.fit.log_likelihood, lognormal.log_likelihood, settings.aic_threshold)
+        fits[product] = ProductFit(
+            product, outcome.status, message, data, warranty, outcome.fit, lr_bounds, goodness, lognormal, comparison
+        )
     return fits
 
 
+def _goodness(data: LifeData, fit: WeibullFit) -> GoodnessOfFit | None:
+    try:
+        return goodness_of_fit(data, fit.log_survival, n_parameters=1 if fit.shape_fixed else 2)
+    except ValueError:
+        return None
+
+
+def _join(first: str, second: str) -> str:
+    return f"{first}; {second}" if first else second
+
+
 def life_model_table(fits: Mapping[str, ProductFit], units_by_product: Mapping[str, float]) -> pd.DataFrame:
-    """One row per product with estimates, Wald bounds and fit facts (NaN where no fit exists)."""
-    rows = []
-    for product, outcome in sorted(fits.items()):
-        row: dict[str, object] = {column: math.nan for column in LIFE_MODEL_COLUMNS}
-        row.update(
-            product=product,
-            status=outcome.status,
-            message=outcome.message,
-            returns=outcome.data.n_returns,
-            suspensions=outcome.data.n_suspensions,
-            units=float(units_by_product.get(product, math.nan)),
-            converged=False,
-            iterations=0,
-            bound_method="",
-        )
-        fit = outcome.fit
-        if fit is not None:
-            shape_lower, shape_upper = fit.shape_bounds()
-            scale_lower, scale_upper = fit.scale_bounds()
-            b10_lower, b10_upper = fit.b_life_bounds(0.10)
-            row.update(
-                shape=fit.shape,
-                shape_lower=shape_lower,
-                shape_upper=shape_upper,
-                scale=fit.scale,
-                scale_lower=scale_lower,
-                scale_upper=scale_upper,
-                rate=fit.rate,
-                b10=fit.b10,
-                b10_lower=b10_lower,
-                b10_upper=b10_upper,
-                mean_life=fit.mean,
-                variance_life=fit.variance,
-                log_likelihood=fit.log_likelihood,
-                converged=bool(fit.converged),
-                iterations=int(fit.iterations),
-                gradient_norm=fit.gradient_norm,
-                confidence_level=fit.confidence_level,
-                bound_method=fit.bound_method,
-            )
-        rows.append(row)
+    """One row per product with estimates, Wald and likelihood-ratio bounds, diagnostics (NaN where none)."""
+    rows = [_life_model_row(outcome, units_by_product.get(product, math.nan)) for product, outcome in sorted(fits.items())]
     table = pd.DataFrame(rows, columns=list(LIFE_MODEL_COLUMNS))
-    table["converged"] = table["converged"].astype(bool)
+    for column in ("converged", "is_shape_fixed", "prefers_lognormal", "lr_bounds_finite"):
+        table[column] = table[column].astype(bool)
     table["iterations"] = table["iterations"].astype(np.int64)
+    table["warranty_months"] = table["warranty_months"].astype(np.int64)
     return table
+
+
+def _life_model_row(outcome: ProductFit, units: float) -> dict[str, object]:
+    row: dict[str, object] = {column: math.nan for column in LIFE_MODEL_COLUMNS}
+    row.update(
+        product=outcome.product,
+        status=outcome.status,
+        message=outcome.message,
+        is_shape_fixed=False,
+        returns=outcome.data.n_returns,
+        suspensions=outcome.data.n_suspensions,
+        units=float(units),
+        warranty_months=outcome.warranty_months,
+        converged=False,
+        iterations=0,
+        bound_method="",
+        prefers_lognormal=False,
+        lr_bounds_finite=False,
+        family_message="",
+    )
+    fit = outcome.fit
+    if fit is not None:
+        warranty = float(outcome.warranty_months)
+        cdf_lower, cdf_upper = fit.cdf_bounds(np.array([warranty]))
+        row.update(
+            is_shape_fixed=bool(fit.shape_fixed),
+            shape=fit.shape,
+            scale=fit.scale,
+            rate=fit.rate,
+            b1=float(fit.b_life(0.01)),
+            b10=fit.b10,
+            fraction_failed_at_warranty_end=float(fit.cdf(np.array([warranty]))[0]),
+            fraction_failed_at_warranty_end_lower=float(cdf_lower[0]),
+            fraction_failed_at_warranty_end_upper=float(cdf_upper[0]),
+            mean_life=fit.mean,
+            variance_life=fit.variance,
+            log_likelihood=fit.log_likelihood,
+            aic=2.0 * (1 if fit.shape_fixed else 2) - 2.0 * fit.log_likelihood,
+            converged=bool(fit.converged),
+            iterations=int(fit.iterations),
+            gradient_norm=fit.gradient_norm,
+            confidence_level=fit.confidence_level,
+            bound_method="wald-log and likelihood-ratio",
+        )
+        row["shape_lower"], row["shape_upper"] = fit.shape_bounds()
+        row["scale_lower"], row["scale_upper"] = fit.scale_bounds()
+        row["b1_lower"], row["b1_upper"] = fit.b_life_bounds(0.01)
+        row["b10_lower"], row["b10_upper"] = fit.b_life_bounds(0.10)
+    lr = outcome.lr_bounds
+    if lr is not None:
+        row["shape_lr_lower"], row["shape_lr_upper"] = lr.shape
+        row["scale_lr_lower"], row["scale_lr_upper"] = lr.scale
+        row["b1_lr_lower"], row["b1_lr_upper"] = lr.b_life[0.01]
+        row["b10_lr_lower"], row["b10_lr_upper"] = lr.b_life[0.10]
+        row["fraction_failed_at_warranty_end_lr_lower"], row["fraction_failed_at_warranty_end_lr_upper"] = lr.cdf[
+            float(outcome.warranty_months)
+        ]
+        row["lr_bounds_finite"] = bool(lr.is_bounded)
+    goodness = outcome.goodness
+    if goodness is not None:
+        row.update(
+            gof_chi_square=goodness.chi_square,
+            gof_df=goodness.chi_square_df,
+            gof_p_value=goodness.chi_square_p_value,
+            gof_deviance=goodness.deviance,
+            gof_deviance_df=goodness.deviance_df,
+            gof_deviance_p_value=goodness.deviance_p_value,
+            gof_largest_residual_month=goodness.largest_residual_month,
+        )
+    if outcome.lognormal is not None:
+        row.update(
+            lognormal_mu=outcome.lognormal.mu,
+            lognormal_sigma=outcome.lognormal.sigma,
+            lognormal_log_likelihood=outcome.lognormal.log_likelihood,
+            lognormal_aic=outcome.lognormal.aic,
+        )
+    if outcome.comparison is not None:
+        row.update(
+            delta_aic_weibull_minus_lognormal=outcome.comparison.delta_aic,
+            prefers_lognormal=bool(outcome.comparison.prefers_lognormal),
+            family_message=outcome.comparison.message,
+        )
+    return row

@@ -16,6 +16,7 @@ Pure functions over DataFrames; the life model comes in as anything with `log_su
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Mapping, Protocol
 
 import numpy as np
@@ -61,7 +62,19 @@ def expected_future_returns(
     return pd.concat(pieces, ignore_index=True)
 
 
-def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFrame:
+@dataclass(frozen=True)
+class _FutureIntervals:
+    """Every (suspension row, future month in service) pair of one product, as flat arrays."""
+
+    row_index: np.ndarray  # position of the suspension row
+    months_in_service: np.ndarray  # k
+    observed: np.ndarray  # a, the row's observed age (months)
+    lower: np.ndarray  # max(a, k - 1)
+    upper: np.ndarray  # k
+    survivors: np.ndarray  # s of the row
+
+
+def _future_intervals(rows: pd.DataFrame) -> _FutureIntervals:
     age = rows["observed_age_months"].to_numpy(dtype=float)
     warranty = rows["warranty_months"].to_numpy(dtype=np.int64)
     survivors = rows["suspensions"].to_numpy(dtype=float)
@@ -72,15 +85,29 @@ def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFra
     # month in service k for each (row, future month): first_month, first_month + 1, ..., W
     offsets = np.arange(months_left.sum()) - np.repeat(np.cumsum(months_left) - months_left, months_left)
     months_in_service = np.repeat(first_month, months_left) + offsets
-
     observed = age[row_index]
-    lower = np.maximum(observed, months_in_service - 1.0)
-    upper = months_in_service.astype(float)
-    log_r_observed = model.log_survival(observed)
-    log_r_lower = model.log_survival(lower)
-    log_r_upper = model.log_survival(upper)
+    return _FutureIntervals(
+        row_index=row_index,
+        months_in_service=months_in_service,
+        observed=observed,
+        lower=np.maximum(observed, months_in_service - 1.0),
+        upper=months_in_service.astype(float),
+        survivors=survivors[row_index],
+    )
+
+
+def _expected_in_intervals(intervals: _FutureIntervals, model: LifeDistribution) -> np.ndarray:
+    log_r_observed = model.log_survival(intervals.observed)
+    log_r_lower = model.log_survival(intervals.lower)
+    log_r_upper = model.log_survival(intervals.upper)
     # naive: survivors * (F(upper) - F(lower)) / R(observed)
-    expected = survivors[row_index] * np.exp(log_r_lower - log_r_observed) * -np.expm1(log_r_upper - log_r_lower)
+    return intervals.survivors * np.exp(log_r_lower - log_r_observed) * -np.expm1(log_r_upper - log_r_lower)
+
+
+def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFrame:
+    intervals = _future_intervals(rows)
+    row_index = intervals.row_index
+    expected = _expected_in_intervals(intervals, model)
 
     start = pd.to_datetime(rows["warranty_start_date"].to_numpy()[row_index])
     start_coordinate = (
@@ -88,7 +115,7 @@ def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFra
         + (start.month.to_numpy() - 1)
         + (start.day.to_numpy() - 1) / start.days_in_month.to_numpy()
     )
-    month_index = np.floor(start_coordinate + (lower + upper) / 2.0).astype(np.int64)
+    month_index = np.floor(start_coordinate + (intervals.lower + intervals.upper) / 2.0).astype(np.int64)
     # datetime64[M] counts months from 1970-01
     month = (month_index - 1970 * 12).astype("datetime64[M]").astype("datetime64[s]")
 
@@ -97,12 +124,52 @@ def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFra
             "product": rows["product"].to_numpy()[row_index],
             "build_month": rows["build_month"].to_numpy()[row_index],
             "sale_month": rows["sale_month"].to_numpy()[row_index],
-            "warranty_months": warranty[row_index],
-            "months_in_service": months_in_service,
+            "warranty_months": rows["warranty_months"].to_numpy(dtype=np.int64)[row_index],
+            "months_in_service": intervals.months_in_service,
             "month": month,
             "expected_returns": expected,
         }
     )
+
+
+def expected_future_returns_by_mode(
+    suspensions: pd.DataFrame, mode_models: Mapping[str, Mapping[str, LifeDistribution]]
+) -> pd.DataFrame:
+    """Expected future returns per product x failure mode under independent competing risks.
+
+    The product's survival is the product of the modes' survivals, R = prod_m R_m. In each future
+    interval the product's expected returns are split among the modes in proportion to their
+    cumulative-hazard increments, H_m(upper) - H_m(lower) with H_m = -log R_m (exact when the modes'
+    hazards are proportional inside the interval; a month is short enough for that).
+    Returns columns product, failure_mode, expected_returns.
+    """
+    rows_out = []
+    for product, rows in suspensions.groupby("product", sort=True):
+        models = mode_models.get(product)
+        if not models:
+            continue
+        intervals = _future_intervals(rows)
+        combined = CompetingRisks(tuple(models.values()))
+        expected = _expected_in_intervals(intervals, combined)
+        increments = {
+            mode: model.log_survival(intervals.lower) - model.log_survival(intervals.upper)
+            for mode, model in models.items()
+        }
+        total_increment = np.sum(list(increments.values()), axis=0)
+        for mode, increment in increments.items():
+            share = np.divide(increment, total_increment, out=np.zeros_like(increment), where=total_increment > 0)
+            rows_out.append((product, mode, float(np.sum(expected * share))))
+    return pd.DataFrame(rows_out, columns=["product", "failure_mode", "expected_returns"])
+
+
+@dataclass(frozen=True)
+class CompetingRisks:
+    """Independent competing failure modes: log R(t) = sum over modes of log R_m(t)."""
+
+    modes: tuple[LifeDistribution, ...]
+
+    def log_survival(self, t: np.ndarray) -> np.ndarray:
+        return np.sum([mode.log_survival(t) for mode in self.modes], axis=0)
 
 
 def forecast_by_month(detail: pd.DataFrame) -> pd.DataFrame:

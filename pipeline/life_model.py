@@ -26,16 +26,27 @@ function of (theta, data) with analytic gradient and Hessian, so that later addi
 likelihood bounds, a fixed-shape fit, a lognormal alternative) can reuse it. `WeibullFitter`
 maximises it with scipy's trust-region "trust-exact" method and then checks the answer itself
 (gradient, positive-definite and well-conditioned information, plausible estimates) before
-returning a `WeibullFit`; failures raise typed `FitError` subclasses with hints.
+returning a `WeibullFit`; failures raise typed `FitError` subclasses with hints
+(`UnidentifiableError` when the likelihood is flat and only a fixed shape will do).
+`WeibullFitter.fit_fixed_shape` estimates the scale alone for a shape given from experience.
+
+Bounds
+------
+`WeibullFit` carries Wald bounds (log scale, delta method). `profile_bounds` and
+`likelihood_ratio_bounds` give likelihood-ratio (profile likelihood) bounds of shape, scale,
+B-lives and F(t): each quantity is made a coordinate by reparameterising theta, the other
+coordinate is maximised out by 1-D Newton, and the ends are found by bracketing and brentq.
 """
 
 from __future__ import annotations
 
 import logging
 import math
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import TYPE_CHECKING, Literal, overload
+from types import MappingProxyType
+from typing import TYPE_CHECKING, Literal, NamedTuple, overload
 
 import numpy as np
 import numpy.typing as npt
@@ -65,6 +76,20 @@ class InsufficientDataError(FitError):
 
 class FitNotConvergedError(FitError):
     """The fit did not reach a trustworthy maximum; the message says why and what to try."""
+
+
+class UnidentifiableError(FitNotConvergedError):
+    """The likelihood is (near-)flat: these data cannot identify shape and scale together.
+
+    Raised instead of the plain FitNotConvergedError when the end point's checks find a flat or
+    saddle likelihood, ill-conditioned information, a runaway scale far beyond the data, or a
+    shape running off to its plausible limits. The usual remedy is `WeibullFitter.fit_fixed_shape`
+    with a shape from engineering experience.
+    """
+
+
+class ProfileLikelihoodError(FitError):
+    """A profile likelihood could not be maximised reliably, so no likelihood-ratio bound is given."""
 
 
 # ---------------------------------------------------------------------------------------------
@@ -300,6 +325,34 @@ class LifeData:
         return float(ages.max()) if ages.size else 0.0
 
     @cached_property
+    def _distinct(self) -> LifeData:
+        """Same data with identical rows merged (counts summed) and zero-count rows dropped.
+
+        Same likelihood up to rounding, fewer rows: grouped warranty data repeat each month in
+        service once per build month. Used by the profile-likelihood bounds (many evaluations).
+        """
+
+        def merge(columns: list[FloatArray], counts: FloatArray) -> tuple[list[FloatArray], FloatArray]:
+            keep = counts > 0.0
+            if not np.any(keep):
+                return [c[:0] for c in columns], counts[:0]
+            rows, inverse = np.unique(np.column_stack([c[keep] for c in columns]), axis=0, return_inverse=True)
+            return list(rows.T), np.bincount(inverse.ravel(), weights=counts[keep], minlength=rows.shape[0])
+
+        (exact_ages,), exact_counts = merge([self.exact_ages], self.exact_counts)
+        (lower, upper), interval_counts = merge([self.interval_lower, self.interval_upper], self.interval_counts)
+        (suspension_ages,), suspension_counts = merge([self.suspension_ages], self.suspension_counts)
+        return LifeData(
+            exact_ages=exact_ages,
+            exact_counts=exact_counts,
+            interval_lower=lower,
+            interval_upper=upper,
+            interval_counts=interval_counts,
+            suspension_ages=suspension_ages,
+            suspension_counts=suspension_counts,
+        )
+
+    @cached_property
     def _prepared(self) -> _PreparedRows:
         """Positive-count rows with log ages, computed once per data set."""
         e = self.exact_counts > 0
@@ -498,6 +551,10 @@ class WeibullFit:
     `covariance` is the inverse observed information in theta = (log scale, log shape); all
     bounds are Wald bounds on a log scale (delta method) at `confidence_level`. `gradient_norm`
     is the Euclidean norm of the log-likelihood gradient in theta divided by the number of units.
+    With `shape_fixed` the shape was given, not estimated (`WeibullFitter.fit_fixed_shape`): the
+    variance of log shape is 0, the shape bounds are (shape, shape) and every other bound reflects
+    the uncertainty of the scale alone. Likelihood-ratio bounds: `profile_bounds`,
+    `likelihood_ratio_bounds`.
     """
 
     shape: float
@@ -510,8 +567,12 @@ class WeibullFit:
     n_returns: float
     n_suspensions: float
     confidence_level: float = 0.95
+    shape_fixed: bool = False
 
-    bound_method = "wald-log"
+    @property
+    def bound_method(self) -> str:
+        """How the bounds of this fit are computed: "wald-log", or "wald-log, shape fixed"."""
+        return "wald-log, shape fixed" if self.shape_fixed else "wald-log"
 
     # -- point estimates ----------------------------------------------------------------------
 
@@ -577,7 +638,9 @@ class WeibullFit:
         return float(np.exp(lo)), float(np.exp(hi))
 
     def shape_bounds(self) -> tuple[float, float]:
-        """Wald bounds of shape, symmetric in log shape."""
+        """Wald bounds of shape, symmetric in log shape; (shape, shape) when the shape was fixed."""
+        if self.shape_fixed:
+            return self.shape, self.shape
         return self._log_bounds(math.log(self.shape), (0.0, 1.0))
 
     def scale_bounds(self) -> tuple[float, float]:
@@ -618,7 +681,10 @@ class WeibullFit:
         return to_cdf(u_lo), to_cdf(u_hi)
 
     def summary(self) -> pd.DataFrame:
-        """Table of shape, scale, rate, B1, B10 and mean with Wald bounds (ages in data units)."""
+        """Table of shape, scale, rate, B1, B10 and mean with Wald bounds (ages in data units).
+
+        With a fixed shape, the shape row's bound_method is "fixed" and the others say "shape fixed".
+        """
         import pandas as pd
 
         rows = {
@@ -634,7 +700,9 @@ class WeibullFit:
                 "estimate": [v[0] for v in rows.values()],
                 "lower": [v[1][0] for v in rows.values()],
                 "upper": [v[1][1] for v in rows.values()],
-                "bound_method": [self.bound_method] * len(rows),
+                "bound_method": [
+                    "fixed" if self.shape_fixed and name == "shape" else self.bound_method for name in rows
+                ],
             },
             index=pd.Index(list(rows), name="quantity"),
         )
@@ -643,6 +711,13 @@ class WeibullFit:
 # ---------------------------------------------------------------------------------------------
 # Fitter
 # ---------------------------------------------------------------------------------------------
+
+
+class _Problem(NamedTuple):
+    """One failed check of an end point (internal); `unidentifiable` marks a flat likelihood."""
+
+    text: str
+    unidentifiable: bool = False
 
 
 @dataclass(frozen=True)
@@ -654,7 +729,7 @@ class _Attempt:
     gradient: FloatArray
     hessian: FloatArray
     iterations: int
-    problems: tuple[str, ...]
+    problems: tuple[_Problem, ...]
 
 
 class _Objective:
@@ -702,8 +777,11 @@ class WeibullFitter:
         together with a standard error of log scale above max_log_scale_se is treated as not
         identifiable from the data.
       shape_limits: estimates of shape outside these are reported as not converged.
-      raise_on_failure: raise FitNotConvergedError (default) or return the best attempt with
-        converged=False (its covariance, and so every bound, is NaN).
+      raise_on_failure: raise FitNotConvergedError (default; its subclass UnidentifiableError when
+        the likelihood is flat: ill-conditioned or singular information, runaway scale or shape) or
+        return the best attempt with converged=False (its covariance, and so every bound, is NaN).
+
+    `fit` estimates shape and scale; `fit_fixed_shape` estimates the scale with the shape given.
     """
 
     confidence_level: float = 0.95
@@ -738,12 +816,18 @@ class WeibullFitter:
             attempts.append(attempt)
             if not attempt.problems:
                 break
-            logger.debug("fit attempt from shape %.3g failed: %s", math.exp(log_shape), attempt.problems)
+            logger.debug(
+                "fit attempt from shape %.3g failed: %s",
+                math.exp(log_shape),
+                "; ".join(p.text for p in attempt.problems),
+            )
         best = next((a for a in attempts if not a.problems), None)
         if best is None:
             best = max(attempts, key=lambda a: a.value if np.isfinite(a.value) else -np.inf)
             message = self._failure_message(data, best)
             if self.raise_on_failure:
+                if any(p.unidentifiable for p in best.problems):
+                    raise UnidentifiableError(message)
                 raise FitNotConvergedError(message)
             logger.warning("%s", message)
         result = self._result(data, best)
@@ -756,13 +840,98 @@ class WeibullFitter:
         )
         return result
 
+    def fit_fixed_shape(self, data: LifeData, shape: float) -> WeibullFit:
+        """Fit the scale alone by maximum likelihood with the shape given (e.g. from engineering
+        experience), for thin data that cannot identify both; ages in the data's unit.
+
+        Log scale is found by 1-D Newton on the analytic derivatives; its Wald bound uses the 1-D
+        observed information. The fit has shape_fixed=True: variance of log shape 0, shape bounds
+        (shape, shape); B-life and F(t) bounds then follow from the scale alone.
+
+        min_returns does not apply (one return suffices once the shape is fixed), but zero returns
+        raise InsufficientDataError: with no returns the likelihood rises without limit as the scale
+        grows, so no maximum-likelihood scale exists (a bound on F(t) from zero returns is a
+        different calculation, left to the caller). No exposure, and no suspensions when
+        require_suspensions, raise as in `fit`. A shape outside shape_limits raises ValueError.
+        """
+        lo, hi = self.shape_limits
+        if not (math.isfinite(shape) and lo <= shape <= hi):
+            raise ValueError(f"fixed shape must be finite and within shape_limits [{lo:g}, {hi:g}], got {shape!r}")
+        if data.n_returns <= 0:
+            raise InsufficientDataError(
+                "0 returns: with the shape fixed the likelihood keeps rising as the scale grows, so no "
+                "maximum-likelihood scale exists; report no returns rather than a fitted scale"
+            )
+        self._check_data(data, min_returns=0.0)
+        log_shape = math.log(shape)
+        ((log_scale0, _),) = self._starts(data, (shape,))
+        units = data._prepared.total_units
+
+        def scale_direction(a: float) -> tuple[float, float, float]:
+            value, gradient, hessian = log_likelihood((a, log_shape), data, derivatives=2)
+            return value, float(gradient[0]), float(hessian[0, 0])
+
+        # z = shape * (log t - log scale): the natural step in log scale is 1 / shape
+        reach = 50.0 + 50.0 / shape
+        best = _maximise_1d(
+            scale_direction, log_scale0, log_scale0 - reach, log_scale0 + reach, max_step=2.0 / shape
+        )
+        value, d1, d2 = best.values[:3]
+        problems: list[_Problem] = []
+        if not (best.converged and math.isfinite(value) and math.isfinite(d1) and math.isfinite(d2)):
+            problems.append(_Problem("the 1-D search for the scale did not converge"))
+        elif abs(d1) / units > self.gradient_tolerance:
+            problems.append(_Problem(f"gradient per unit {abs(d1) / units:.2e} above {self.gradient_tolerance:.1e}"))
+        if math.isfinite(d2) and not d2 < 0.0:
+            problems.append(_Problem("information of log scale not positive (flat likelihood)", True))
+        elif best.at_bound:
+            problems.append(_Problem("the scale ran off to the edge of its search range", True))
+        converged = not problems
+        if not converged:
+            message = (
+                f"Weibull fit with shape fixed at {shape:g} not converged: "
+                + "; ".join(p.text for p in problems)
+                + ". Hints: check the exposure (suspensions) and the returns' ages"
+            )
+            if self.raise_on_failure:
+                raise (UnidentifiableError if any(p.unidentifiable for p in problems) else FitNotConvergedError)(
+                    message
+                )
+            logger.warning("%s", message)
+            covariance = np.full((2, 2), np.nan)
+        else:
+            covariance = np.array([[-1.0 / d2, 0.0], [0.0, 0.0]])
+        covariance.setflags(write=False)
+        result = WeibullFit(
+            shape=shape,
+            scale=math.exp(best.x),
+            log_likelihood=float(value),
+            covariance=covariance,
+            converged=converged,
+            iterations=best.iterations,
+            gradient_norm=abs(d1) / units,
+            n_returns=data.n_returns,
+            n_suspensions=data.n_suspensions,
+            confidence_level=self.confidence_level,
+            shape_fixed=True,
+        )
+        logger.debug(
+            "Weibull fit with fixed shape %.6g: scale %.6g loglik %.6f in %d iterations",
+            shape,
+            result.scale,
+            result.log_likelihood,
+            result.iterations,
+        )
+        return result
+
     # -- steps --------------------------------------------------------------------------------
 
-    def _check_data(self, data: LifeData) -> None:
+    def _check_data(self, data: LifeData, min_returns: float | None = None) -> None:
         n_returns = data.n_returns
-        if n_returns < self.min_returns or n_returns <= 0:
+        needed = self.min_returns if min_returns is None else min_returns
+        if n_returns < needed or n_returns <= 0:
             raise InsufficientDataError(
-                f"{n_returns:g} returns, fewer than the {self.min_returns:g} needed for a Weibull fit; "
+                f"{n_returns:g} returns, fewer than the {needed:g} needed for a Weibull fit; "
                 "pool cohorts or fix the shape from engineering experience"
             )
         if data.max_age <= 0.0:
@@ -773,9 +942,9 @@ class WeibullFitter:
                 "supply the surviving units, or set require_suspensions=False for complete life-test data"
             )
 
-    def _starts(self, data: LifeData) -> list[tuple[float, float]]:
-        """Starting points: for each shape, the scale maximising the likelihood with interval
-        returns at their midpoints (for shape 1 that is the exponential MLE exposure / returns)."""
+    def _starts(self, data: LifeData, shapes: tuple[float, ...] = _START_SHAPES) -> list[tuple[float, float]]:
+        """Starting points (log scale, log shape): for each shape, the scale maximising the likelihood
+        with interval returns at their midpoints (for shape 1 the exponential MLE exposure / returns)."""
         ages = np.concatenate(
             [data.exact_ages, 0.5 * (data.interval_lower + data.interval_upper), data.suspension_ages]
         )
@@ -784,7 +953,7 @@ class WeibullFitter:
         log_ages, counts = np.log(ages[keep]), counts[keep]
         log_returns = math.log(data.n_returns)
         starts = []
-        for shape in self._START_SHAPES:
+        for shape in shapes:
             # log scale = (log sum c t^k - log n) / k, via logsumexp (no overflow)
             log_exposure = float(special.logsumexp(shape * log_ages, b=counts))
             starts.append(((log_exposure - log_returns) / shape, math.log(shape)))
@@ -811,52 +980,60 @@ class WeibullFitter:
         value, gradient, hessian = log_likelihood(theta, data, derivatives=2)
         problems = self._check_end_point(data, theta, value, gradient, hessian)
         if not result.success and problems:
-            problems = (f"optimiser: {str(result.message).rstrip('.')}",) + problems
+            problems = (_Problem(f"optimiser: {str(result.message).rstrip('.')}"),) + problems
         return _Attempt(theta, value, gradient, hessian, int(result.nit), problems)
 
     def _check_end_point(
         self, data: LifeData, theta: FloatArray, value: float, gradient: FloatArray, hessian: FloatArray
-    ) -> tuple[str, ...]:
+    ) -> tuple[_Problem, ...]:
         if not (np.all(np.isfinite(theta)) and np.isfinite(value)):
-            return ("estimates or log-likelihood not finite",)
+            return (_Problem("estimates or log-likelihood not finite"),)
         if not (np.all(np.isfinite(gradient)) and np.all(np.isfinite(hessian))):
-            return ("gradient or Hessian not finite at the estimate",)
+            return (_Problem("gradient or Hessian not finite at the estimate"),)
         problems = []
         units = data._prepared.total_units
         grad_norm = float(np.linalg.norm(gradient)) / units
         if grad_norm > self.gradient_tolerance:
-            problems.append(f"gradient norm per unit {grad_norm:.2e} above {self.gradient_tolerance:.1e}")
+            problems.append(_Problem(f"gradient norm per unit {grad_norm:.2e} above {self.gradient_tolerance:.1e}"))
         information = -hessian
         diag = np.diag(information)
+        flat = _Problem("observed information not positive definite (flat or saddle likelihood)", True)
         if np.any(diag <= 0.0):
-            problems.append("observed information not positive definite (flat or saddle likelihood)")
+            problems.append(flat)
             return tuple(problems)
         scaled = information / np.sqrt(np.outer(diag, diag))
         eig = np.linalg.eigvalsh(scaled)
         if eig[0] <= 0.0:
-            problems.append("observed information not positive definite (flat or saddle likelihood)")
+            problems.append(flat)
             return tuple(problems)
         condition = eig[-1] / eig[0]
         if condition > self.max_condition:
             problems.append(
-                f"observed information ill-conditioned (condition {condition:.2e}): shape and scale "
-                "cannot be told apart from these data"
+                _Problem(
+                    f"observed information ill-conditioned (condition {condition:.2e}): shape and scale "
+                    "cannot be told apart from these data",
+                    True,
+                )
             )
             return tuple(problems)
         covariance = np.linalg.inv(information)
         decrement = float(gradient @ covariance @ gradient)
         if decrement > 1e-8:
-            problems.append(f"not at a maximum (Newton decrement {decrement:.2e} log-likelihood units)")
+            problems.append(_Problem(f"not at a maximum (Newton decrement {decrement:.2e} log-likelihood units)"))
         shape, scale = math.exp(theta[1]), math.exp(theta[0])
         lo, hi = self.shape_limits
         if not lo <= shape <= hi:
-            problems.append(f"shape {shape:.3g} outside the plausible range [{lo:g}, {hi:g}]")
+            # the likelihood keeps rising towards a shape limit: flat in the direction that matters
+            problems.append(_Problem(f"shape {shape:.3g} outside the plausible range [{lo:g}, {hi:g}]", True))
         se_log_scale = math.sqrt(covariance[0, 0])
         if scale > self.scale_ratio_limit * data.max_age and se_log_scale > self.max_log_scale_se:
             problems.append(
-                f"scale {scale:.3g} is over {self.scale_ratio_limit:g} x the largest age "
-                f"{data.max_age:g} with standard error of log scale {se_log_scale:.2g}: "
-                "the data sit deep in the lower tail and the scale is near-unidentifiable"
+                _Problem(
+                    f"scale {scale:.3g} is over {self.scale_ratio_limit:g} x the largest age "
+                    f"{data.max_age:g} with standard error of log scale {se_log_scale:.2g}: "
+                    "the data sit deep in the lower tail and the scale is near-unidentifiable",
+                    True,
+                )
             )
         return tuple(problems)
 
@@ -874,7 +1051,8 @@ class WeibullFitter:
         if np.unique(return_times, axis=0).shape[0] == 1:
             hints.append("returns all in one month (or at one age): the shape is not identifiable")
         hints.append("pool cohorts to widen the range of ages")
-        return "Weibull fit not converged: " + "; ".join(attempt.problems) + ". Hints: " + "; ".join(hints)
+        problems = "; ".join(p.text for p in attempt.problems)
+        return "Weibull fit not converged: " + problems + ". Hints: " + "; ".join(hints)
 
     def _result(self, data: LifeData, attempt: _Attempt) -> WeibullFit:
         converged = not attempt.problems
@@ -896,3 +1074,520 @@ class WeibullFitter:
             n_suspensions=data.n_suspensions,
             confidence_level=self.confidence_level,
         )
+
+
+# ---------------------------------------------------------------------------------------------
+# One-dimensional maximisation (fixed-shape fit, profile likelihood)
+# ---------------------------------------------------------------------------------------------
+
+# A 1-D maximum is accepted once the Newton decrement d1^2 / -d2 (twice the log-likelihood still
+# to gain) is below this; the profile value is then exact to ~1e-11 log-likelihood units.
+_DECREMENT_TOL = 1e-10
+_MAX_NEWTON_STEPS = 60
+
+
+class _Max1D(NamedTuple):
+    """Result of `_maximise_1d` (internal): the maximiser, fun's tuple there, and how it ended."""
+
+    x: float
+    values: tuple[float, ...]
+    iterations: int
+    converged: bool
+    at_bound: bool
+
+
+def _maximise_1d(
+    fun: Callable[[float], tuple[float, ...]],
+    x0: float,
+    lower: float,
+    upper: float,
+    *,
+    max_step: float = 2.0,
+) -> _Max1D:
+    """Maximise fun(x)[0] over lower <= x <= upper, where fun returns (value, d1, d2, ...).
+
+    Damped Newton from x0 (steps capped at max_step, halved until the value does not fall); a
+    maximum on a bound with the slope pointing out of the range is accepted (at_bound). If Newton
+    fails (non-finite values, no ascent, no convergence) a bounded scalar search is the fallback.
+    """
+    x = min(max(x0, lower), upper)
+    current = fun(x)
+    for iteration in range(_MAX_NEWTON_STEPS):
+        value, d1, d2 = current[:3]
+        if not (math.isfinite(value) and math.isfinite(d1) and math.isfinite(d2)):
+            break
+        if d2 < 0.0:
+            step = -d1 / d2
+            if d1 * step < _DECREMENT_TOL:
+                return _Max1D(x, current, iteration, True, False)
+        elif d1 != 0.0:
+            step = math.copysign(max_step, d1)  # not locally concave: move uphill
+        else:
+            break
+        step = min(max(step, -max_step), max_step)
+        x_new = min(max(x + step, lower), upper)
+        if x_new == x:  # on a bound and pushed outwards (or a step below the spacing of floats)
+            return _Max1D(x, current, iteration, True, x in (lower, upper))
+        floor = value - 1e-12 * (1.0 + abs(value))  # rounding of the summed log-likelihood
+        for _ in range(50):
+            candidate = fun(x_new)
+            if math.isfinite(candidate[0]) and candidate[0] >= floor:
+                break
+            x_new = x + 0.5 * (x_new - x)
+        else:
+            break
+        x, current = x_new, candidate
+    # fallback: bounded Brent search on the values alone, then check the slope at its answer
+    logger.debug("1-D Newton failed from %.6g in [%.6g, %.6g]; bounded search", x0, lower, upper)
+
+    def negative(v: float) -> float:
+        value = fun(v)[0]
+        return -value if math.isfinite(value) else math.inf
+
+    found = optimize.minimize_scalar(
+        negative, bounds=(lower, upper), method="bounded", options={"xatol": 1e-12 * (1.0 + abs(x0)), "maxiter": 500}
+    )
+    x = float(found.x)
+    current = fun(x)
+    value, d1, d2 = current[:3]
+    at_bound = min(x - lower, upper - x) < 1e-6 * (upper - lower)
+    ok = bool(found.success) and math.isfinite(value) and (at_bound or (d2 < 0.0 and d1 * d1 / -d2 < 1e-6))
+    return _Max1D(x, current, _MAX_NEWTON_STEPS + int(found.nfev), ok, at_bound)
+
+
+# ---------------------------------------------------------------------------------------------
+# Likelihood-ratio (profile likelihood) bounds
+# ---------------------------------------------------------------------------------------------
+
+Quantity = Literal["shape", "scale", "b_life", "cdf"]
+
+# Shapes the profile search considers (ends beyond them count as not bounded by the data).
+_PROFILE_SHAPE_LIMITS = (1e-3, 1e3)
+# How far from the estimate an end is sought, in log units of shape, scale or B-life, and in
+# u = log(-log R(t)) for F(t) (a factor of 1e6 either way); an end not reached is unbounded.
+_PROFILE_LOG_RANGE = math.log(1e6)
+# Largest accepted rise of a profile above the fit's maximum (log-likelihood units), and largest
+# accepted miss of the deviance at a returned end (the root finder aims at ~1e-9).
+_ABOVE_MAXIMUM_TOL = 1e-6
+_END_DEVIANCE_TOL = 1e-5
+
+
+class _Profile:
+    """Profile log-likelihood of one quantity psi of a fit (internal).
+
+    psi is log shape, log scale, log t_p (B-life) or u = log(-log R(t)) = shape*(log t - log scale).
+    The nuisance s is log scale when psi is log shape; otherwise s is log shape and
+        theta = (log scale, log shape) = (c - d * exp(-s), s)
+    with c = psi, d = 0 (scale); c = psi, d = log(-log1p(-p)) (B-life, since log scale =
+    log t_p - log(-log(1-p)) / shape); c = log t, d = psi (F(t), log scale = log t - u / shape).
+    The derivatives in s follow from those in theta by the chain rule. For a fixed-shape fit there
+    is no nuisance: only psi = log scale is profiled (the 1-D likelihood at the fixed shape).
+    """
+
+    def __init__(
+        self,
+        fit: WeibullFit,
+        data: LifeData,
+        quantity: Quantity,
+        log_lik_max: float,
+        hessian_at_fit: FloatArray,
+        *,
+        p: float | None = None,
+        t: float | None = None,
+    ) -> None:
+        self.data = data
+        self.quantity = quantity
+        self.fixed_shape = fit.shape_fixed
+        self.log_lik_max = log_lik_max
+        a_hat, b_hat = (float(v) for v in fit.theta)
+        k = fit.shape
+        self.log_shape_fixed = b_hat
+        self.c, self.d = 0.0, 0.0
+        self.dc, self.dd = 1.0, 0.0  # d(c, d) / d psi
+        if quantity == "shape":
+            psi_hat, s_hat, gradient = b_hat, a_hat, (0.0, 1.0)
+        elif quantity == "scale":
+            psi_hat, s_hat, gradient = a_hat, b_hat, (1.0, 0.0)
+        elif quantity == "b_life":
+            assert p is not None
+            self.d = float(np.log(-np.log1p(-p)))
+            psi_hat, s_hat, gradient = a_hat + self.d / k, b_hat, (1.0, -self.d / k)
+        else:
+            assert t is not None
+            self.c, self.dc, self.dd = math.log(t), 0.0, 1.0
+            psi_hat = k * (self.c - a_hat)
+            s_hat, gradient = b_hat, (-k, psi_hat)
+        self.psi_hat = psi_hat
+        g = np.asarray(gradient)
+        self.se = math.sqrt(max(float(g @ fit.covariance @ g), 0.0))
+        # nuisance bounds: log shape within the profile limits; log scale effectively free
+        if quantity == "shape":
+            self.s_bounds = (s_hat - 1e5, s_hat + 1e5)
+        else:
+            self.s_bounds = (math.log(_PROFILE_SHAPE_LIMITS[0]), math.log(_PROFILE_SHAPE_LIMITS[1]))
+        # solved points (psi, s*, ds*/dpsi) for warm starts; slope at the fit by the implicit
+        # function theorem, ds*/dpsi = -l_{s psi} / l_{ss} (the gradient is 0 at the maximum)
+        _, d2, cross = self._derivatives_from(np.zeros(2), hessian_at_fit, psi_hat, s_hat)
+        slope = -cross / d2 if d2 < 0.0 else 0.0
+        self._solved: list[tuple[float, float, float]] = [(psi_hat, s_hat, slope)]
+        self._values: dict[float, float] = {psi_hat: log_lik_max}
+        self.evaluations = 0
+
+    # -- theta and derivatives along the nuisance -----------------------------------------------
+
+    def theta(self, psi: float, s: float) -> tuple[float, float]:
+        if self.quantity == "shape":
+            return s, psi
+        c = psi if self.dc else self.c
+        d = psi if self.dd else self.d
+        return c - d * math.exp(-s), s
+
+    def _derivatives_from(
+        self, gradient: FloatArray, hessian: FloatArray, psi: float, s: float
+    ) -> tuple[float, float, float]:
+        """(dl/ds, d2l/ds2, d2l/ds dpsi) from the theta-gradient and Hessian (chain rule)."""
+        if self.quantity == "shape":
+            return float(gradient[0]), float(hessian[0, 0]), float(hessian[0, 1])
+        g0, g1 = float(gradient[0]), float(gradient[1])
+        h00, h01, h11 = float(hessian[0, 0]), float(hessian[0, 1]), float(hessian[1, 1])
+        e = math.exp(-s)
+        d = psi if self.dd else self.d
+        m = d * e  # d(log scale)/ds; d2(log scale)/ds2 = -m
+        d1 = g0 * m + g1
+        d2 = h00 * m * m + 2.0 * h01 * m + h11 - g0 * m
+        d_log_scale_d_psi = self.dc - self.dd * e
+        cross = (h00 * m + h01) * d_log_scale_d_psi + g0 * self.dd * e
+        return d1, d2, cross
+
+    def _along_nuisance(self, psi: float, s: float) -> tuple[float, float, float, float]:
+        self.evaluations += 1
+        value, gradient, hessian = log_likelihood(self.theta(psi, s), self.data, derivatives=2)
+        return (value, *self._derivatives_from(gradient, hessian, psi, s))
+
+    # -- the profile ----------------------------------------------------------------------------
+
+    def __call__(self, psi: float) -> float:
+        """Maximum of the log-likelihood over the nuisance with the quantity held at psi."""
+        cached = self._values.get(psi)
+        if cached is not None:
+            return cached
+        if self.fixed_shape:
+            self.evaluations += 1
+            value = float(log_likelihood((psi, self.log_shape_fixed), self.data))
+        else:
+            psi_n, s_n, slope_n = min(self._solved, key=lambda r: abs(r[0] - psi))
+            s0 = s_n + slope_n * (psi - psi_n)
+            max_step = 2.0 / math.exp(psi) if self.quantity == "shape" else 2.0
+            best = _maximise_1d(lambda s: self._along_nuisance(psi, s), s0, *self.s_bounds, max_step=max_step)
+            value, _, d2, cross = best.values
+            if not (best.converged and math.isfinite(value)):
+                raise ProfileLikelihoodError(
+                    f"profile likelihood of {self.quantity} could not be maximised over the nuisance "
+                    f"parameter at {self._describe(psi)}; the likelihood-ratio bound is not available"
+                )
+            if best.at_bound:
+                logger.debug("profile of %s at %s: nuisance shape at its limit", self.quantity, self._describe(psi))
+            self._solved.append((psi, best.x, -cross / d2 if d2 < 0.0 and not best.at_bound else 0.0))
+        if value > self.log_lik_max + _ABOVE_MAXIMUM_TOL * (1.0 + 1e-6 * abs(self.log_lik_max)):
+            raise ProfileLikelihoodError(
+                f"profile likelihood of {self.quantity} at {self._describe(psi)} is {value:.9g}, above the fit's "
+                f"maximum {self.log_lik_max:.9g}: the fit is not at the global maximum; refit"
+            )
+        self._values[psi] = value
+        return value
+
+    def _describe(self, psi: float) -> str:
+        names = {"shape": "log shape", "scale": "log scale", "b_life": "log B-life", "cdf": "u = log(-log R)"}
+        return f"{names[self.quantity]} {psi:.6g}"
+
+    def search_limits(self) -> tuple[float, float]:
+        """Range of psi searched for the ends (beyond it an end counts as unbounded)."""
+        lo, hi = self.psi_hat - _PROFILE_LOG_RANGE, self.psi_hat + _PROFILE_LOG_RANGE
+        if self.quantity == "shape":
+            lo = max(lo, math.log(_PROFILE_SHAPE_LIMITS[0]))
+            hi = min(hi, math.log(_PROFILE_SHAPE_LIMITS[1]))
+        return lo, hi
+
+
+class _Ends(NamedTuple):
+    """Ends of a likelihood-ratio interval in psi and whether each was reached (internal)."""
+
+    lower: float
+    upper: float
+    lower_reached: bool
+    upper_reached: bool
+
+
+def _likelihood_ratio_interval(profile: _Profile, confidence_level: float) -> _Ends:
+    """{psi : 2 (loglik_max - profile(psi)) <= chi2_1(level)}, ends by bracketing + brentq.
+
+    brentq runs on the signed root sqrt(2 (loglik_max - profile)) - sqrt(chi2), which has the same
+    root as profile - (loglik_max - chi2 / 2) but is nearly linear in psi, so it converges in a few
+    steps. Brackets start at the Wald end and grow until the profile drops below the threshold, or
+    the search limit is reached (that end is then unbounded: the likelihood is too flat there).
+    """
+    chi2 = float(stats.chi2.ppf(confidence_level, 1))
+    root_chi2 = math.sqrt(chi2)
+    psi_hat = profile.psi_hat
+
+    def signed_root_minus_target(psi: float) -> float:
+        deviance = 2.0 * (profile.log_lik_max - profile(psi))
+        return math.sqrt(max(deviance, 0.0)) - root_chi2
+
+    ends: dict[int, tuple[float, bool]] = {}
+    for direction, limit in zip((-1, 1), profile.search_limits()):
+        room = abs(limit - psi_hat)
+        wald = root_chi2 * profile.se
+        distance = min(wald if math.isfinite(wald) and wald > 1e-8 else 0.5, room)
+        inside = psi_hat
+        reached = False
+        x = psi_hat
+        while distance > 0.0:
+            x = psi_hat + direction * distance
+            f = signed_root_minus_target(x)
+            if f >= 0.0:
+                reached = True
+                break
+            if distance >= room:
+                break
+            inside = x
+            # the signed root grows about linearly in psi: aim a little beyond its predicted root
+            root = f + root_chi2
+            factor = 1.1 * root_chi2 / root if root > 0.0 else 4.0
+            distance = min(distance * min(max(factor, 1.5), 4.0), room)
+        if not reached:
+            ends[direction] = (limit, False)
+            logger.debug("profile of %s: %s end not reached within the search range", profile.quantity,
+                         "lower" if direction < 0 else "upper")
+            continue
+        width = abs(x - inside)
+        root_psi = float(
+            optimize.brentq(signed_root_minus_target, min(inside, x), max(inside, x), xtol=1e-10 * width, maxiter=200)
+        )
+        deviance = 2.0 * (profile.log_lik_max - profile(root_psi))
+        if not abs(deviance - chi2) <= _END_DEVIANCE_TOL:
+            raise ProfileLikelihoodError(
+                f"likelihood-ratio end for {profile.quantity} not found: deviance {deviance:.6g} at "
+                f"{profile._describe(root_psi)} instead of {chi2:.6g} (profile not continuous there)"
+            )
+        ends[direction] = (root_psi, True)
+    return _Ends(ends[-1][0], ends[1][0], ends[-1][1], ends[1][1])
+
+
+def _check_profile_inputs(
+    fit: WeibullFit, data: LifeData, confidence_level: float | None
+) -> tuple[float, LifeData]:
+    """Validate fit, data and level; return the level and the data with identical rows merged."""
+    level = fit.confidence_level if confidence_level is None else float(confidence_level)
+    if not 0.0 < level < 1.0:
+        raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level!r}")
+    if not fit.converged:
+        raise FitNotConvergedError("likelihood-ratio bounds need a converged fit; this fit did not converge")
+    value = float(log_likelihood(fit.theta, data))
+    if not abs(value - fit.log_likelihood) <= 1e-6 + 1e-9 * abs(fit.log_likelihood):
+        raise ValueError(
+            f"the data give log-likelihood {value:.9g} at the fit, not the fit's {fit.log_likelihood:.9g}: "
+            "pass the data the fit was made from"
+        )
+    return level, data._distinct
+
+
+def _check_quantity(quantity: str, p: float | None, t: float | None) -> None:
+    if quantity not in ("shape", "scale", "b_life", "cdf"):
+        raise ValueError(f"quantity must be 'shape', 'scale', 'b_life' or 'cdf', got {quantity!r}")
+    if quantity == "b_life":
+        if p is None:
+            raise ValueError("quantity 'b_life' needs p, the fraction failed (e.g. 0.10 for B10)")
+        _check_fraction(p)
+    if quantity == "cdf" and not (t is not None and math.isfinite(t) and t > 0.0):
+        raise ValueError(f"quantity 'cdf' needs an age t > 0, got {t!r}")
+
+
+def _to_quantity(
+    quantity: Quantity, ends: _Ends, fit: WeibullFit, p: float | None, t: float | None
+) -> tuple[tuple[float, float], tuple[bool, bool]]:
+    """Map psi ends to the quantity's units, with whether each was reached; unreached ends become
+    0 / +inf (F: 0 / 1).
+
+    For a fixed shape psi is log scale throughout, and the B-life (increasing in the scale) and
+    F(t) (decreasing in the scale) follow monotonically from the scale ends.
+    """
+    lo_psi, hi_psi = ends.lower, ends.upper
+    lo_ok, hi_ok = ends.lower_reached, ends.upper_reached
+    if fit.shape_fixed and quantity == "b_life":
+        assert p is not None
+        shift = float(np.log(-np.log1p(-p))) / fit.shape  # log t_p = log scale + log(-log(1-p)) / shape
+        lo_psi, hi_psi = lo_psi + shift, hi_psi + shift
+    elif fit.shape_fixed and quantity == "cdf":
+        assert t is not None
+        # u = shape * (log t - log scale): decreasing in log scale, so the ends swap
+        lo_psi, hi_psi = fit.shape * (math.log(t) - hi_psi), fit.shape * (math.log(t) - lo_psi)
+        lo_ok, hi_ok = hi_ok, lo_ok
+    if quantity == "cdf":
+        # F = 1 - exp(-exp(u)), computed as -expm1(-exp(u))
+        lower = -math.expm1(-math.exp(min(lo_psi, _Z_MAX))) if lo_ok else 0.0
+        upper = -math.expm1(-math.exp(min(hi_psi, _Z_MAX))) if hi_ok else 1.0
+        return (lower, upper), (lo_ok, hi_ok)
+    lower = math.exp(lo_psi) if lo_ok else 0.0
+    upper = math.exp(hi_psi) if hi_ok else math.inf
+    return (lower, upper), (lo_ok, hi_ok)
+
+
+def _profile_ends(
+    fit: WeibullFit,
+    data: LifeData,
+    quantity: Quantity,
+    level: float,
+    log_lik_max: float,
+    hessian_at_fit: FloatArray,
+    p: float | None,
+    t: float | None,
+) -> tuple[tuple[float, float], tuple[bool, bool]]:
+    """Bounds of one quantity in its units and whether each end was reached (internal)."""
+    if fit.shape_fixed and quantity == "shape":
+        return (fit.shape, fit.shape), (True, True)
+    profiled = "scale" if fit.shape_fixed else quantity
+    profile = _Profile(fit, data, profiled, log_lik_max, hessian_at_fit, p=p, t=t)
+    ends = _likelihood_ratio_interval(profile, level)
+    logger.debug("likelihood-ratio bounds of %s: %d log-likelihood evaluations", quantity, profile.evaluations)
+    return _to_quantity(quantity, ends, fit, p, t)
+
+
+def profile_bounds(
+    fit: WeibullFit,
+    data: LifeData,
+    quantity: Quantity,
+    *,
+    p: float | None = None,
+    t: float | None = None,
+    confidence_level: float | None = None,
+) -> tuple[float, float]:
+    """Likelihood-ratio (profile likelihood) bounds (lower, upper) of one quantity of a fit.
+
+    The interval is {psi : 2 (loglik_max - profile loglik(psi)) <= chi2_1 quantile(level)}, level
+    defaulting to fit.confidence_level; `data` must be the data the fit was made from.
+    quantity: "shape"; "scale" (age units); "b_life" with p, the fraction failed (B10: p = 0.10;
+    age units); "cdf" with an age t > 0 (fraction failed F(t)). Each profile reparameterises theta
+    so the quantity is a coordinate and maximises over the other (log shape, or log scale for the
+    shape) by 1-D Newton. An end the data do not bound within a factor 1e6 of the estimate (shape:
+    within [0.001, 1000]) is returned as 0 or +inf (for F: 0 or 1); `likelihood_ratio_bounds`
+    flags such ends. For a fixed-shape fit the shape bounds are (shape, shape) and the rest follow
+    from the 1-D likelihood-ratio interval of the scale.
+
+    Raises FitNotConvergedError for a fit that did not converge, ProfileLikelihoodError when a
+    profile cannot be maximised (or finds a higher maximum than the fit), ValueError for bad input.
+    """
+    _check_quantity(quantity, p, t)
+    level, data = _check_profile_inputs(fit, data, confidence_level)
+    log_lik_max, _, hessian = log_likelihood(fit.theta, data, derivatives=2)
+    bounds, _ = _profile_ends(fit, data, quantity, level, log_lik_max, hessian, p, t)
+    return bounds
+
+
+def profile_log_likelihood(
+    fit: WeibullFit,
+    data: LifeData,
+    quantity: Quantity,
+    value: float,
+    *,
+    p: float | None = None,
+    t: float | None = None,
+) -> float:
+    """Profile log-likelihood: the largest log-likelihood of `data` with the quantity held at `value`.
+
+    Same quantities and units as `profile_bounds` (shape; scale, B-life t_p in age units; F(t) as
+    a fraction in (0, 1)). For a fixed-shape fit the shape stays at its fixed value, so the result
+    is the 1-D likelihood at the scale implied by `value` ("shape" is then not allowed).
+    """
+    _check_quantity(quantity, p, t)
+    _, data = _check_profile_inputs(fit, data, None)
+    if not (math.isfinite(value) and value > 0.0 and (quantity != "cdf" or value < 1.0)):
+        raise ValueError(f"value must be positive (F: in (0, 1)), got {value!r}")
+    if quantity == "cdf":
+        psi = math.log(-math.log1p(-value))  # u = log(-log R) = log(-log(1 - F))
+    else:
+        psi = math.log(value)
+    if fit.shape_fixed:
+        if quantity == "shape":
+            raise ValueError("the shape of this fit is fixed; profile the scale, a B-life or F(t) instead")
+        if quantity == "b_life":
+            assert p is not None
+            psi -= float(np.log(-np.log1p(-p))) / fit.shape
+        elif quantity == "cdf":
+            assert t is not None
+            psi = math.log(t) - psi / fit.shape
+        return float(log_likelihood((psi, math.log(fit.shape)), data))
+    log_lik_max, _, hessian = log_likelihood(fit.theta, data, derivatives=2)
+    profile = _Profile(fit, data, quantity, log_lik_max, hessian, p=p, t=t)
+    return profile(psi)
+
+
+@dataclass(frozen=True, eq=False)
+class LikelihoodRatioBounds:
+    """Likelihood-ratio (profile likelihood) bounds of one fit at `confidence_level`.
+
+    shape and scale: (lower, upper), scale in age units; b_life: {p: (lower, upper)} ages by which a
+    fraction p has failed; cdf: {t: (lower, upper)} fractions failed by age t. An end the data do not
+    bound (flat likelihood) is 0 or +inf (F: 0 or 1) and is named in `open_ends` (e.g. "B10 upper");
+    `is_bounded` is False then. With shape_fixed the shape bounds are (shape, shape).
+    """
+
+    shape: tuple[float, float]
+    scale: tuple[float, float]
+    b_life: Mapping[float, tuple[float, float]]
+    cdf: Mapping[float, tuple[float, float]]
+    confidence_level: float
+    shape_fixed: bool = False
+    open_ends: tuple[str, ...] = ()
+    bound_method: str = "likelihood-ratio"
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "b_life", MappingProxyType(dict(self.b_life)))
+        object.__setattr__(self, "cdf", MappingProxyType(dict(self.cdf)))
+
+    @property
+    def is_bounded(self) -> bool:
+        """True when the data bound every end (no end is 0 / +inf for want of information)."""
+        return not self.open_ends
+
+
+def likelihood_ratio_bounds(
+    fit: WeibullFit,
+    data: LifeData,
+    *,
+    b_life_fractions: Sequence[float] = (0.01, 0.10),
+    cdf_ages: Sequence[float] = (),
+    confidence_level: float | None = None,
+) -> LikelihoodRatioBounds:
+    """Likelihood-ratio bounds of shape, scale, B-lives (fractions p) and F(t) (ages t) of a fit.
+
+    See `profile_bounds` for the method, units and errors; `data` must be the fit's data.
+    """
+    for p in b_life_fractions:
+        _check_quantity("b_life", p, None)
+    for t in cdf_ages:
+        _check_quantity("cdf", None, t)
+    level, data = _check_profile_inputs(fit, data, confidence_level)
+    log_lik_max, _, hessian = log_likelihood(fit.theta, data, derivatives=2)
+    open_ends: list[str] = []
+
+    def bounds(quantity: Quantity, name: str, p: float | None = None, t: float | None = None) -> tuple[float, float]:
+        values, reached = _profile_ends(fit, data, quantity, level, log_lik_max, hessian, p, t)
+        open_ends.extend(f"{name} {side}" for side, ok in zip(("lower", "upper"), reached) if not ok)
+        return values
+
+    shape = bounds("shape", "shape")
+    scale = bounds("scale", "scale")
+    b_life = {float(p): bounds("b_life", f"B{100 * p:g}", p=float(p)) for p in b_life_fractions}
+    cdf = {float(t): bounds("cdf", f"F({t:g})", t=float(t)) for t in cdf_ages}
+    if open_ends:
+        logger.info("likelihood-ratio bounds not bounded by the data: %s", ", ".join(open_ends))
+    return LikelihoodRatioBounds(
+        shape=shape,
+        scale=scale,
+        b_life=b_life,
+        cdf=cdf,
+        confidence_level=level,
+        shape_fixed=fit.shape_fixed,
+        open_ends=tuple(open_ends),
+    )

@@ -47,6 +47,7 @@ def render_report(
     *,
     manifest: Mapping[str, Any],
     life_model: pd.DataFrame,
+    life_model_by_mode: pd.DataFrame,
     reserve_totals: pd.DataFrame,
     reconciliation: pd.DataFrame,
     quarantine: pd.DataFrame,
@@ -90,14 +91,38 @@ def render_report(
     level = life_model["confidence_level"].dropna()
     level_text = f"{level.iloc[0]:.0%}" if len(level) else "95%"
     fitted = life_model.assign(
-        shape=life_model.apply(lambda r: _bounded(r["shape"], r["shape_lower"], r["shape_upper"]), axis=1),
-        scale_months=life_model.apply(lambda r: _bounded(r["scale"], r["scale_lower"], r["scale_upper"]), axis=1),
-        b10_months=life_model.apply(lambda r: _bounded(r["b10"], r["b10_lower"], r["b10_upper"]), axis=1),
+        shape=life_model.apply(lambda r: _bounded(r["shape"], r["shape_lr_lower"], r["shape_lr_upper"]), axis=1),
+        scale_months=life_model.apply(
+            lambda r: _bounded(r["scale"], r["scale_lr_lower"], r["scale_lr_upper"]), axis=1
+        ),
+        b10_months=life_model.apply(lambda r: _bounded(r["b10"], r["b10_lr_lower"], r["b10_lr_upper"]), axis=1),
+        b10_wald=life_model.apply(lambda r: _bounded(r["b10"], r["b10_lower"], r["b10_upper"]), axis=1),
+        failed_by_warranty_end=life_model.apply(
+            lambda r: _bounded_percent(
+                r["fraction_failed_at_warranty_end"],
+                r["fraction_failed_at_warranty_end_lr_lower"],
+                r["fraction_failed_at_warranty_end_lr_upper"],
+            ),
+            axis=1,
+        ),
         returns=life_model["returns"].map(lambda v: f"{v:,.0f}"),
-        suspensions=life_model["suspensions"].map(lambda v: f"{v:,.0f}"),
-    )[["product", "status", "shape", "scale_months", "b10_months", "returns", "suspensions"]]
+        fit_p_value=life_model["gof_p_value"].map(lambda v: "n/a" if v != v else f"{v:.2g}"),
+        aic_weibull_minus_lognormal=life_model["delta_aic_weibull_minus_lognormal"].map(
+            lambda v: "n/a" if v != v else f"{v:.1f}"
+        ),
+    )[
+        [
+            "product", "status", "shape", "scale_months", "b10_months", "b10_wald", "failed_by_warranty_end",
+            "returns", "fit_p_value", "aic_weibull_minus_lognormal",
+        ]
+    ]
     lines += [
-        f"Estimates with {level_text} Wald bounds (log scale) in brackets. Scale and B10 in months in service.",
+        f"Estimates with {level_text} likelihood-ratio bounds in brackets (b10_wald: the Wald bounds, for"
+        " comparison; when they differ much, trust the likelihood-ratio ones). Scale and B10 in months in"
+        " service; failed_by_warranty_end is F at the product's longest warranty. fit_p_value: chi-square test"
+        " of observed against expected returns by month in service (small: the Weibull misses something; with"
+        " hundreds of thousands of units even small departures give small p-values, so read it with the"
+        " probability plot). aic_weibull_minus_lognormal above 10 means the lognormal fits clearly better.",
         "",
         _table(fitted),
         "",
@@ -105,6 +130,27 @@ def render_report(
     for row in life_model.itertuples(index=False):
         if row.status != "fitted":
             lines.append(f"- **{row.product}**: {row.status}: {row.message}")
+    if len(life_model_by_mode):
+        modes = life_model_by_mode.assign(
+            returns=life_model_by_mode["returns"].map(lambda v: f"{v:,.0f}"),
+            shape=life_model_by_mode.apply(
+                lambda r: _bounded(r["shape"], r["shape_lr_lower"], r["shape_lr_upper"]), axis=1
+            ),
+            scale_months=life_model_by_mode.apply(
+                lambda r: _bounded(r["scale"], r["scale_lr_lower"], r["scale_lr_upper"]), axis=1
+            ),
+            share_of_future_returns=life_model_by_mode["share_of_expected_future_returns"].map(
+                lambda v: "n/a" if v != v else f"{v:.1%}"
+            ),
+        )[["product", "failure_mode", "failure_codes", "returns", "status", "shape", "scale_months",
+           "share_of_future_returns"]]
+        lines += [
+            "",
+            "### Failure modes (independent competing risks; details in `life_model_by_mode.parquet`)",
+            "",
+            _table(modes),
+            "",
+        ]
     lines += ["", "## Data read", ""]
     lines += [_table(reconciliation), ""]
     facts = manifest.get("facts", {})
@@ -120,9 +166,16 @@ def render_report(
         "- `weibull_probability_plot.png`: life-table fraction failed with Greenwood bounds, fitted Weibull line "
         "and its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
         "- `expected_returns_by_month.png`: expected future returns per calendar month.",
+        "- `failure_mode_pareto.png`: returns to date by failure code, largest first, with the cumulative share.",
         "",
     ]
     return "\n".join(lines)
+
+
+def _bounded_percent(estimate: float, lower: float, upper: float) -> str:
+    if not math.isfinite(estimate):
+        return "n/a"
+    return f"{estimate:.2%} [{lower:.2%}, {upper:.2%}]"
 
 
 def _bounded(estimate: float, lower: float, upper: float) -> str:

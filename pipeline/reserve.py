@@ -14,7 +14,7 @@ Cost per claim, per product, first that applies:
 from __future__ import annotations
 
 import math
-from typing import Iterable
+from typing import Collection, Iterable, Mapping
 
 import numpy as np
 import pandas as pd
@@ -80,13 +80,15 @@ def reserve_by_build_month(
     cohort_summary: pd.DataFrame,
     forecast: pd.DataFrame,
     costs: pd.DataFrame,
-    forecast_status: dict[str, str],
+    forecast_status: Mapping[str, str],
+    forecast_products: Collection[str],
 ) -> pd.DataFrame:
     """The reserve per product x build month.
 
     `cohort_summary` has the columns of the cohort_summary model; `forecast` is expected returns per
-    product x build month x month; `forecast_status` says per product whether a forecast exists
-    ("forecast") or why not. Products without a forecast get empty expected returns and reserve.
+    product x build month x month for the products in `forecast_products`; `forecast_status` is a
+    sentence per product (which model, or why there is no forecast). Products without a forecast get
+    empty expected returns and reserve.
     """
     expected = (
         forecast.groupby(["product", "build_month"], as_index=False)["expected_returns"]
@@ -95,9 +97,8 @@ def reserve_by_build_month(
     )
     table = cohort_summary.merge(expected, on=["product", "build_month"], how="left")
     table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
-    status = table["product"].map(forecast_status).fillna("no forecast")
-    has_forecast = status.eq("forecast")
-    table["forecast_status"] = status
+    table["forecast_status"] = table["product"].map(forecast_status).fillna("no forecast")
+    has_forecast = table["product"].isin(list(forecast_products))
     table["expected_future_returns"] = np.where(
         has_forecast, table["expected_future_returns"].fillna(0.0), np.nan
     )

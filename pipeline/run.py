@@ -12,14 +12,29 @@ import time
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import Any, Mapping
 
 import pandas as pd
 
 from pipeline import charts
 from pipeline.config import RunConfig
-from pipeline.fitting import FITTED, fit_products, life_data_by_product, life_model_table
-from pipeline.forecast import expected_future_returns, forecast_by_month
+from pipeline.failure_modes import ModeFit, complete_mode_models, fit_failure_modes, life_model_by_mode_table
+from pipeline.fitting import (
+    FITTED,
+    FIXED_SHAPE,
+    PUBLISHED_STATUSES,
+    ProductFit,
+    fit_products,
+    life_data_by_product,
+    life_model_table,
+)
+from pipeline.forecast import (
+    CompetingRisks,
+    LifeDistribution,
+    expected_future_returns,
+    expected_future_returns_by_mode,
+    forecast_by_month,
+)
 from pipeline.life_table import life_table
 from pipeline.publish import publish_outputs, sha256_of
 from pipeline.report import render_report
@@ -78,20 +93,28 @@ def run_nightly(config: RunConfig) -> RunResult:
     )
 
     started = time.perf_counter()
+    settings = config.life_model
     data_by_product = life_data_by_product(shaped.fit_returns, shaped.fit_suspensions)
-    fits = fit_products(data_by_product, config.life_model)
+    warranty_by_product = shaped.cohort_summary.groupby("product")["max_warranty_months"].max().to_dict()
+    fits = fit_products(data_by_product, settings, warranty_by_product)
+    mode_fits = fit_failure_modes(shaped.returns_by_failure_mode, data_by_product, settings)
     units_by_product = shaped.cohort_summary.groupby("product")["units"].sum().to_dict()
     life_model = life_model_table(fits, units_by_product)
     clock.done(
         "fit",
         started,
-        f"{len(fits)} products, {sum(f.status == FITTED for f in fits.values())} fitted",
+        f"{len(fits)} products, {sum(f.status in PUBLISHED_STATUSES for f in fits.values())} with a published fit, "
+        f"{sum(len(m) for m in mode_fits.values())} failure modes",
     )
 
     started = time.perf_counter()
-    usable = {product: outcome.fit for product, outcome in fits.items() if outcome.fit is not None}
-    detail = expected_future_returns(shaped.fit_suspensions, usable)
+    models, model_names, model_notes = forecast_models(fits, mode_fits, settings.forecast_model)
+    detail = expected_future_returns(shaped.fit_suspensions, models)
     forecast = forecast_by_month(detail)
+    mode_models = complete_mode_models(mode_fits)
+    by_mode = life_model_by_mode_table(
+        mode_fits, expected_future_returns_by_mode(shaped.fit_suspensions, mode_models)
+    )
     clock.done("forecast", started, f"{len(forecast)} rows, {forecast['expected_returns'].sum():,.1f} returns")
 
     started = time.perf_counter()
@@ -101,8 +124,11 @@ def run_nightly(config: RunConfig) -> RunResult:
     forecast = forecast.merge(costs[["product", "cost_per_claim"]], on="product", how="left")
     forecast["expected_cost"] = forecast["expected_returns"] * forecast["cost_per_claim"]
     forecast = forecast.drop(columns="cost_per_claim")
-    status = {p: ("forecast" if o.fit is not None else f"no forecast: {o.status}") for p, o in fits.items()}
-    reserve = reserve_by_build_month(shaped.cohort_summary, forecast, costs, status)
+    status = {
+        product: (f"forecast ({model_names[product]})" if product in models else f"no forecast: {outcome.status}")
+        for product, outcome in fits.items()
+    }
+    reserve = reserve_by_build_month(shaped.cohort_summary, forecast, costs, status, models.keys())
     totals = reserve_by_product(reserve)
     clock.done("reserve", started, f"total {totals['reserve'].sum(min_count=1):,.2f}")
 
@@ -110,12 +136,17 @@ def run_nightly(config: RunConfig) -> RunResult:
     table = life_table(shaped.age_in_service, config.life_model.confidence_level)
     figures = {
         "return_rate_heatmap": charts.return_rate_heatmap(shaped.age_in_service),
-        "weibull_probability_plot": charts.weibull_probability_plot(table, usable),
+        "weibull_probability_plot": charts.weibull_probability_plot(
+            table,
+            {product: outcome.fit for product, outcome in fits.items()},
+            {product: outcome.lognormal for product, outcome in fits.items()},
+        ),
         "expected_returns_by_month": charts.expected_returns_by_month(forecast),
+        "failure_mode_pareto": charts.failure_mode_pareto(shaped.returns_by_failure_mode),
     }
     clock.done("charts", started, f"{len(figures)} figures")
 
-    warnings = _warnings(life_model, costs, totals, shaped.run_facts)
+    warnings = [*model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts)]
     for text in warnings:
         log.warning("%s", text)
 
@@ -124,6 +155,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "age_in_service": shaped.age_in_service,
         "life_table": table,
         "life_model": life_model,
+        "life_model_by_mode": by_mode,
         "forecast": forecast,
         "reserve": reserve,
         "reserve_by_product": totals,
@@ -137,6 +169,7 @@ def run_nightly(config: RunConfig) -> RunResult:
     report = render_report(
         manifest=manifest,
         life_model=life_model,
+        life_model_by_mode=by_mode,
         reserve_totals=totals,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,
@@ -151,13 +184,60 @@ def run_nightly(config: RunConfig) -> RunResult:
     return RunResult(config.out_dir, shaped.as_of_date, manifest, tuple(warnings))
 
 
+def forecast_models(
+    fits: Mapping[str, ProductFit], mode_fits: Mapping[str, tuple[ModeFit, ...]], forecast_model: str
+) -> tuple[dict[str, LifeDistribution], dict[str, str], list[str]]:
+    """The life model each product's forecast uses, its name, and notes where the configured one is missing.
+
+    "weibull": the product's published Weibull fit. "lognormal": the lognormal alternative, else the
+    Weibull. "failure_modes": the competing-risks product of the modes' Weibulls when every mode has a
+    published fit, else the Weibull. A product without any usable model is left out (no forecast).
+    """
+    complete_modes = complete_mode_models(mode_fits)
+    models: dict[str, LifeDistribution] = {}
+    names: dict[str, str] = {}
+    notes: list[str] = []
+    for product, outcome in sorted(fits.items()):
+        weibull = outcome.fit if outcome.status in PUBLISHED_STATUSES else None
+        if forecast_model == "lognormal" and outcome.lognormal is not None:
+            models[product], names[product] = outcome.lognormal, "lognormal"
+            continue
+        if forecast_model == "failure_modes" and product in complete_modes:
+            models[product] = CompetingRisks(tuple(complete_modes[product].values()))
+            names[product] = "failure modes"
+            continue
+        if forecast_model != "weibull" and weibull is not None:
+            notes.append(f"product {product}: no {forecast_model} model available; its forecast uses the Weibull fit")
+        if weibull is not None:
+            models[product], names[product] = weibull, "weibull"
+    return models, names, notes
+
+
 def _warnings(
-    life_model: pd.DataFrame, costs: pd.DataFrame, totals: pd.DataFrame, facts: dict[str, int]
+    life_model: pd.DataFrame, by_mode: pd.DataFrame, costs: pd.DataFrame, facts: dict[str, int]
 ) -> list[str]:
     texts = []
     for row in life_model.itertuples(index=False):
-        if row.status != FITTED:
+        if row.status == FIXED_SHAPE:
+            texts.append(f"product {row.product}: {row.message}")
+        elif row.status != FITTED:
             texts.append(f"product {row.product}: no life model, no forecast and no reserve ({row.status}): {row.message}")
+        if row.status in PUBLISHED_STATUSES and not row.lr_bounds_finite:
+            texts.append(
+                f"product {row.product}: the data do not bound every likelihood-ratio interval (an end is 0 or"
+                " infinite); treat its estimates as very uncertain"
+            )
+        if row.prefers_lognormal:
+            texts.append(f"product {row.product}: {row.family_message}")
+        if row.gof_p_value < 0.001:
+            texts.append(
+                f"product {row.product}: returns by month in service depart from the Weibull (chi-square"
+                f" {row.gof_chi_square:.1f} on {row.gof_df:.0f} df, p = {row.gof_p_value:.1e}; largest residual in"
+                f" month {row.gof_largest_residual_month:.0f}); check the probability plot"
+            )
+    for row in by_mode.itertuples(index=False):
+        if row.status not in PUBLISHED_STATUSES:
+            texts.append(f"product {row.product}, failure mode {row.failure_mode}: no fit ({row.status}): {row.message}")
     for row in costs.itertuples(index=False):
         if row.cost_per_claim != row.cost_per_claim:  # NaN
             texts.append(f"product {row.product}: no cost per claim ({row.cost_basis}); its reserve is empty")
@@ -210,6 +290,11 @@ def _manifest(
             "cost_window_months": config.reserve.cost_window_months,
             "confidence_level": config.life_model.confidence_level,
             "min_returns": config.life_model.min_returns,
+            "fixed_shape": config.life_model.fixed_shape,
+            "fixed_shape_by_product": dict(config.life_model.fixed_shape_by_product),
+            "min_returns_per_mode": config.life_model.min_returns_per_mode,
+            "forecast_model": config.life_model.forecast_model,
+            "aic_threshold": config.life_model.aic_threshold,
         },
         "warnings": warnings,
         "seconds_by_stage": dict(clock.seconds),

@@ -66,6 +66,7 @@ INTERMEDIATE_MODELS: tuple[str, ...] = (
 )
 OUTPUT_MODELS: tuple[str, ...] = (
     "outputs/fit_returns",
+    "outputs/returns_by_failure_mode",
     "outputs/fit_suspensions",
     "outputs/age_in_service",
     "outputs/cohort_summary",
@@ -86,6 +87,7 @@ class ShapedData:
     as_of_date: dt.date
     as_of_source: str
     fit_returns: pd.DataFrame
+    returns_by_failure_mode: pd.DataFrame
     fit_suspensions: pd.DataFrame
     age_in_service: pd.DataFrame
     cohort_summary: pd.DataFrame
@@ -260,6 +262,7 @@ _OUTPUT_COLUMNS: dict[str, tuple[str, ...]] = {
     "fit_returns": (
         "product", "build_month", "sale_month", "warranty_months", "months_in_service", "returns", "return_cost",
     ),
+    "returns_by_failure_mode": ("product", "failure_mode", "months_in_service", "returns"),
     "fit_suspensions": (
         "product", "build_month", "sale_month", "warranty_months", "warranty_start_date",
         "observed_age_months", "is_in_channel", "units", "suspensions",
@@ -284,6 +287,7 @@ _OUTPUT_COLUMNS: dict[str, tuple[str, ...]] = {
 
 _SORT_KEYS: dict[str, tuple[str, ...]] = {
     "fit_returns": ("product", "build_month", "sale_month", "warranty_months", "months_in_service"),
+    "returns_by_failure_mode": ("product", "failure_mode", "months_in_service"),
     "fit_suspensions": ("product", "build_month", "sale_month", "warranty_months", "warranty_start_date"),
     "age_in_service": ("product", "build_month", "months_in_service"),
     "cohort_summary": ("product", "build_month"),

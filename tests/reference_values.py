@@ -51,3 +51,10 @@ def reference_life_data(name: str) -> LifeData:
     failed = np.array([r["kind"] == "failure" for r in rows])
     assert set(r["kind"] for r in rows) == {"failure", "suspension"}
     return LifeData.from_exact(hours[failed], counts[failed], hours[~failed], counts[~failed])
+
+
+# Likelihood-ratio (profile likelihood) bounds, used by tests/test_profile_bounds.py.
+# Bearing cage, 95% likelihood-ratio interval for B10: "about [2,094, 22,144] hours", computed per the
+# reference README; the book's figure (Meeker & Escobar 1998, analysing Abernethy et al. 1983), from
+# memory, is about [2,093, 22,144].
+BEARING_B10_LR_95 = (2094.0, 22144.0)

@@ -25,7 +25,8 @@ EXPECTED_FILES = {
     "age_in_service.parquet", "life_model.parquet", "life_table.parquet", "forecast.parquet",
     "reserve.parquet", "reserve_by_product.parquet", "quarantine.parquet", "fit_returns.parquet",
     "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
-    "expected_returns_by_month.png", "report.md", "manifest.json",
+    "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
+    "failure_mode_pareto.png",
 }
 
 

@@ -57,7 +57,9 @@ def test_reserve_is_expected_returns_times_cost_and_empty_without_forecast():
         }
     )
     costs = cost_per_claim_by_product(claim_costs(), ["A", "B"], ReserveSettings())
-    reserve = reserve_by_build_month(summary, forecast, costs, {"A": "forecast", "B": "no forecast: insufficient_data"})
+    reserve = reserve_by_build_month(
+        summary, forecast, costs, {"A": "forecast (weibull)", "B": "no forecast: insufficient_data"}, {"A"}
+    )
     a = reserve[reserve["product"] == "A"].set_index("build_month")
     assert a["expected_future_returns"].to_dict() == {JAN: 2.0, FEB: 4.0}
     assert a["reserve"].to_dict() == {JAN: 100.0, FEB: 200.0}
