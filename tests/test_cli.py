@@ -176,3 +176,42 @@ def test_demo_data_command_writes_the_extracts(tmp_path):
         p.name for p in out.iterdir()
     }
     assert json.loads((out / "truth.json").read_text())["seed"] == 7
+
+
+def test_thin_data_configuration_uses_fixed_shapes_and_alternative_forecasts(tmp_path):
+    # every product is "thin" under min_returns = 100000; QHT-360 gets a shape from configuration
+    config = tmp_path / "settings.toml"
+    config.write_text(
+        "[life_model]\nmin_returns = 100000\nforecast_model = \"lognormal\"\n"
+        "[life_model.fixed_shape_by_product]\nQHT-360 = 2.5\n"
+    )
+    out = tmp_path / "out"
+    assert run("--config", str(config), "--out", str(out)) == exit_codes.SUCCESS
+    life_model = pd.read_parquet(out / "life_model.parquet").set_index("product")
+    assert life_model.loc["QHT-360", "status"] == "fixed_shape" and life_model.loc["QHT-360", "shape"] == 2.5
+    assert life_model.loc["QDS-210", "status"] == "insufficient_data"
+    totals = pd.read_parquet(out / "reserve_by_product.parquet").set_index("product")
+    # the lognormal alternative is fitted on every product's data (its own min_returns is the same),
+    # so lognormal forecasts are absent here and the Weibull (fixed shape) is used where it exists
+    assert totals.loc["QHT-360", "forecast_status"] == "forecast (weibull)"
+    assert totals.loc["QHT-360", "reserve"] > 0
+    assert totals.loc["QDS-210", "forecast_status"].startswith("no forecast")
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert any("QHT-360" in w and "shape fixed at 2.5" in w for w in manifest["warnings"])
+    assert any("QDS-210" in w and "no life model" in w for w in manifest["warnings"])
+
+
+@pytest.mark.parametrize("forecast_model", ["lognormal", "failure_modes"])
+def test_forecast_model_choice(tmp_path, demo_out, forecast_model):
+    config = tmp_path / "settings.toml"
+    config.write_text(f"[life_model]\nforecast_model = \"{forecast_model}\"\n")
+    out = tmp_path / "out"
+    assert run("--config", str(config), "--out", str(out)) == exit_codes.SUCCESS
+    totals = pd.read_parquet(out / "reserve_by_product.parquet").set_index("product")
+    weibull = pd.read_parquet(demo_out / "reserve_by_product.parquet").set_index("product")
+    expected_name = "lognormal" if forecast_model == "lognormal" else "failure modes"
+    # QCP-140's defect mode cannot be fitted alone, so its failure-mode forecast falls back on the Weibull
+    for product in ("QDS-210", "QHT-360"):
+        assert totals.loc[product, "forecast_status"] == f"forecast ({expected_name})"
+        ratio = totals.loc[product, "expected_future_returns"] / weibull.loc[product, "expected_future_returns"]
+        assert 0.5 < ratio < 2.0 and ratio != 1.0

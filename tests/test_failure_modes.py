@@ -117,11 +117,7 @@ def test_mode_shares_are_exact_for_proportional_hazards_and_add_up():
 
 def test_mode_table_reports_shares_and_incomplete_products():
     truth = {"EARLY": (0.9, 900.0), "WEAR": (2.8, 60.0), "RARE": (1.0, 1e5)}
-    returns, data = simulate_modes(5, 50_000, truth)
-    settings = LifeModelSettings(min_returns_per_mode=20)
-    fits = fit_failure_modes(returns, {"P": data}, settings)
-    assert {m.failure_mode for m in fits["P"]} >= {"EARLY", "WEAR"}
-    models = complete_mode_models(fits)
+    returns, data = simulate_modes(5, 50_000, truth)  # RARE has 10 returns: it folds into "other"
     suspensions = pd.DataFrame(
         {
             "product": ["P"], "build_month": [dt.date(2024, 1, 1)], "sale_month": [dt.date(2024, 1, 1)],
@@ -129,9 +125,24 @@ def test_mode_table_reports_shares_and_incomplete_products():
             "is_in_channel": [False], "units": [1000], "suspensions": [1000.0],
         }
     )
-    table = life_model_by_mode_table(fits, expected_future_returns_by_mode(suspensions, models))
-    if "P" in models:
-        assert table["share_of_expected_future_returns"].sum() == pytest.approx(1.0)
-    else:
-        assert table["share_of_expected_future_returns"].isna().all()
-    assert set(table.columns) >= {"product", "failure_mode", "returns", "shape", "scale", "shape_lr_lower"}
+
+    def table_for(settings):
+        fits = fit_failure_modes(returns, {"P": data}, settings)
+        expected = expected_future_returns_by_mode(suspensions, complete_mode_models(fits))
+        return life_model_by_mode_table(fits, expected).set_index("failure_mode")
+
+    complete = table_for(LifeModelSettings(min_returns_per_mode=20))
+    assert complete.loc[OTHER, "failure_codes"] == "RARE" and complete.loc[OTHER, "returns"] == 10
+    assert set(complete["status"]) == {FITTED}
+    assert complete["share_of_expected_future_returns"].sum() == pytest.approx(1.0, rel=1e-12)
+    assert set(complete.columns) >= {"product", "returns", "shape", "scale", "shape_lr_lower", "b10_lr_upper"}
+
+    # "other" below min_returns and no configured shape: no fit, so no competing-risks shares at all
+    incomplete = table_for(LifeModelSettings(min_returns_per_mode=20, min_returns=15))
+    assert incomplete.loc[OTHER, "status"] == "insufficient_data"
+    assert incomplete["share_of_expected_future_returns"].isna().all()
+
+    # with a shape from engineering experience, "other" gets a fixed-shape fit and the shares return
+    fixed = table_for(LifeModelSettings(min_returns_per_mode=20, min_returns=15, fixed_shape=1.0))
+    assert fixed.loc[OTHER, "status"] == "fixed_shape" and fixed.loc[OTHER, "shape"] == 1.0
+    assert fixed["share_of_expected_future_returns"].sum() == pytest.approx(1.0, rel=1e-12)

@@ -1,0 +1,78 @@
+"""The fit stage: fallbacks for thin or unidentifiable data, and the life_model table."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pipeline.config import LifeModelSettings
+from pipeline.fitting import (
+    FITTED,
+    FIXED_SHAPE,
+    INSUFFICIENT_DATA,
+    LIFE_MODEL_COLUMNS,
+    UNIDENTIFIABLE,
+    fit_products,
+    fit_weibull,
+    life_model_table,
+)
+from pipeline.life_model import LifeData
+
+pytestmark = pytest.mark.filterwarnings("error")
+
+
+def simulated(seed=3, n=40_000, shape=1.6, scale=150.0, warranty=24):
+    # common practice, no source: staggered sales, monthly intervals, warranty limit
+    rng = np.random.default_rng(seed)
+    window = np.minimum(rng.integers(1, 37, size=n), warranty).astype(float)
+    life = scale * rng.weibull(shape, size=n)
+    failed = life <= window
+    months, returns = np.unique(np.ceil(life[failed]), return_counts=True)
+    ages, counts = np.unique(window[~failed], return_counts=True)
+    return LifeData.from_monthly_returns(months, returns.astype(float), ages, counts.astype(float))
+
+
+THIN = LifeData.from_monthly_returns([2, 5, 9], [1, 1, 1], [6.0, 12.0, 24.0], [300.0, 300.0, 300.0])
+# returns only in the first three months among a million units observed for three months:
+# shape and scale cannot both be identified
+FLAT = LifeData.from_monthly_returns([1, 2, 3], [5, 5, 6], [3.0], [1e6])
+
+
+def test_thin_data_without_a_configured_shape_has_no_fit():
+    outcome = fit_weibull(THIN, LifeModelSettings(), fixed_shape=None)
+    assert outcome.status == INSUFFICIENT_DATA and outcome.fit is None
+    assert "life_model.fixed_shape" in outcome.message
+
+
+def test_thin_data_with_a_configured_shape_estimates_the_scale_only():
+    outcome = fit_weibull(THIN, LifeModelSettings(), fixed_shape=2.0)
+    assert outcome.status == FIXED_SHAPE and outcome.fit.shape_fixed and outcome.fit.shape == 2.0
+    assert "shape fixed at 2" in outcome.message
+    lower, upper = outcome.fit.scale_bounds()
+    assert lower < outcome.fit.scale < upper
+
+
+def test_unidentifiable_data_is_reported_or_falls_back_on_the_configured_shape():
+    outcome = fit_weibull(FLAT, LifeModelSettings(), fixed_shape=None)
+    assert outcome.status == UNIDENTIFIABLE and outcome.fit is None
+    fallback = fit_weibull(FLAT, LifeModelSettings(), fixed_shape=1.0)
+    assert fallback.status == FIXED_SHAPE and fallback.fit.shape == 1.0
+
+
+def test_life_model_table_has_bounds_diagnostics_and_statuses():
+    data = {"GOOD": simulated(), "THIN": THIN}
+    fits = fit_products(data, LifeModelSettings(), {"GOOD": 24, "THIN": 24})
+    table = life_model_table(fits, {"GOOD": 40_000.0, "THIN": 900.0}).set_index("product")
+    assert list(table.reset_index().columns) == list(LIFE_MODEL_COLUMNS)
+    good = table.loc["GOOD"]
+    assert good["status"] == FITTED and good["converged"] and good["lr_bounds_finite"]
+    for name in ("shape", "scale", "b1", "b10", "fraction_failed_at_warranty_end"):
+        assert good[f"{name}_lr_lower"] < good[name] < good[f"{name}_lr_upper"], name
+        assert good[f"{name}_lower"] < good[name] < good[f"{name}_upper"], name
+    # the simulated truth (shape 1.6, scale 150) inside the likelihood-ratio bounds
+    assert good["shape_lr_lower"] < 1.6 < good["shape_lr_upper"]
+    assert good["scale_lr_lower"] < 150.0 < good["scale_lr_upper"]
+    assert 0.0 <= good["gof_p_value"] <= 1.0 and good["gof_df"] >= 1
+    assert good["delta_aic_weibull_minus_lognormal"] < 0 and not good["prefers_lognormal"]
+    thin = table.loc["THIN"]
+    assert thin["status"] == INSUFFICIENT_DATA and np.isnan(thin["shape"]) and not thin["converged"]
