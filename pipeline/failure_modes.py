@@ -18,9 +18,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.config import LifeModelSettings
-from pipeline.errors import FitError
 from pipeline.fitting import PUBLISHED_STATUSES, fit_weibull
-from pipeline.life_model import LifeData, LikelihoodRatioBounds, WeibullFit, likelihood_ratio_bounds
+from pipeline.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
 
 OTHER = "other"
 
@@ -106,17 +105,12 @@ def fit_failure_modes(
         modes = []
         for mode, codes in membership.items():
             data = competing_risk_data(rows, codes, product_data)
-            outcome = fit_weibull(data, settings, settings.fixed_shape_for(product))
-            message, lr_bounds = outcome.message, None
-            if outcome.fit is not None:
-                try:
-                    lr_bounds = likelihood_ratio_bounds(
-                        outcome.fit, data, b_life_fractions=(0.10,), confidence_level=settings.confidence_level
-                    )
-                except FitError as error:
-                    message = f"{message}; likelihood-ratio bounds failed: {error}".lstrip("; ")
+            outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), b_life_fractions=(0.10,))
             modes.append(
-                ModeFit(product, mode, codes, data.n_returns, outcome.status, message, outcome.fit, lr_bounds)
+                ModeFit(
+                    product, mode, codes, data.n_returns, outcome.status, outcome.message, outcome.fit,
+                    outcome.lr_bounds,
+                )
             )
         result[product] = tuple(modes)
     return result

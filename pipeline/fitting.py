@@ -106,11 +106,12 @@ LIFE_MODEL_COLUMNS = (
 
 @dataclass(frozen=True)
 class WeibullOutcome:
-    """A Weibull fit, or the reason there is none (status is one of the module's status names)."""
+    """A Weibull fit with its likelihood-ratio bounds, or the reason there is none (status: module names)."""
 
     status: str
     message: str
     fit: WeibullFit | None
+    lr_bounds: LikelihoodRatioBounds | None = None
 
 
 @dataclass(frozen=True)
@@ -149,28 +150,65 @@ def life_data_by_product(fit_returns: pd.DataFrame, fit_suspensions: pd.DataFram
     return result
 
 
-def fit_weibull(data: LifeData, settings: LifeModelSettings, fixed_shape: float | None) -> WeibullOutcome:
-    """Two-parameter fit, falling back on a fixed shape for thin or unidentifiable data when one is given."""
+def fit_weibull(
+    data: LifeData,
+    settings: LifeModelSettings,
+    fixed_shape: float | None,
+    *,
+    b_life_fractions: tuple[float, ...] = (0.01, 0.10),
+    cdf_ages: tuple[float, ...] = (),
+) -> WeibullOutcome:
+    """Two-parameter fit with likelihood-ratio bounds, falling back on a fixed shape when one is given.
+
+    The fallback applies to thin data (fewer than `min_returns`), to fits the fitter finds
+    unidentifiable, and to fits whose likelihood-ratio interval for shape or scale is open (the
+    likelihood stays within the interval's threshold out to 0 or infinity): such estimates are never
+    published as a two-parameter fit.
+    """
     fitter = WeibullFitter(confidence_level=settings.confidence_level, min_returns=settings.min_returns)
     try:
-        return WeibullOutcome(FITTED, "", fitter.fit(data))
+        fit = fitter.fit(data)
     except InsufficientDataError as error:
         reason, status = str(error), INSUFFICIENT_DATA
     except UnidentifiableError as error:
         reason, status = str(error), UNIDENTIFIABLE
     except FitError as error:
         return WeibullOutcome(NOT_CONVERGED, str(error), None)
+    else:
+        lr_bounds, note = _lr_bounds(fit, data, settings, b_life_fractions, cdf_ages)
+        open_parameters = [end for end in (lr_bounds.open_ends if lr_bounds else ()) if end.startswith(("shape", "scale"))]
+        if not open_parameters:
+            return WeibullOutcome(FITTED, note, fit, lr_bounds)
+        reason = (
+            f"shape {fit.shape:.3g} and scale {fit.scale:.3g} are not identified by these data: the likelihood does"
+            f" not bound the {', '.join(open_parameters)} end(s) of their likelihood-ratio intervals"
+        )
+        status = UNIDENTIFIABLE
     if fixed_shape is None:
         return WeibullOutcome(status, f"{reason}; no fixed shape configured (life_model.fixed_shape)", None)
     try:
         fit = fitter.fit_fixed_shape(data, fixed_shape)
     except FitError as error:
         return WeibullOutcome(status, f"{reason}; fixed-shape fit also failed: {error}", None)
-    return WeibullOutcome(
-        FIXED_SHAPE,
-        f"shape fixed at {fixed_shape:g} from configuration, only the scale estimated ({reason})",
-        fit,
-    )
+    lr_bounds, note = _lr_bounds(fit, data, settings, b_life_fractions, cdf_ages)
+    message = f"shape fixed at {fixed_shape:g} from configuration, only the scale estimated ({reason})"
+    return WeibullOutcome(FIXED_SHAPE, _join(message, note), fit, lr_bounds)
+
+
+def _lr_bounds(
+    fit: WeibullFit,
+    data: LifeData,
+    settings: LifeModelSettings,
+    b_life_fractions: tuple[float, ...],
+    cdf_ages: tuple[float, ...],
+) -> tuple[LikelihoodRatioBounds | None, str]:
+    try:
+        bounds = likelihood_ratio_bounds(
+            fit, data, b_life_fractions=b_life_fractions, cdf_ages=cdf_ages, confidence_level=settings.confidence_level
+        )
+    except FitError as error:
+        return None, f"likelihood-ratio bounds failed: {error}"
+    return bounds, ""
 
 
 def fit_products(
@@ -182,17 +220,9 @@ def fit_products(
     fits = {}
     for product, data in sorted(data_by_product.items()):
         warranty = int(warranty_by_product[product])
-        outcome = fit_weibull(data, settings, settings.fixed_shape_for(product))
+        outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), cdf_ages=(float(warranty),))
         message = outcome.message
-        lr_bounds = goodness = None
-        if outcome.fit is not None:
-            try:
-                lr_bounds = likelihood_ratio_bounds(
-                    outcome.fit, data, cdf_ages=(float(warranty),), confidence_level=settings.confidence_level
-                )
-            except FitError as error:
-                message = _join(message, f"likelihood-ratio bounds failed: {error}")
-            goodness = _goodness(data, outcome.fit)
+        goodness = _goodness(data, outcome.fit) if outcome.fit is not None else None
         lognormal = comparison = None
         try:
             lognormal = LognormalFitter(
@@ -204,7 +234,8 @@ def fit_products(
         if lognormal is not None and outcome.fit is not None and not outcome.fit.shape_fixed:
             comparison = compare_families(outcome.fit.log_likelihood, lognormal.log_likelihood, settings.aic_threshold)
         fits[product] = ProductFit(
-            product, outcome.status, message, data, warranty, outcome.fit, lr_bounds, goodness, lognormal, comparison
+            product, outcome.status, message, data, warranty, outcome.fit, outcome.lr_bounds, goodness, lognormal,
+            comparison,
         )
     return fits
 

@@ -540,6 +540,11 @@ def _interval_terms(
 # ---------------------------------------------------------------------------------------------
 
 
+def _bounded_exp(x: float) -> float:
+    """exp(x), saturating at the largest double instead of raising OverflowError for absurd estimates."""
+    return math.exp(min(float(x), 709.0))
+
+
 def _z_quantile(confidence_level: float) -> float:
     return float(stats.norm.ppf(0.5 + 0.5 * confidence_level))
 
@@ -1020,7 +1025,7 @@ class WeibullFitter:
         decrement = float(gradient @ covariance @ gradient)
         if decrement > 1e-8:
             problems.append(_Problem(f"not at a maximum (Newton decrement {decrement:.2e} log-likelihood units)"))
-        shape, scale = math.exp(theta[1]), math.exp(theta[0])
+        shape, scale = _bounded_exp(theta[1]), _bounded_exp(theta[0])
         lo, hi = self.shape_limits
         if not lo <= shape <= hi:
             # the likelihood keeps rising towards a shape limit: flat in the direction that matters
@@ -1063,8 +1068,8 @@ class WeibullFitter:
             covariance = np.full((2, 2), np.nan)
         covariance.setflags(write=False)
         return WeibullFit(
-            shape=math.exp(attempt.theta[1]),
-            scale=math.exp(attempt.theta[0]),
+            shape=_bounded_exp(attempt.theta[1]),
+            scale=_bounded_exp(attempt.theta[0]),
             log_likelihood=float(attempt.value),
             covariance=covariance,
             converged=converged,

@@ -76,3 +76,19 @@ def test_life_model_table_has_bounds_diagnostics_and_statuses():
     assert good["delta_aic_weibull_minus_lognormal"] < 0 and not good["prefers_lognormal"]
     thin = table.loc["THIN"]
     assert thin["status"] == INSUFFICIENT_DATA and np.isnan(thin["shape"]) and not thin["converged"]
+
+
+def test_returns_all_in_month_one_raise_no_overflow_and_are_unidentifiable():
+    # every return in month 1 and the survivors at 1 and 24 months: the shape runs to 0 (found in review:
+    # this once raised a bare OverflowError)
+    data = LifeData.from_monthly_returns([1], [50], [1.0, 24.0], [1000.0, 5000.0])
+    assert fit_weibull(data, LifeModelSettings(), fixed_shape=None).status == UNIDENTIFIABLE
+
+
+def test_open_likelihood_ratio_interval_for_shape_is_not_published_as_a_fit():
+    # 500 returns in month 1 and 10 units alive at half a month: any very large shape with scale in
+    # (0.5, 1] explains the data, so the likelihood never bounds the shape from above
+    data = LifeData.from_monthly_returns([1], [500], [0.5], [10.0])
+    outcome = fit_weibull(data, LifeModelSettings(), fixed_shape=None)
+    assert outcome.status == UNIDENTIFIABLE and outcome.fit is None
+    assert "shape upper" in outcome.message
