@@ -193,7 +193,7 @@ def _as_vector(name: str, values: npt.ArrayLike) -> FloatArray:
 
 
 @dataclass(frozen=True)
-class _PreparedRows:
+class PreparedRows:
     """Positive-count rows with logs of ages precomputed (internal; used by `log_likelihood`)."""
 
     exact_log_ages: FloatArray
@@ -353,8 +353,8 @@ class LifeData:
         )
 
     @cached_property
-    def _prepared(self) -> _PreparedRows:
-        """Positive-count rows with log ages, computed once per data set."""
+    def prepared(self) -> PreparedRows:
+        """Positive-count rows with log ages, computed once per data set (shared by every family)."""
         e = self.exact_counts > 0
         i = self.interval_counts > 0
         open_left = i & (self.interval_lower == 0.0)
@@ -363,7 +363,7 @@ class LifeData:
         total = float(
             self.exact_counts[e].sum() + self.interval_counts[i].sum() + self.suspension_counts[s].sum()
         )
-        return _PreparedRows(
+        return PreparedRows(
             exact_log_ages=np.log(self.exact_ages[e]),
             exact_counts=self.exact_counts[e],
             left_open_log_upper=np.log(self.interval_upper[open_left]),
@@ -421,7 +421,7 @@ def log_likelihood(
         raise ValueError(f"derivatives must be 0, 1 or 2, got {derivatives!r}")
     log_scale, log_shape = (float(v) for v in np.asarray(theta, dtype=float).reshape(2))
     k = math.exp(log_shape)
-    rows = data._prepared
+    rows = data.prepared
 
     # Notation: z = shape * (log t - log scale), so log R(t) = -exp(z);
     # dz = (dz/dlog scale, dz/dlog shape) = (-shape, z);
@@ -742,7 +742,7 @@ class _Objective:
 
     def __init__(self, data: LifeData) -> None:
         self._data = data
-        self._per_unit = 1.0 / max(data._prepared.total_units, 1e-300)
+        self._per_unit = 1.0 / max(data.prepared.total_units, 1e-300)
         self._theta: bytes | None = None
         self._cache: tuple[float, FloatArray, FloatArray] = (0.0, np.zeros(2), np.zeros((2, 2)))
 
@@ -870,7 +870,7 @@ class WeibullFitter:
         self._check_data(data, min_returns=0.0)
         log_shape = math.log(shape)
         ((log_scale0, _),) = self._starts(data, (shape,))
-        units = data._prepared.total_units
+        units = data.prepared.total_units
 
         def scale_direction(a: float) -> tuple[float, float, float]:
             value, gradient, hessian = log_likelihood((a, log_shape), data, derivatives=2)
@@ -996,7 +996,7 @@ class WeibullFitter:
         if not (np.all(np.isfinite(gradient)) and np.all(np.isfinite(hessian))):
             return (_Problem("gradient or Hessian not finite at the estimate"),)
         problems = []
-        units = data._prepared.total_units
+        units = data.prepared.total_units
         grad_norm = float(np.linalg.norm(gradient)) / units
         if grad_norm > self.gradient_tolerance:
             problems.append(_Problem(f"gradient norm per unit {grad_norm:.2e} above {self.gradient_tolerance:.1e}"))
@@ -1074,7 +1074,7 @@ class WeibullFitter:
             covariance=covariance,
             converged=converged,
             iterations=attempt.iterations,
-            gradient_norm=float(np.linalg.norm(attempt.gradient)) / data._prepared.total_units,
+            gradient_norm=float(np.linalg.norm(attempt.gradient)) / data.prepared.total_units,
             n_returns=data.n_returns,
             n_suspensions=data.n_suspensions,
             confidence_level=self.confidence_level,

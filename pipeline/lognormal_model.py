@@ -39,6 +39,7 @@ from pipeline.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,
+    PreparedRows,
     WeibullFitter,
 )
 
@@ -60,43 +61,6 @@ _LOG_SIGMA_MAX = 25.0
 # ---------------------------------------------------------------------------------------------
 # Rows of the likelihood
 # ---------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class _Rows:
-    """Positive-count rows of a `LifeData`, with log ages (internal)."""
-
-    exact_log_ages: FloatArray
-    exact_counts: FloatArray
-    open_log_upper: FloatArray  # intervals (0, upper]
-    open_counts: FloatArray
-    log_lower: FloatArray  # intervals (lower, upper], lower > 0
-    log_upper: FloatArray
-    counts: FloatArray
-    suspension_log_ages: FloatArray
-    suspension_counts: FloatArray
-    total_units: float
-
-
-def _rows(data: LifeData) -> _Rows:
-    e = data.exact_counts > 0
-    i = data.interval_counts > 0
-    open_left = i & (data.interval_lower == 0.0)
-    closed = i & (data.interval_lower > 0.0)
-    s = (data.suspension_counts > 0) & (data.suspension_ages > 0.0)  # age 0: log R(0) = 0
-    total = float(data.exact_counts[e].sum() + data.interval_counts[i].sum() + data.suspension_counts[s].sum())
-    return _Rows(
-        exact_log_ages=np.log(data.exact_ages[e]),
-        exact_counts=data.exact_counts[e],
-        open_log_upper=np.log(data.interval_upper[open_left]),
-        open_counts=data.interval_counts[open_left],
-        log_lower=np.log(data.interval_lower[closed]),
-        log_upper=np.log(data.interval_upper[closed]),
-        counts=data.interval_counts[closed],
-        suspension_log_ages=np.log(data.suspension_ages[s]),
-        suspension_counts=data.suspension_counts[s],
-        total_units=total,
-    )
 
 
 def _log_phi(z: FloatArray) -> FloatArray:
@@ -141,10 +105,10 @@ def lognormal_log_likelihood(
     """
     if derivatives not in (0, 1):
         raise ValueError(f"derivatives must be 0 or 1, got {derivatives!r}")
-    return _log_likelihood(theta, _rows(data), derivatives)
+    return _log_likelihood(theta, data.prepared, derivatives)
 
 
-def _log_likelihood(theta: npt.ArrayLike, rows: _Rows, derivatives: int) -> float | tuple[float, FloatArray]:
+def _log_likelihood(theta: npt.ArrayLike, rows: PreparedRows, derivatives: int) -> float | tuple[float, FloatArray]:
     mu, log_sigma = (float(v) for v in np.asarray(theta, dtype=float).reshape(2))
     if not (abs(mu) <= _MU_MAX and abs(log_sigma) <= _LOG_SIGMA_MAX):
         return (-math.inf, np.zeros(2)) if derivatives else -math.inf
@@ -176,18 +140,18 @@ def _log_likelihood(theta: npt.ArrayLike, rows: _Rows, derivatives: int) -> floa
     # -- interval returns (0, u] and (l, u] ----------------------------------------------------
     # d log(R(l) - R(u)) = (-phi(z_l) dz_l + phi(z_u) dz_u) / (R(l) - R(u))
     #                    = ((w_l - w_u) / sigma, w_l z_l - w_u z_u),  w = exp(log phi(z) - log(R(l) - R(u)))
-    c = rows.open_counts
+    c = rows.left_open_counts
     if c.size:
-        z_u = (rows.open_log_upper - mu) / sigma
+        z_u = (rows.left_open_log_upper - mu) / sigma
         log_p = special.log_ndtr(z_u)  # l = 0: log R(0) = 0, so log(1 - R(u)) = log Phi(z_u)
         value += float(c @ log_p)
         if derivatives:
             w_u = np.exp(np.minimum(_log_phi(z_u) - log_p, _EXP_MAX))
             grad += (-float(c @ w_u) / sigma, -float(c @ (w_u * z_u)))
-    c = rows.counts
+    c = rows.interval_counts
     if c.size:
-        z_l = (rows.log_lower - mu) / sigma
-        z_u = (rows.log_upper - mu) / sigma
+        z_l = (rows.interval_log_lower - mu) / sigma
+        z_u = (rows.interval_log_upper - mu) / sigma
         log_p = _log_interval_probability(z_l, z_u)
         value += float(c @ log_p)
         if derivatives:
@@ -345,7 +309,7 @@ class _Attempt:
 class _Objective:
     """-log-likelihood / units for scipy; value and gradient cached per theta."""
 
-    def __init__(self, rows: _Rows, step: float) -> None:
+    def __init__(self, rows: PreparedRows, step: float) -> None:
         self._rows = rows
         self._per_unit = 1.0 / max(rows.total_units, 1e-300)
         self._step = step
@@ -431,7 +395,7 @@ class LognormalFitter:
     def fit(self, data: LifeData) -> LognormalFit:
         """Fit mu and sigma by maximum likelihood; ages in the data's unit (months)."""
         self._check_data(data)
-        rows = _rows(data)
+        rows = data.prepared
         objective = _Objective(rows, self.hessian_step)
         attempts: list[_Attempt] = []
         for theta0 in self._starts(data, objective):
