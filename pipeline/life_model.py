@@ -313,6 +313,18 @@ class LifeData:
         return float(self.suspension_counts.sum())
 
     @property
+    def returns_at_one_time(self) -> bool:
+        """True when every return (positive count) shares one exact age or one interval."""
+        e, i = self.exact_counts > 0, self.interval_counts > 0
+        return_times = np.concatenate(
+            [
+                np.column_stack([self.exact_ages[e], self.exact_ages[e]]),
+                np.column_stack([self.interval_lower[i], self.interval_upper[i]]),
+            ]
+        )
+        return np.unique(return_times, axis=0).shape[0] == 1
+
+    @property
     def max_age(self) -> float:
         """Largest age observed in a row with positive count (interval rows: the upper end); 0 if none."""
         ages = np.concatenate(
@@ -1046,14 +1058,7 @@ class WeibullFitter:
         hints = ["fix the shape from engineering experience"]
         if data.n_returns < 20:
             hints.append(f"too few returns ({data.n_returns:g})")
-        e, i = data.exact_counts > 0, data.interval_counts > 0
-        return_times = np.concatenate(
-            [
-                np.column_stack([data.exact_ages[e], data.exact_ages[e]]),
-                np.column_stack([data.interval_lower[i], data.interval_upper[i]]),
-            ]
-        )
-        if np.unique(return_times, axis=0).shape[0] == 1:
+        if data.returns_at_one_time:
             hints.append("returns all in one month (or at one age): the shape is not identifiable")
         hints.append("pool cohorts to widen the range of ages")
         problems = "; ".join(p.text for p in attempt.problems)

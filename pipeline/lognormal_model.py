@@ -453,14 +453,7 @@ class LognormalFitter:
         hints = []
         if data.n_returns < 20:
             hints.append(f"too few returns ({data.n_returns:g})")
-        e, i = data.exact_counts > 0, data.interval_counts > 0
-        times = np.concatenate(
-            [
-                np.column_stack([data.exact_ages[e], data.exact_ages[e]]),
-                np.column_stack([data.interval_lower[i], data.interval_upper[i]]),
-            ]
-        )
-        if np.unique(times, axis=0).shape[0] == 1:
+        if data.returns_at_one_time:
             hints.append("returns all in one month (or at one age): sigma is not identifiable")
         hints.append("pool cohorts to widen the range of ages")
         return "; ".join(hints)
