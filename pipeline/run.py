@@ -18,7 +18,7 @@ import pandas as pd
 
 from pipeline import charts
 from pipeline.config import RunConfig
-from pipeline.failure_modes import ModeFit, complete_mode_models, fit_failure_modes, life_model_by_mode_table
+from pipeline.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
 from pipeline.fitting import (
     FITTED,
     FIXED_SHAPE,
@@ -35,6 +35,7 @@ from pipeline.forecast import (
     expected_future_returns_by_mode,
     forecast_by_month,
 )
+from pipeline.life_model import WeibullFit
 from pipeline.life_table import life_table
 from pipeline.publish import publish_outputs, sha256_of
 from pipeline.report import render_report
@@ -108,10 +109,10 @@ def run_nightly(config: RunConfig) -> RunResult:
     )
 
     started = time.perf_counter()
-    models, model_names, model_notes = forecast_models(fits, mode_fits, settings.forecast_model)
+    mode_models = complete_mode_models(mode_fits)
+    models, model_names, model_notes = forecast_models(fits, mode_models, settings.forecast_model)
     detail = expected_future_returns(shaped.fit_suspensions, models)
     forecast = forecast_by_month(detail)
-    mode_models = complete_mode_models(mode_fits)
     by_mode = life_model_by_mode_table(
         mode_fits, expected_future_returns_by_mode(shaped.fit_suspensions, mode_models)
     )
@@ -185,15 +186,15 @@ def run_nightly(config: RunConfig) -> RunResult:
 
 
 def forecast_models(
-    fits: Mapping[str, ProductFit], mode_fits: Mapping[str, tuple[ModeFit, ...]], forecast_model: str
+    fits: Mapping[str, ProductFit], complete_modes: Mapping[str, Mapping[str, WeibullFit]], forecast_model: str
 ) -> tuple[dict[str, LifeDistribution], dict[str, str], list[str]]:
     """The life model each product's forecast uses, its name, and notes where the configured one is missing.
 
     "weibull": the product's published Weibull fit. "lognormal": the lognormal alternative, else the
     Weibull. "failure_modes": the competing-risks product of the modes' Weibulls when every mode has a
-    published fit, else the Weibull. A product without any usable model is left out (no forecast).
+    published fit (`complete_modes`, from failure_modes.complete_mode_models), else the Weibull. A
+    product without any usable model is left out (no forecast).
     """
-    complete_modes = complete_mode_models(mode_fits)
     models: dict[str, LifeDistribution] = {}
     names: dict[str, str] = {}
     notes: list[str] = []

@@ -17,19 +17,9 @@ from pipeline.fitting import (
     life_model_table,
 )
 from pipeline.life_model import LifeData
+from simulated_data import simulated_life_data  # tests/ is on sys.path under pytest
 
 pytestmark = pytest.mark.filterwarnings("error")
-
-
-def simulated(seed=3, n=40_000, shape=1.6, scale=150.0, warranty=24):
-    # common practice, no source: staggered sales, monthly intervals, warranty limit
-    rng = np.random.default_rng(seed)
-    window = np.minimum(rng.integers(1, 37, size=n), warranty).astype(float)
-    life = scale * rng.weibull(shape, size=n)
-    failed = life <= window
-    months, returns = np.unique(np.ceil(life[failed]), return_counts=True)
-    ages, counts = np.unique(window[~failed], return_counts=True)
-    return LifeData.from_monthly_returns(months, returns.astype(float), ages, counts.astype(float))
 
 
 THIN = LifeData.from_monthly_returns([2, 5, 9], [1, 1, 1], [6.0, 12.0, 24.0], [300.0, 300.0, 300.0])
@@ -60,7 +50,7 @@ def test_unidentifiable_data_is_reported_or_falls_back_on_the_configured_shape()
 
 
 def test_life_model_table_has_bounds_diagnostics_and_statuses():
-    data = {"GOOD": simulated(), "THIN": THIN}
+    data = {"GOOD": simulated_life_data(3, 40_000, 1.6, 150.0), "THIN": THIN}
     fits = fit_products(data, LifeModelSettings(), {"GOOD": 24, "THIN": 24})
     table = life_model_table(fits, {"GOOD": 40_000.0, "THIN": 900.0}).set_index("product")
     assert list(table.reset_index().columns) == list(LIFE_MODEL_COLUMNS)

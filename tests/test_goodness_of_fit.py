@@ -21,42 +21,15 @@ from pipeline.goodness_of_fit import (
 )
 from pipeline.life_model import LifeData, WeibullFitter, weibull_log_survival
 from pipeline.lognormal_model import LognormalFitter
+from simulated_data import lognormal_life, simulate_warranty, weibull_life  # tests/ is on sys.path
 
 pytestmark = pytest.mark.filterwarnings("error")
 
-DAYS_PER_MONTH = 365.25 / 12
 
 
 # ---------------------------------------------------------------------------------------------
 # helpers
 # ---------------------------------------------------------------------------------------------
-
-
-def simulate_warranty(
-    rng: np.random.Generator,
-    n_units: int,
-    draw_life,
-    max_months: float = 36.0,
-    warranty_months: float = 24.0,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Staggered shipments with ages in whole days (so most suspensions sit inside a month): a
-    failure inside the observation window min(age, warranty) is a return in month ceil(life),
-    otherwise the unit is a suspension at that window. Returns (months, returns, ages, counts)."""
-    age = np.round(rng.uniform(0.0, max_months, size=n_units) * DAYS_PER_MONTH) / DAYS_PER_MONTH
-    window = np.minimum(age, warranty_months)
-    life = draw_life(rng, n_units)
-    failed = life <= window
-    months, returns = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
-    ages, counts = np.unique(window[~failed], return_counts=True)
-    return months, returns.astype(float), ages.astype(float), counts.astype(float)
-
-
-def weibull_life(shape: float, scale: float):
-    return lambda rng, n: scale * rng.weibull(shape, size=n)
-
-
-def lognormal_life(mu: float, sigma: float):
-    return lambda rng, n: np.exp(mu + sigma * rng.standard_normal(n))
 
 
 def small_example() -> LifeData:
@@ -120,7 +93,7 @@ def test_expected_equals_observed_for_exact_weibull_counts():
 def test_lognormal_fit_callable_is_accepted():
     # common practice, no source: the lognormal log R(0) = 0 is handled, totals add up
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(3), 5_000, lognormal_life(math.log(60.0), 1.2))
+        *simulate_warranty(np.random.default_rng(3), 5_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
     )
     fit = LognormalFitter().fit(data)
     result = goodness_of_fit(data, fit.log_survival)
@@ -147,7 +120,7 @@ def test_pooling_rule():
 
 def test_pooled_cells_meet_minimum():
     # common practice, no source: every pooled cell has expected >= min_expected
-    data = LifeData.from_monthly_returns(*simulate_warranty(np.random.default_rng(8), 1_500, weibull_life(1.3, 60.0)))
+    data = LifeData.from_monthly_returns(*simulate_warranty(np.random.default_rng(8), 1_500, weibull_life(1.3, 60.0), ages_in_days=True))
     fit = WeibullFitter().fit(data)
     for minimum in (1.0, 5.0, 20.0):
         result = goodness_of_fit(data, fit.log_survival, min_expected=minimum)
@@ -179,7 +152,7 @@ def test_pearson_p_values_calibrated_under_the_weibull():
     p_chi, p_dev = [], []
     for seed in range(200):
         data = LifeData.from_monthly_returns(
-            *simulate_warranty(np.random.default_rng(1000 + seed), 2_000, weibull_life(1.3, 60.0))
+            *simulate_warranty(np.random.default_rng(1000 + seed), 2_000, weibull_life(1.3, 60.0), ages_in_days=True)
         )
         fit = WeibullFitter().fit(data)
         result = goodness_of_fit(data, fit.log_survival)
@@ -197,7 +170,7 @@ def test_wrong_family_is_rejected():
     # common practice, no source: lognormal truth (median 60 months, sigma 1.2, 50,000 units)
     # fitted with a Weibull is rejected; the lognormal fit of the same data is not
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(5), 50_000, lognormal_life(math.log(60.0), 1.2))
+        *simulate_warranty(np.random.default_rng(5), 50_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
     )
     weibull = goodness_of_fit(data, WeibullFitter().fit(data).log_survival)
     assert weibull.chi_square_p_value < 1e-10  # measured 2e-36
@@ -257,7 +230,7 @@ def test_deviance_never_negative():
     # common practice, no source: G^2 >= 0 (clamped where suspensions inside months could push it below)
     for seed in range(20):
         data = LifeData.from_monthly_returns(
-            *simulate_warranty(np.random.default_rng(seed), 300, weibull_life(2.5, 30.0))
+            *simulate_warranty(np.random.default_rng(seed), 300, weibull_life(2.5, 30.0), ages_in_days=True)
         )
         fit = WeibullFitter().fit(data)
         assert goodness_of_fit(data, fit.log_survival).deviance >= 0.0

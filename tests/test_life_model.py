@@ -35,6 +35,7 @@ from pipeline.life_model import (
 )
 import reference_values as ref  # tests/reference_values.py (tests/ is on sys.path under pytest)
 from reference_values import reference_life_data
+from simulated_data import mixed_life_data, simulate_warranty, simulated_life_data, weibull_life
 
 pytestmark = pytest.mark.filterwarnings("error")
 
@@ -43,44 +44,6 @@ pytestmark = pytest.mark.filterwarnings("error")
 # ---------------------------------------------------------------------------------------------
 # helpers
 # ---------------------------------------------------------------------------------------------
-
-
-def simulate_warranty(
-    rng: np.random.Generator,
-    n_units: int,
-    shape: float,
-    scale: float,
-    max_months: int = 36,
-    warranty_months: int = 24,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Staggered shipments: each unit has 1..max_months months in service; a failure within the
-    warranty window is a return in month in service ceil(life), otherwise the unit is a suspension
-    at min(months in service, warranty). Returns (months, returns, suspension ages, counts)."""
-    months_in_service = rng.integers(1, max_months + 1, size=n_units)
-    life = scale * rng.weibull(shape, size=n_units)
-    window = np.minimum(months_in_service, warranty_months)
-    failed = life <= window
-    months, returns = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
-    ages, counts = np.unique(window[~failed], return_counts=True)
-    return months, returns.astype(float), ages.astype(float), counts.astype(float)
-
-
-def simulated_life_data(seed: int, n_units: int, shape: float, scale: float, **kw) -> LifeData:
-    rng = np.random.default_rng(seed)
-    return LifeData.from_monthly_returns(*simulate_warranty(rng, n_units, shape, scale, **kw))
-
-
-def mixed_life_data() -> LifeData:
-    """All three kinds of rows, fractional counts, lower = 0 intervals and zero-count rows."""
-    return LifeData(
-        exact_ages=[0.5, 3.2, 7.0, 11.0],
-        exact_counts=[1.0, 2.5, 0.0, 1.0],
-        interval_lower=[0.0, 0.0, 1.0, 2.0, 5.0, 9.5, 20.0],
-        interval_upper=[1.0, 2.5, 2.0, 3.0, 6.0, 10.0, 30.0],
-        interval_counts=[3.0, 0.0, 4.5, 2.0, 1.0, 0.25, 2.0],
-        suspension_ages=[0.0, 4.0, 6.0, 12.0, 24.0, 36.0],
-        suspension_counts=[5.0, 10.0, 0.0, 20.0, 30.5, 40.0],
-    )
 
 
 def scipy_log_likelihood(data: LifeData, shape: float, scale: float) -> float:
@@ -165,7 +128,7 @@ def _tight_fmin(func, x0, args=(), disp=0):
 
 def test_grouped_fit_matches_scipy_censored_fit():
     # reference library: scipy.stats.weibull_min.fit with CensoredData, counts expanded by numpy.repeat
-    months, returns, ages, counts = simulate_warranty(np.random.default_rng(20240601), 4000, 1.3, 60.0)
+    months, returns, ages, counts = simulate_warranty(np.random.default_rng(20240601), 4000, weibull_life(1.3, 60.0))
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     assert data.n_returns > 500  # enough returns for a well-determined fit
     fit = WeibullFitter().fit(data)
@@ -371,7 +334,7 @@ def test_life_data_validation(kwargs, message):
 
 
 def test_inputs_are_copied_not_mutated():
-    months, returns, ages, counts = simulate_warranty(np.random.default_rng(1), 1000, 1.2, 40.0)
+    months, returns, ages, counts = simulate_warranty(np.random.default_rng(1), 1000, weibull_life(1.2, 40.0))
     originals = [a.copy() for a in (months, returns, ages, counts)]
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     WeibullFitter().fit(data)
@@ -469,7 +432,7 @@ def test_wald_coverage_of_shape_is_near_nominal():
     fitter = WeibullFitter()
     hits = 0
     for _ in range(200):
-        fit = fitter.fit(LifeData.from_monthly_returns(*simulate_warranty(rng, 1500, 1.5, 40.0)))
+        fit = fitter.fit(LifeData.from_monthly_returns(*simulate_warranty(rng, 1500, weibull_life(1.5, 40.0))))
         lower, upper = fit.shape_bounds()
         hits += lower <= 1.5 <= upper
     assert 0.90 <= hits / 200 <= 0.99

@@ -22,6 +22,7 @@ from pipeline.lognormal_model import (
     compare_families,
     lognormal_log_likelihood,
 )
+from simulated_data import lognormal_life, mixed_life_data, simulate_warranty, weibull_life  # tests/ on sys.path
 
 pytestmark = pytest.mark.filterwarnings("error")
 
@@ -29,46 +30,6 @@ pytestmark = pytest.mark.filterwarnings("error")
 # ---------------------------------------------------------------------------------------------
 # helpers
 # ---------------------------------------------------------------------------------------------
-
-
-def simulate_warranty(
-    rng: np.random.Generator,
-    n_units: int,
-    draw_life,
-    max_months: int = 36,
-    warranty_months: int = 24,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Staggered shipments: each unit has 1..max_months whole months in service; a failure inside
-    the warranty window is a return in month ceil(life), otherwise the unit is a suspension at
-    min(months in service, warranty). Returns (months, returns, suspension ages, counts)."""
-    months_in_service = rng.integers(1, max_months + 1, size=n_units)
-    life = draw_life(rng, n_units)
-    window = np.minimum(months_in_service, warranty_months)
-    failed = life <= window
-    months, returns = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
-    ages, counts = np.unique(window[~failed], return_counts=True)
-    return months, returns.astype(float), ages.astype(float), counts.astype(float)
-
-
-def lognormal_life(mu: float, sigma: float):
-    return lambda rng, n: np.exp(mu + sigma * rng.standard_normal(n))
-
-
-def weibull_life(shape: float, scale: float):
-    return lambda rng, n: scale * rng.weibull(shape, size=n)
-
-
-def mixed_life_data() -> LifeData:
-    """All three kinds of rows, fractional counts, lower = 0 intervals, zero-count rows, an age-0 suspension."""
-    return LifeData(
-        exact_ages=[0.5, 3.2, 7.0, 11.0],
-        exact_counts=[1.0, 2.5, 0.0, 1.0],
-        interval_lower=[0.0, 0.0, 1.0, 2.0, 5.0, 9.5, 20.0],
-        interval_upper=[1.0, 2.5, 2.0, 3.0, 6.0, 10.0, 30.0],
-        interval_counts=[3.0, 0.0, 4.5, 2.0, 1.0, 0.25, 2.0],
-        suspension_ages=[0.0, 4.0, 6.0, 12.0, 24.0, 36.0],
-        suspension_counts=[5.0, 10.0, 0.0, 20.0, 30.5, 40.0],
-    )
 
 
 def scipy_log_likelihood(data: LifeData, mu: float, sigma: float) -> float:
