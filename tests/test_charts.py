@@ -7,9 +7,9 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 
-from pipeline import charts
-from pipeline.life_model import LifeData, WeibullFitter
-from pipeline.life_table import life_table
+from warranty_forecast import charts
+from warranty_forecast.life_model import LifeData, WeibullFitter
+from warranty_forecast.life_table import life_table
 
 
 def matrix():

@@ -13,8 +13,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from pipeline import exit_codes
-from pipeline.cli import main
+from warranty_forecast import exit_codes
+from warranty_forecast.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "data_demo"
@@ -118,7 +118,7 @@ def test_missing_required_column_fails_cleanly_and_keeps_previous_outputs(demo_o
 
 
 def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
-    import pipeline.publish as publish
+    import warranty_forecast.publish as publish
 
     def explode(*_args, **_kwargs):
         raise RuntimeError("disk on fire")
@@ -164,8 +164,8 @@ def test_refuses_to_replace_a_folder_that_is_not_an_output(tmp_path):
 
 
 def test_module_entry_point_runs():
-    # the console script and `python -m pipeline` share main(); check the module form starts
-    result = subprocess.run([sys.executable, "-m", "pipeline", "--help"], capture_output=True, text=True, cwd=ROOT)
+    # the console script and `python -m warranty_forecast` share main(); check the module form starts
+    result = subprocess.run([sys.executable, "-m", "warranty_forecast", "--help"], capture_output=True, text=True, cwd=ROOT)
     assert result.returncode == 0 and "demo-data" in result.stdout
 
 

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.config import load_config, parse_date
-from pipeline.errors import ConfigError
+from warranty_forecast.config import load_config, parse_date
+from warranty_forecast.errors import ConfigError
 
 
 def config_from(tmp_path: Path, text: str | None):

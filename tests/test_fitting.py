@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from pipeline.config import LifeModelSettings
-from pipeline.fitting import (
+from warranty_forecast.config import LifeModelSettings
+from warranty_forecast.fitting import (
     FITTED,
     FIXED_SHAPE,
     INSUFFICIENT_DATA,
@@ -16,7 +16,7 @@ from pipeline.fitting import (
     fit_weibull,
     life_model_table,
 )
-from pipeline.life_model import LifeData
+from warranty_forecast.life_model import LifeData
 from simulated_data import simulated_life_data  # tests/ is on sys.path under pytest
 
 pytestmark = pytest.mark.filterwarnings("error")

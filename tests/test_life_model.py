@@ -1,4 +1,4 @@
-"""Tests of the grouped, censored Weibull life model (pipeline.life_model).
+"""Tests of the grouped, censored Weibull life model (warranty_forecast.life_model).
 
 Every external check names its source beside it. Reference numbers live in tests/reference_values.py.
 Every test in this module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...)
@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
 
-from pipeline.errors import FitError
-from pipeline.life_model import (
+from warranty_forecast.errors import FitError
+from warranty_forecast.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,

@@ -1,4 +1,4 @@
-"""Tests of the grouped, censored lognormal life model (pipeline.lognormal_model).
+"""Tests of the grouped, censored lognormal life model (warranty_forecast.lognormal_model).
 
 Every external check names its source beside it. All simulations are seeded. Every test in this
 module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...) fails it.
@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from pipeline.errors import FitError
-from pipeline.life_model import FitNotConvergedError, InsufficientDataError, LifeData, WeibullFitter
-from pipeline.lognormal_model import (
+from warranty_forecast.errors import FitError
+from warranty_forecast.life_model import FitNotConvergedError, InsufficientDataError, LifeData, WeibullFitter
+from warranty_forecast.lognormal_model import (
     FamilyComparison,
     LognormalFit,
     LognormalFitter,

@@ -1,5 +1,5 @@
 """Tests of likelihood-ratio (profile likelihood) bounds, the fixed-shape fit and UnidentifiableError
-(pipeline.life_model).
+(warranty_forecast.life_model).
 
 Every external check names its source beside it; reference numbers live in tests/reference_values.py.
 Simulations are seeded. Every test in this module turns warnings into errors.
@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from pipeline.errors import FitError
-from pipeline.life_model import (
+from warranty_forecast.errors import FitError
+from warranty_forecast.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,

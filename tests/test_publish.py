@@ -11,8 +11,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 
-from pipeline.errors import OutputError  # noqa: E402
-from pipeline.publish import publish_outputs, sha256_of  # noqa: E402
+from warranty_forecast.errors import OutputError  # noqa: E402
+from warranty_forecast.publish import publish_outputs, sha256_of  # noqa: E402
 
 
 def test_writes_tables_figures_texts_and_manifest_last(tmp_path):

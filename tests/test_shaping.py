@@ -12,9 +12,9 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from pipeline.config import load_config
-from pipeline.errors import ContractError, InputUnreadableError
-from pipeline.shaping import shape_extracts
+from warranty_forecast.config import load_config
+from warranty_forecast.errors import ContractError, InputUnreadableError
+from warranty_forecast.shaping import shape_extracts
 
 SHIPMENT_HEADER = "product,build_month,ship_date,sale_date,units,warranty_months,serial"
 CLAIM_HEADER = "claim_id,product,build_month,sale_date,failure_date,claim_date,cost,status,failure_code,serial"

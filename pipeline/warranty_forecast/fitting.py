@@ -21,10 +21,10 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from pipeline.config import LifeModelSettings
-from pipeline.errors import FitError
-from pipeline.goodness_of_fit import GoodnessOfFit, goodness_of_fit
-from pipeline.life_model import (
+from warranty_forecast.config import LifeModelSettings
+from warranty_forecast.errors import FitError
+from warranty_forecast.goodness_of_fit import GoodnessOfFit, goodness_of_fit
+from warranty_forecast.life_model import (
     InsufficientDataError,
     LifeData,
     LikelihoodRatioBounds,
@@ -33,7 +33,7 @@ from pipeline.life_model import (
     WeibullFitter,
     likelihood_ratio_bounds,
 )
-from pipeline.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
+from warranty_forecast.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
 
 FITTED = "fitted"
 FIXED_SHAPE = "fixed_shape"

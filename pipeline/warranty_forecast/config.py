@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
-from pipeline.errors import ConfigError
+from warranty_forecast.errors import ConfigError
 
 CLAIM_STATUSES: tuple[str, ...] = ("approved", "rejected", "no_fault_found")
 FORECAST_MODELS: tuple[str, ...] = ("weibull", "lognormal", "failure_modes")

@@ -1,4 +1,4 @@
-"""Typed errors the command maps to exit codes (see `pipeline.exit_codes`)."""
+"""Typed errors the command maps to exit codes (see `warranty_forecast.exit_codes`)."""
 
 from __future__ import annotations
 

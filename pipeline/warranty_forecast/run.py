@@ -16,10 +16,10 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from pipeline import charts
-from pipeline.config import RunConfig
-from pipeline.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
-from pipeline.fitting import (
+from warranty_forecast import charts
+from warranty_forecast.config import RunConfig
+from warranty_forecast.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
+from warranty_forecast.fitting import (
     FITTED,
     FIXED_SHAPE,
     PUBLISHED_STATUSES,
@@ -28,19 +28,19 @@ from pipeline.fitting import (
     life_data_by_product,
     life_model_table,
 )
-from pipeline.forecast import (
+from warranty_forecast.forecast import (
     CompetingRisks,
     LifeDistribution,
     expected_future_returns,
     expected_future_returns_by_mode,
     forecast_by_month,
 )
-from pipeline.life_model import WeibullFit
-from pipeline.life_table import life_table
-from pipeline.publish import publish_outputs, sha256_of
-from pipeline.report import render_report
-from pipeline.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
-from pipeline.shaping import shape_extracts
+from warranty_forecast.life_model import WeibullFit
+from warranty_forecast.life_table import life_table
+from warranty_forecast.publish import publish_outputs, sha256_of
+from warranty_forecast.report import render_report
+from warranty_forecast.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+from warranty_forecast.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
 

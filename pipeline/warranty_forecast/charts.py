@@ -17,7 +17,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from pipeline.life_model import WeibullFit  # noqa: E402
+from warranty_forecast.life_model import WeibullFit  # noqa: E402
 
 _PER_THOUSAND = 1000.0
 

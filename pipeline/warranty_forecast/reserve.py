@@ -19,7 +19,7 @@ from typing import Collection, Iterable, Mapping
 import numpy as np
 import pandas as pd
 
-from pipeline.config import ReserveSettings
+from warranty_forecast.config import ReserveSettings
 
 RESERVE_COLUMNS = (
     "product",

@@ -17,9 +17,9 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from pipeline.config import LifeModelSettings
-from pipeline.fitting import PUBLISHED_STATUSES, fit_weibull
-from pipeline.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
+from warranty_forecast.config import LifeModelSettings
+from warranty_forecast.fitting import PUBLISHED_STATUSES, fit_weibull
+from warranty_forecast.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
 
 OTHER = "other"
 

@@ -52,7 +52,7 @@ import numpy as np
 import numpy.typing as npt
 from scipy import optimize, special, stats
 
-from pipeline.errors import FitError
+from warranty_forecast.errors import FitError
 
 if TYPE_CHECKING:
     import pandas as pd

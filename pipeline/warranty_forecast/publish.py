@@ -23,7 +23,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from matplotlib.figure import Figure
 
-from pipeline.errors import OutputError
+from warranty_forecast.errors import OutputError
 
 log = logging.getLogger(__name__)
 

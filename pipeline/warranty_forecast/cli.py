@@ -1,7 +1,7 @@
-"""Command line of the pipeline: `warranty-forecast run | demo-data | bench` (also `python -m pipeline`).
+"""Command line of the pipeline: `warranty-forecast run | demo-data | bench` (also `python -m warranty_forecast`).
 
 Logging is configured here only (stderr, one line per stage). Known errors map to the exit codes of
-`pipeline.exit_codes` with one clear log line; anything else is logged with its traceback and exits 1.
+`warranty_forecast.exit_codes` with one clear log line; anything else is logged with its traceback and exits 1.
 """
 
 from __future__ import annotations
@@ -12,9 +12,9 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
-from pipeline import exit_codes
-from pipeline.config import load_config, parse_date
-from pipeline.errors import (
+from warranty_forecast import exit_codes
+from warranty_forecast.config import load_config, parse_date
+from warranty_forecast.errors import (
     ConfigError,
     ContractError,
     InputUnreadableError,
@@ -22,7 +22,7 @@ from pipeline.errors import (
     PipelineError,
 )
 
-log = logging.getLogger("pipeline")
+log = logging.getLogger("warranty_forecast")
 
 DEFAULT_OUT = Path("reports") / "latest"
 
@@ -61,7 +61,7 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
 
     bench = commands.add_parser(
-        "bench", help="benchmark the grouped fit against per-unit fits (options: see python -m pipeline.bench -h)"
+        "bench", help="benchmark the grouped fit against per-unit fits (options: see python -m warranty_forecast.bench -h)"
     )
 
     demo = commands.add_parser("demo-data", help="write the seeded demo extracts")
@@ -73,8 +73,8 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point; returns the process exit code."""
     argv = list(sys.argv[1:] if argv is None else argv)
-    if argv[:1] == ["bench"]:  # the benchmark has its own options (python -m pipeline.bench -h)
-        from pipeline.bench import main as bench_main
+    if argv[:1] == ["bench"]:  # the benchmark has its own options (python -m warranty_forecast.bench -h)
+        from warranty_forecast.bench import main as bench_main
 
         return bench_main(argv[1:])
     parser = build_parser()
@@ -103,7 +103,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _run(arguments: argparse.Namespace) -> int:
-    from pipeline.run import run_nightly
+    from warranty_forecast.run import run_nightly
 
     as_of = parse_date(arguments.as_of, "--as-of") if arguments.as_of else None
     config = load_config(
@@ -119,7 +119,7 @@ def _run(arguments: argparse.Namespace) -> int:
 
 
 def _demo_data(arguments: argparse.Namespace) -> int:
-    from pipeline.demo_data import write_demo_data
+    from warranty_forecast.demo_data import write_demo_data
 
     demo = write_demo_data(arguments.out, seed=arguments.seed)
     log.info(

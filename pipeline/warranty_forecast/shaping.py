@@ -15,6 +15,7 @@ Layers, in the order they run (each model is one file; its table is named after 
 from __future__ import annotations
 
 import datetime as dt
+from importlib import resources
 import logging
 import re
 import time
@@ -25,12 +26,14 @@ from typing import Any, Mapping
 import duckdb
 import pandas as pd
 
-from pipeline.config import RunConfig
-from pipeline.errors import ContractError, InputUnreadableError
+from warranty_forecast.config import RunConfig
+from warranty_forecast.errors import ContractError, InputUnreadableError
 
 log = logging.getLogger(__name__)
 
-SQL_DIR = Path(__file__).resolve().parent.parent / "sql"
+# The SQL models ship inside the package (`warranty_forecast.sql`, mapped from the top-level sql/ folder
+# that people edit); an editable install reads that folder itself.
+SQL_PACKAGE = "warranty_forecast.sql"
 
 
 @dataclass(frozen=True)
@@ -101,7 +104,7 @@ class ShapedData:
 
 def read_model_sql(model: str) -> str:
     """The text of one SQL model, e.g. ``read_model_sql("staging/stg_claims")``."""
-    return (SQL_DIR / f"{model}.sql").read_text(encoding="utf-8")
+    return resources.files(SQL_PACKAGE).joinpath(f"{model}.sql").read_text(encoding="utf-8")
 
 
 def run_model(
