@@ -25,3 +25,11 @@ class OutputError(PipelineError):
 
 class FitError(PipelineError):
     """A life-model fit failed; the message says why and what to try."""
+
+
+class QuarantineCeilingError(PipelineError):
+    """An extract has more quarantined rows than the configured ceiling allows; nothing is published."""
+
+
+class AlreadyRunningError(PipelineError):
+    """Another run holds the lock on the same output folder."""
