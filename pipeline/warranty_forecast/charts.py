@@ -18,6 +18,7 @@ import pandas as pd  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 from warranty_forecast.life_model import WeibullFit  # noqa: E402
+from warranty_forecast.safe_text import chart_text  # noqa: E402
 
 _PER_THOUSAND = 1000.0
 
@@ -48,7 +49,7 @@ def return_rate_heatmap(age_in_service: pd.DataFrame) -> Figure:
         ).sort_index()
         values = np.ma.masked_invalid(matrix.to_numpy(dtype=float) * _PER_THOUSAND)
         image = axis.imshow(values, aspect="auto", interpolation="nearest", cmap="magma_r", origin="upper")
-        axis.set_title(f"{product}: returns per 1,000 at risk")
+        axis.set_title(f"{chart_text(product)}: returns per 1,000 at risk")
         axis.set_xlabel("months in service")
         axis.set_ylabel("build month")
         columns = matrix.columns.to_numpy()
@@ -108,7 +109,7 @@ def weibull_probability_plot(
                 axis.plot(grid, _weibull_scale(alternative.cdf(grid)), color="#5c677d", linestyle="--",
                           linewidth=1.0, label="lognormal alternative")
         axis.set_xscale("log")
-        axis.set_title(product)
+        axis.set_title(chart_text(product))
         axis.set_xlabel("months in service (log scale)")
         axis.set_ylabel("log(-log(1 - fraction failed))")
         _fraction_ticks(axis)
@@ -144,7 +145,7 @@ def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
     bottom = np.zeros(len(table))
     for product in table.columns:
         values = table[product].to_numpy(dtype=float)
-        axis.bar(months, values, bottom=bottom, width=25, label=product)
+        axis.bar(months, values, bottom=bottom, width=25, label=chart_text(product))
         bottom += values
     axis.set_title("Expected future returns by calendar month")
     axis.set_xlabel("calendar month")
@@ -165,9 +166,9 @@ def failure_mode_pareto(returns_by_failure_mode: pd.DataFrame) -> Figure:
         counts = rows["returns"].to_numpy(dtype=float)
         positions = np.arange(len(rows))
         axis.bar(positions, counts, color="#1b4965")
-        axis.set_xticks(positions, rows["failure_mode"].tolist(), rotation=35, ha="right", fontsize=8)
+        axis.set_xticks(positions, [chart_text(m, 30) for m in rows["failure_mode"]], rotation=35, ha="right", fontsize=8)
         axis.set_ylabel("returns to date")
-        axis.set_title(product)
+        axis.set_title(chart_text(product))
         share = axis.twinx()
         share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color="#c0392b", marker="o", markersize=3.5)
         share.set_ylim(0, 105)

@@ -10,6 +10,8 @@ from typing import Any, Mapping
 
 import pandas as pd
 
+from warranty_forecast.safe_text import markdown_text
+
 CAUTIONS = (
     "Reserve figures are statistical estimates (expected future returns x cost per claim, undiscounted, "
     "no inflation, no prediction interval yet). They are for review by finance and auditors before anything "
@@ -36,6 +38,15 @@ def _money(value: Any) -> str:
     return f"{value:,.2f}"
 
 
+def _text_escaped(frame: pd.DataFrame) -> pd.DataFrame:
+    """A copy of `frame` whose text cells are escaped for Markdown (numbers and missing values untouched)."""
+    escaped = frame.copy()
+    for column in escaped.columns:
+        if pd.api.types.is_object_dtype(escaped[column]) or pd.api.types.is_string_dtype(escaped[column]):
+            escaped[column] = escaped[column].map(lambda v: markdown_text(v) if isinstance(v, str) else v)
+    return escaped
+
+
 def _table(frame: pd.DataFrame) -> str:
     header = "| " + " | ".join(frame.columns) + " |"
     rule = "|" + "|".join("---" for _ in frame.columns) + "|"
@@ -53,7 +64,12 @@ def render_report(
     quarantine: pd.DataFrame,
     warnings: list[str],
 ) -> str:
-    """The run report as Markdown."""
+    """The run report as Markdown. Text that comes from the data (product names, failure codes, file
+    names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
+    life_model, life_model_by_mode, reserve_totals, reconciliation, quarantine = (
+        _text_escaped(frame) for frame in (life_model, life_model_by_mode, reserve_totals, reconciliation, quarantine)
+    )
+    warnings = [markdown_text(text) for text in warnings]
     lines = [
         f"# Warranty returns forecast — as of {manifest['as_of_date']}",
         "",
