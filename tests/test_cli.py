@@ -5,16 +5,20 @@ The demo data's true parameters come from its own seeded generator (data_demo/tr
 
 from __future__ import annotations
 
+import datetime as dt
 import json
+import logging
 import subprocess
 import sys
+from importlib import metadata
 from pathlib import Path
 
 import pandas as pd
 import pytest
 
-from warranty_forecast import exit_codes
-from warranty_forecast.cli import main
+import warranty_forecast.run as run_module
+from warranty_forecast import __version__, exit_codes
+from warranty_forecast.cli import EXIT_CODE_HELP, build_parser, configure_logging, main
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "data_demo"
@@ -43,7 +47,8 @@ def demo_out(tmp_path_factory) -> Path:
 
 def test_demo_run_writes_every_output(demo_out):
     assert {p.name for p in demo_out.iterdir()} == EXPECTED_FILES
-    assert not [p for p in demo_out.parent.iterdir() if p.name.startswith(".")]  # no leftovers
+    assert [p.name for p in demo_out.parent.iterdir() if p.name.startswith(".")] == [".out.lock"]  # no leftovers
+    assert json.loads((demo_out / "manifest.json").read_text())["producer"]["name"] == "warranty-forecast"
     manifest = json.loads((demo_out / "manifest.json").read_text())
     assert manifest["as_of_date"] == "2026-11-30"
     assert set(manifest["outputs"]) == EXPECTED_FILES - {"manifest.json"}
@@ -60,7 +65,9 @@ def test_demo_run_writes_every_output(demo_out):
 def test_quarantine_is_exactly_the_planted_rows(demo_out):
     planted = pd.read_csv(DEMO / "planted_defects.csv")
     quarantine = pd.read_parquet(demo_out / "quarantine.parquet")
-    got = set(zip(quarantine["source_file"], quarantine["row_number"], quarantine["column"], quarantine["reason"]))
+    # source_file is the extract's absolute path; the planted list names files
+    names = [Path(source_file).name for source_file in quarantine["source_file"]]
+    got = set(zip(names, quarantine["row_number"], quarantine["column"], quarantine["reason"]))
     want = set(zip(planted["source_file"], planted["row_number"], planted["column"], planted["reason"]))
     assert got == want
 
@@ -114,7 +121,7 @@ def test_missing_required_column_fails_cleanly_and_keeps_previous_outputs(demo_o
     code = main(["run", "--shipments", str(SHIPMENTS), "--claims", str(broken), "--out", str(demo_out)])
     assert code == exit_codes.INPUT_CONTRACT
     assert (demo_out / "manifest.json").read_bytes() == manifest_before
-    assert not [p for p in demo_out.parent.iterdir() if p.name.startswith(".")]
+    assert [p.name for p in demo_out.parent.iterdir() if p.name.startswith(".")] == [".out.lock"]
 
 
 def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
@@ -126,7 +133,7 @@ def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
     monkeypatch.setattr(publish, "_swap_into_place", explode)
     out = tmp_path / "out"
     assert run("--out", str(out)) == exit_codes.UNEXPECTED_ERROR
-    assert list(tmp_path.iterdir()) == []
+    assert [p.name for p in tmp_path.iterdir()] == [".out.lock"]  # the lock file stays, by design
 
 
 @pytest.mark.parametrize(
@@ -215,3 +222,126 @@ def test_forecast_model_choice(tmp_path, demo_out, forecast_model):
         assert totals.loc[product, "forecast_status"] == f"forecast ({expected_name})"
         ratio = totals.loc[product, "expected_future_returns"] / weibull.loc[product, "expected_future_returns"]
         assert 0.5 < ratio < 2.0 and ratio != 1.0
+
+
+def _exit_code(args: list[str]) -> int:
+    try:
+        return main(args)
+    except SystemExit as exit_:  # argparse exits for bad arguments, --help and --version
+        return exit_.code
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["run", "--shipment", str(SHIPMENTS), "--claims", str(CLAIMS)],  # the operator's case
+        ["run", "--shipments", str(SHIPMENTS), "--claim", str(CLAIMS)],
+        ["--verb", "demo-data"],
+        ["demo-data", "--se", "7"],
+        ["bench", "--size", "2000"],  # the benchmark's own parser too
+    ],
+)
+def test_abbreviated_options_are_refused(args, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # nothing may be written, but if it were, not into the repository
+    assert _exit_code(args) == exit_codes.BAD_ARGUMENTS
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize(
+    ("args", "verbose"),
+    [
+        (["run", "--shipments", "s", "--claims", "c"], False),
+        (["-v", "run", "--shipments", "s", "--claims", "c"], True),
+        (["run", "-v", "--shipments", "s", "--claims", "c"], True),
+        (["run", "--shipments", "s", "--claims", "c", "--verbose"], True),
+        (["demo-data", "-v"], True),
+        (["bench", "-v", "--sizes", "10"], True),
+    ],
+)
+def test_verbose_before_or_after_the_command(args, verbose):
+    arguments, _rest = build_parser().parse_known_args(args)
+    assert arguments.verbose is verbose
+
+
+def test_verbose_after_the_command_logs_debug(tmp_path, monkeypatch):
+    def stand_in(config):
+        return run_module.RunResult(config.out_dir, dt.date(2026, 11, 30), {}, ())
+
+    monkeypatch.setattr(run_module, "run_nightly", stand_in)
+    assert run("-v", "--out", str(tmp_path / "o")) == exit_codes.SUCCESS
+    assert logging.getLogger().level == logging.DEBUG
+
+
+def test_version_is_the_package_version(capsys):
+    assert _exit_code(["--version"]) == exit_codes.SUCCESS
+    assert capsys.readouterr().out == f"warranty-forecast {__version__}\n"
+    assert __version__ == metadata.version("warranty-forecast")
+
+
+def test_help_lists_every_exit_code(capsys):
+    assert _exit_code(["--help"]) == exit_codes.SUCCESS
+    main_help = capsys.readouterr().out
+    assert _exit_code(["run", "--help"]) == exit_codes.SUCCESS
+    run_help = capsys.readouterr().out
+    constants = {
+        name: value for name, value in vars(exit_codes).items() if name.isupper() and isinstance(value, int)
+    }
+    assert set(constants) == set(EXIT_CODE_HELP)  # a new code needs its line in --help
+    for text in (main_help, run_help):
+        listed = text[text.index("exit codes:"):].splitlines()[1:]
+        assert len(listed) == len(constants)
+        for name, value in constants.items():
+            label = f"{value}+N" if name == "INTERRUPTED_BASE" else str(value)
+            assert f"  {label:<6} {EXIT_CODE_HELP[name]}" in listed
+    assert "130 SIGINT, 143 SIGTERM" in main_help
+
+
+def test_verbose_bench_runs_the_benchmark(capsys):
+    # used to crash: `-v` before `bench` sent the benchmark's arguments to the demo-data command
+    args = ["-v", "bench", "--sizes", "2000", "--repeats", "1", "--skip-per-unit-above", "1000"]
+    assert main(args) == exit_codes.SUCCESS
+    captured = capsys.readouterr()
+    assert "Targets" in captured.out and "2,000" in captured.out
+    assert "DEBUG" in captured.err  # -v reached the logging set-up
+
+
+def test_bench_help_is_the_benchmarks_own(capsys):
+    assert _exit_code(["bench", "-h"]) == exit_codes.SUCCESS
+    assert "--skip-per-unit-above" in capsys.readouterr().out
+
+
+FORGED = "QDS-210\n2026-12-01 00:00:00,000 ERROR warranty_forecast: all clear\r\t\x1b[31m\x85\u2028\u2029\x7f"
+
+
+def test_log_records_stay_one_line_whatever_the_data_holds(capsys):
+    configure_logging(verbose=False)
+    logging.getLogger("warranty_forecast.run").warning("product %s: no life model", FORGED)
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1
+    assert err.endswith(
+        "product QDS-210\\n2026-12-01 00:00:00,000 ERROR warranty_forecast: all clear"
+        "\\r\\t\\x1b[31m\\x85\\u2028\\u2029\\x7f: no life model\n"
+    )
+
+
+def test_a_traceback_keeps_its_lines_and_its_message_line_is_escaped(capsys):
+    configure_logging(verbose=False)
+    try:
+        raise ValueError("boom")
+    except ValueError:
+        logging.getLogger("warranty_forecast").exception("unexpected error in %s", "a\nb")
+    lines = capsys.readouterr().err.splitlines()
+    assert lines[0].endswith("unexpected error in a\\nb")
+    assert lines[1] == "Traceback (most recent call last):" and lines[-1] == "ValueError: boom"
+
+
+def test_product_name_from_the_run_cannot_forge_a_log_line(tmp_path, monkeypatch, capsys):
+    def stand_in(config):
+        logging.getLogger("warranty_forecast.run").warning("product %s: no cost per claim", FORGED)
+        return run_module.RunResult(config.out_dir, dt.date(2026, 11, 30), {}, (FORGED,))
+
+    monkeypatch.setattr(run_module, "run_nightly", stand_in)
+    assert run("--out", str(tmp_path / "o")) == exit_codes.SUCCESS
+    lines = capsys.readouterr().err.splitlines()
+    assert len(lines) == 2 and "WARNING warranty_forecast.run: product QDS-210\\n2026" in lines[0]
+    assert "INFO warranty_forecast: done" in lines[1]

@@ -477,6 +477,7 @@ def report(results: Sequence[SizeResult], sim: Simulation, seed: int, repeats: i
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="python -m warranty_forecast.bench",
+        allow_abbrev=False,
         description="Benchmark the grouped Weibull fit against per-unit fits with scipy and lifelines.",
     )
     parser.add_argument(

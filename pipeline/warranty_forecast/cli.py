@@ -1,25 +1,35 @@
 """Command line of the pipeline: `warranty-forecast run | demo-data | bench` (also `python -m warranty_forecast`).
 
-Logging is configured here only (stderr, one line per stage). Known errors map to the exit codes of
-`warranty_forecast.exit_codes` with one clear log line; anything else is logged with its traceback and exits 1.
+Logging is configured here only (stderr, one line per record: control characters in messages are
+escaped). Known errors map to the exit codes of `warranty_forecast.exit_codes` with one clear log
+line; anything else is logged with its traceback and exits 1. SIGINT and SIGTERM stop the run through
+an exception, so every clean-up runs, and exit 128 + the signal number.
+
+`run` checks and locks the output folder before computing anything (see
+`warranty_forecast.publish.lock_output_folder`) and holds the lock until the outputs are published.
 """
 
 from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
+from contextlib import contextmanager
 from pathlib import Path
-from typing import Sequence
+from types import FrameType
+from typing import Iterator, Sequence
 
-from warranty_forecast import exit_codes
+from warranty_forecast import __version__, exit_codes
 from warranty_forecast.config import load_config, parse_date
 from warranty_forecast.errors import (
+    AlreadyRunningError,
     ConfigError,
     ContractError,
     InputUnreadableError,
     OutputError,
     PipelineError,
+    QuarantineCeilingError,
 )
 
 log = logging.getLogger("warranty_forecast")
@@ -31,40 +41,107 @@ _EXIT_CODE_BY_ERROR: tuple[tuple[type[PipelineError], int], ...] = (
     (InputUnreadableError, exit_codes.INPUT_UNREADABLE),
     (ContractError, exit_codes.INPUT_CONTRACT),
     (OutputError, exit_codes.OUTPUT_FAILED),
+    (QuarantineCeilingError, exit_codes.TOO_MANY_QUARANTINED),
+    (AlreadyRunningError, exit_codes.ALREADY_RUNNING),
 )
+
+# What each constant of exit_codes means, for --help; the epilog lists the module's constants in
+# order of value (a constant missing here still shows, by its name; tests/test_cli.py checks none is).
+EXIT_CODE_HELP: dict[str, str] = {
+    "SUCCESS": "success (warnings are in the log, the manifest and the report)",
+    "UNEXPECTED_ERROR": "unexpected error (a bug or the environment): the log has the traceback",
+    "BAD_ARGUMENTS": "bad command-line arguments or configuration file",
+    "INPUT_UNREADABLE": "an input file is missing, unreadable, or not .csv/.parquet",
+    "INPUT_CONTRACT": "an input breaks the contract as a whole (missing column, nothing usable)",
+    "OUTPUT_FAILED": "the outputs could not be written, or --out is a folder this tool must not replace",
+    "TOO_MANY_QUARANTINED": "an extract has more quarantined rows than the configured ceiling",
+    "ALREADY_RUNNING": "another run holds the lock on the same output folder",
+    "INTERRUPTED_BASE": "stopped by signal N (130 SIGINT, 143 SIGTERM); outputs unchanged unless already published",
+}
+
+_STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM)
+
+
+def exit_codes_epilog() -> str:
+    """The exit-code table of --help, generated from the constants of `warranty_forecast.exit_codes`."""
+    constants = sorted(
+        (value, name)
+        for name, value in vars(exit_codes).items()
+        if name.isupper() and isinstance(value, int) and not isinstance(value, bool)
+    )
+    lines = ["exit codes:"]
+    for value, name in constants:
+        label = f"{value}+N" if name.endswith("_BASE") else str(value)  # a base: the code is base + N
+        lines.append(f"  {label:<6} {EXIT_CODE_HELP.get(name, name.lower().replace('_', ' '))}")
+    return "\n".join(lines)
 
 
 class _ArgumentParser(argparse.ArgumentParser):
-    """argparse that exits with BAD_ARGUMENTS (2) and one line on stderr."""
+    """argparse that takes no abbreviated options and exits with BAD_ARGUMENTS (2) and one line on stderr."""
+
+    def __init__(self, *args, **kwargs) -> None:  # type: ignore[no-untyped-def]
+        kwargs["allow_abbrev"] = False
+        super().__init__(*args, **kwargs)
 
     def error(self, message: str) -> None:  # type: ignore[override]
         self.print_usage(sys.stderr)
         self.exit(exit_codes.BAD_ARGUMENTS, f"{self.prog}: error: {message}\n")
 
 
+def _add_verbose(parser: argparse.ArgumentParser, *, after_command: bool) -> None:
+    # after the command the default is SUPPRESS, so a subcommand never resets a -v given before it
+    parser.add_argument(
+        "-v",
+        "--verbose",
+        action="store_true",
+        default=argparse.SUPPRESS if after_command else False,
+        help="log debug detail (before or after the command)",
+    )
+
+
 def build_parser() -> argparse.ArgumentParser:
+    epilog = exit_codes_epilog()
     parser = _ArgumentParser(
         prog="warranty-forecast",
         description="Nightly warranty-returns forecast: validate extracts, fit a Weibull life model, "
         "project returns and the reserve.",
+        epilog=epilog,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("-v", "--verbose", action="store_true", help="log debug detail")
+    _add_verbose(parser, after_command=False)
+    parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     commands = parser.add_subparsers(dest="command", required=True, parser_class=_ArgumentParser)
 
-    run = commands.add_parser("run", help="run the nightly job on a shipments and a claims extract")
+    run = commands.add_parser(
+        "run",
+        help="run the nightly job on a shipments and a claims extract",
+        description="Run the nightly job. The output folder is checked and locked before any computing.",
+        epilog=epilog,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    _add_verbose(run, after_command=True)
     run.add_argument("--shipments", type=Path, required=True, help="shipments extract (.csv or .parquet)")
     run.add_argument("--claims", type=Path, required=True, help="claims extract (.csv or .parquet)")
     run.add_argument("--config", type=Path, default=None, help="TOML settings (see README: Configuration)")
     run.add_argument(
         "--as-of", dest="as_of", default=None, help="as-of date YYYY-MM-DD (default: latest valid claim_date)"
     )
-    run.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
-
-    bench = commands.add_parser(
-        "bench", help="benchmark the grouped fit against per-unit fits (options: see python -m warranty_forecast.bench -h)"
+    run.add_argument(
+        "--out",
+        type=Path,
+        default=DEFAULT_OUT,
+        help=f"output folder (default {DEFAULT_OUT}); a symbolic link is kept and its target replaced",
     )
 
+    bench = commands.add_parser(
+        "bench",
+        add_help=False,  # -h and every other option go on to the benchmark's own parser
+        help="benchmark the grouped fit against per-unit fits (its options: warranty-forecast bench -h)",
+    )
+    _add_verbose(bench, after_command=True)
+
     demo = commands.add_parser("demo-data", help="write the seeded demo extracts")
+    _add_verbose(demo, after_command=True)
     demo.add_argument("--out", type=Path, default=Path("data_demo"), help="folder to write (default data_demo)")
     demo.add_argument("--seed", type=int, default=20261130, help="random seed (default 20261130)")
     return parser
@@ -73,36 +150,130 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point; returns the process exit code."""
     argv = list(sys.argv[1:] if argv is None else argv)
-    if argv[:1] == ["bench"]:  # the benchmark has its own options (python -m warranty_forecast.bench -h)
+    parser = build_parser()
+    arguments, rest = parser.parse_known_args(argv)
+    if rest and arguments.command != "bench":
+        parser.error(f"unrecognized arguments: {' '.join(rest)}")
+    configure_logging(verbose=arguments.verbose)
+    stop = _StopOnSignal()
+    try:
+        with stop.installed():
+            code = _dispatch(arguments, rest)
+    except _Stopped:
+        pass
+    except PipelineError as error:
+        if stop.signum is None:
+            return _exit_code_of(error)
+        log.debug("after the signal the run ended with: %s", error)
+    except Exception as error:  # noqa: BLE001 - the scheduler needs a code, the log needs the traceback
+        if stop.signum is None:
+            log.exception("unexpected error")
+            return exit_codes.UNEXPECTED_ERROR
+        # a library may turn the handler's exception into its own (DuckDB: "Query interrupted")
+        log.debug("after the signal the run ended with: %r", error)
+    if stop.signum is not None:
+        return stop.report()
+    return code
+
+
+def _dispatch(arguments: argparse.Namespace, rest: list[str]) -> int:
+    if arguments.command == "run":
+        return _run(arguments)
+    if arguments.command == "bench":
         from warranty_forecast.bench import main as bench_main
 
-        return bench_main(argv[1:])
-    parser = build_parser()
-    arguments = parser.parse_args(argv)
-    logging.basicConfig(
-        level=logging.DEBUG if arguments.verbose else logging.INFO,
-        format="%(asctime)s %(levelname)s %(name)s: %(message)s",
-        stream=sys.stderr,
-        force=True,
-    )
+        return bench_main(rest)
+    return _demo_data(arguments)
+
+
+def _exit_code_of(error: PipelineError) -> int:
+    for error_type, code in _EXIT_CODE_BY_ERROR:
+        if isinstance(error, error_type):
+            log.error("%s", error)
+            return code
+    log.error("unexpected pipeline error", exc_info=error)
+    return exit_codes.UNEXPECTED_ERROR
+
+
+class OneLineFormatter(logging.Formatter):
+    """A Formatter whose records are one line each: control characters in the message are escaped.
+
+    Escaped: \\n, \\r, \\t, the other C0 controls and DEL (as \\xNN), the C1 controls (\\xNN) and the
+    Unicode line and paragraph separators (\\u2028, \\u2029). Text from the data (a product name
+    holding a newline) therefore cannot start a forged log line. A traceback keeps its lines.
+    """
+
+    def formatMessage(self, record: logging.LogRecord) -> str:  # noqa: N802 - logging's name
+        return escape_control_characters(super().formatMessage(record))
+
+
+_CONTROL_ESCAPES = {code: f"\\x{code:02x}" for code in (*range(0x20), 0x7F, *range(0x80, 0xA0))}
+_CONTROL_ESCAPES.update({ord("\n"): "\\n", ord("\r"): "\\r", ord("\t"): "\\t", 0x2028: "\\u2028", 0x2029: "\\u2029"})
+
+
+def escape_control_characters(text: str) -> str:
+    """`text` with every control character written as a visible escape (see OneLineFormatter)."""
+    return text.translate(_CONTROL_ESCAPES)
+
+
+def configure_logging(*, verbose: bool) -> None:
+    """Log to stderr, one line per record, for the whole process (the only place that configures logging)."""
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(OneLineFormatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    logging.basicConfig(level=logging.DEBUG if verbose else logging.INFO, handlers=[handler], force=True)
     logging.getLogger("matplotlib").setLevel(logging.WARNING)
-    try:
-        if arguments.command == "run":
-            return _run(arguments)
-        return _demo_data(arguments)
-    except PipelineError as error:
-        for error_type, code in _EXIT_CODE_BY_ERROR:
-            if isinstance(error, error_type):
-                log.error("%s", error)
-                return code
-        log.exception("unexpected pipeline error")
-        return exit_codes.UNEXPECTED_ERROR
-    except Exception:  # noqa: BLE001 - the scheduler needs a code, the log needs the traceback
-        log.exception("unexpected error")
-        return exit_codes.UNEXPECTED_ERROR
+
+
+class _Stopped(BaseException):
+    """Raised by the SIGINT/SIGTERM handler; a BaseException so that no `except Exception` swallows it."""
+
+
+class _StopOnSignal:
+    """SIGINT and SIGTERM stop the run by raising _Stopped, so that every finally-block cleans up.
+
+    The signal is remembered (`signum`), because a library may replace the exception by its own on
+    the way up. Only the first signal raises; a repeat during the clean-up is ignored (SIGKILL still
+    works, and the next run removes what a killed run leaves).
+    """
+
+    def __init__(self) -> None:
+        self.signum: int | None = None
+
+    def _handle(self, signum: int, _frame: FrameType | None) -> None:
+        if self.signum is not None:
+            return
+        self.signum = signum
+        raise _Stopped(signum)
+
+    @contextmanager
+    def installed(self) -> Iterator[None]:
+        previous = {}
+        try:
+            for number in _STOP_SIGNALS:
+                previous[number] = signal.signal(number, self._handle)
+        except ValueError:  # not the main thread: signals stay as they were
+            pass
+        try:
+            yield
+        finally:
+            for number, handler in previous.items():
+                signal.signal(number, handler)
+
+    def report(self) -> int:
+        """Log the one line of a stopped run and return its exit code, 128 + the signal number."""
+        assert self.signum is not None
+        code = exit_codes.INTERRUPTED_BASE + self.signum
+        log.error(
+            "stopped by %s (exit %d) and cleaned up: the output folder holds the previous outputs, or this"
+            " run's if publishing had already finished",
+            signal.Signals(self.signum).name,
+            code,
+        )
+        return code
 
 
 def _run(arguments: argparse.Namespace) -> int:
+    from warranty_forecast.publish import lock_output_folder
     from warranty_forecast.run import run_nightly
 
     as_of = parse_date(arguments.as_of, "--as-of") if arguments.as_of else None
@@ -113,7 +284,9 @@ def _run(arguments: argparse.Namespace) -> int:
         as_of_date=as_of,
         config_path=arguments.config,
     )
-    result = run_nightly(config)
+    with lock_output_folder(config.out_dir) as folder:
+        log.debug("output folder %s checked and locked", folder)
+        result = run_nightly(config)
     log.info("done: outputs in %s (as of %s, %d warning(s))", result.out_dir, result.as_of_date, len(result.warnings))
     return exit_codes.SUCCESS
 
