@@ -86,3 +86,8 @@ def test_charts_draw_hostile_product_and_failure_code_names():
     assert r"\$x: returns per 1,000 at risk" in titles
     legend = [t.get_text() for t in by_month.axes[0].get_legend().get_texts()]
     assert len(legend) == len(names)  # "_hidden" is not dropped from the legend
+
+
+def test_one_line_escapes_bidirectional_overrides():
+    # a right-to-left override can make a log line read as something else (common practice, no source)
+    assert one_line("ok\u202egnp.exe\u2066") == "ok\\u202egnp.exe\\u2066"

@@ -22,6 +22,7 @@ from typing import Iterator, Sequence
 
 from warranty_forecast import __version__, exit_codes
 from warranty_forecast.config import load_config, parse_date
+from warranty_forecast.safe_text import one_line
 from warranty_forecast.errors import (
     AlreadyRunningError,
     ConfigError,
@@ -198,22 +199,13 @@ def _exit_code_of(error: PipelineError) -> int:
 class OneLineFormatter(logging.Formatter):
     """A Formatter whose records are one line each: control characters in the message are escaped.
 
-    Escaped: \\n, \\r, \\t, the other C0 controls and DEL (as \\xNN), the C1 controls (\\xNN) and the
-    Unicode line and paragraph separators (\\u2028, \\u2029). Text from the data (a product name
-    holding a newline) therefore cannot start a forged log line. A traceback keeps its lines.
+    Escaped as `safe_text.one_line` does: \\n, \\r, \\t, the other C0 and C1 controls and DEL, the Unicode
+    line and paragraph separators and bidirectional overrides. Text from the data (a product name holding
+    a newline) therefore cannot start a forged log line. A traceback keeps its lines.
     """
 
     def formatMessage(self, record: logging.LogRecord) -> str:  # noqa: N802 - logging's name
-        return escape_control_characters(super().formatMessage(record))
-
-
-_CONTROL_ESCAPES = {code: f"\\x{code:02x}" for code in (*range(0x20), 0x7F, *range(0x80, 0xA0))}
-_CONTROL_ESCAPES.update({ord("\n"): "\\n", ord("\r"): "\\r", ord("\t"): "\\t", 0x2028: "\\u2028", 0x2029: "\\u2029"})
-
-
-def escape_control_characters(text: str) -> str:
-    """`text` with every control character written as a visible escape (see OneLineFormatter)."""
-    return text.translate(_CONTROL_ESCAPES)
+        return one_line(super().formatMessage(record))
 
 
 def configure_logging(*, verbose: bool) -> None:

@@ -9,11 +9,12 @@ crash the chart). Every sink escapes at its own door; nothing here changes the t
 from __future__ import annotations
 
 import re
-import unicodedata
 
-# Line and paragraph separators and control characters (C0, DEL, C1) that break "one record, one line".
-_BREAKING_CATEGORIES = frozenset({"Cc", "Zl", "Zp"})
-_NAMED_ESCAPES = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+# Control characters (C0, DEL, C1), the Unicode line and paragraph separators and the bidirectional
+# overrides and isolates (which can make a line read differently from what it holds), as visible escapes.
+_ONE_LINE_ESCAPES = {code: f"\\x{code:02x}" for code in (*range(0x20), 0x7F, *range(0x80, 0xA0))}
+_ONE_LINE_ESCAPES.update({code: f"\\u{code:04x}" for code in (0x2028, 0x2029, *range(0x202A, 0x202F), *range(0x2066, 0x206A))})
+_ONE_LINE_ESCAPES.update({ord("\n"): "\\n", ord("\r"): "\\r", ord("\t"): "\\t"})
 
 # Markdown: characters that open markup or a table cell; HTML-significant ones become entities.
 _MARKDOWN_SPECIAL = re.compile(r"[\\`*\[\]|<>&]")
@@ -24,17 +25,7 @@ CHART_LABEL_MAX_CHARACTERS = 60
 
 def one_line(text: object) -> str:
     """`text` with every control or line-breaking character shown as an escape (\\n, \\x1b, \\u2028)."""
-    value = str(text)
-    if not any(unicodedata.category(c) in _BREAKING_CATEGORIES for c in value):
-        return value
-    return "".join(_escaped(c) if unicodedata.category(c) in _BREAKING_CATEGORIES else c for c in value)
-
-
-def _escaped(character: str) -> str:
-    if character in _NAMED_ESCAPES:
-        return _NAMED_ESCAPES[character]
-    code = ord(character)
-    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
+    return str(text).translate(_ONE_LINE_ESCAPES)
 
 
 def markdown_text(text: object) -> str:
