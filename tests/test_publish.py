@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 
@@ -124,6 +125,21 @@ def test_replaces_a_folder_of_its_own_listed_outputs(tmp_path):
     out = tmp_path / "run"
     out.mkdir()
     (out / "manifest.json").write_text(json.dumps(OURS))
+    (out / "t.parquet").write_text("t")
+    publish_outputs(out, {"new": pd.DataFrame({"a": [1]})}, {}, {}, {})
+    assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "new.parquet"]
+
+
+def test_replaces_an_earlier_versions_outputs_only_when_every_file_matches_its_checksum(tmp_path):
+    # outputs written before manifests carried the producer marker (common practice, no source)
+    out = tmp_path / "run"
+    out.mkdir()
+    (out / "t.parquet").write_text("t")
+    listed = {"t.parquet": {"bytes": 1, "sha256": hashlib.sha256(b"t").hexdigest()}}
+    (out / "manifest.json").write_text(json.dumps({"outputs": listed, "versions": {"warranty-forecast": "0.1.0"}}))
+    (out / "t.parquet").write_text("u")  # edited since: not what that run wrote
+    with pytest.raises(OutputError, match="no producer marker"):
+        publish_outputs(out, {"new": pd.DataFrame({"a": [1]})}, {}, {}, {})
     (out / "t.parquet").write_text("t")
     publish_outputs(out, {"new": pd.DataFrame({"a": [1]})}, {}, {}, {})
     assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "new.parquet"]

@@ -1,6 +1,9 @@
 """Process exit codes of the `warranty-forecast` command, for schedulers.
 
-Every non-zero code leaves the output folder exactly as it was before the run.
+A non-zero code means this run published nothing: the output folder holds the previous run's outputs
+(restored by the start-up recovery if an earlier run was killed mid-swap). One exception: a signal that
+arrives after the swap, while the run is tidying up, exits 128+N although the new outputs are in place;
+their manifest says which run wrote them.
 """
 
 SUCCESS = 0

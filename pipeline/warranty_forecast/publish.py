@@ -150,16 +150,20 @@ def check_replaceable(folder: Path) -> None:
         raise refuse(f"its {MANIFEST_NAME} is not readable JSON") from None
     if not isinstance(document, dict):
         raise refuse(f"its {MANIFEST_NAME} is not a JSON object")
+    outputs = document.get("outputs")
     mark = document.get("producer")
     if not (isinstance(mark, dict) and mark.get("name") == PRODUCER_NAME):
         versions = document.get("versions")
-        if isinstance(versions, dict) and PRODUCER_NAME in versions:
+        if not (isinstance(versions, dict) and PRODUCER_NAME in versions):
+            raise refuse(f"its {MANIFEST_NAME} was not written by {PRODUCER_NAME} (no producer marker)")
+        # written before outputs were marked: accepted only if every file is one it lists, byte for byte
+        if not _holds_exactly_its_listed_files(folder, entries, outputs):
             raise refuse(
                 f"its {MANIFEST_NAME} has no producer marker (written before {PRODUCER_NAME} marked its"
-                " outputs); check the folder and remove it once"
+                " outputs) and the folder's files differ from the ones it lists; check the folder and remove it once"
             )
-        raise refuse(f"its {MANIFEST_NAME} was not written by {PRODUCER_NAME} (no producer marker)")
-    outputs = document.get("outputs")
+        log.info("replacing %s: outputs of an earlier version, every file matching its manifest's checksum", folder)
+        return
     if not isinstance(outputs, dict):
         raise refuse(f"its {MANIFEST_NAME} lists no outputs")
     strangers = [
@@ -171,6 +175,22 @@ def check_replaceable(folder: Path) -> None:
         shown = ", ".join(strangers[:5]) + (f" and {len(strangers) - 5} more" if len(strangers) > 5 else "")
         entries_word = "entry" if len(strangers) == 1 else "entries"
         raise refuse(f"it holds {len(strangers)} {entries_word} the last run did not write ({shown})")
+
+
+def _holds_exactly_its_listed_files(folder: Path, entries: list[str], outputs: object) -> bool:
+    """Every entry but the manifest is a regular file listed in `outputs` with the same size and SHA-256."""
+    if not isinstance(outputs, dict):
+        return False
+    for name in entries:
+        if name == MANIFEST_NAME:
+            continue
+        facts = outputs.get(name)
+        path = folder / name
+        if not (isinstance(facts, dict) and _is_regular_file(path)):
+            return False
+        if facts.get("bytes") != path.stat().st_size or facts.get("sha256") != sha256_of(path):
+            return False
+    return True
 
 
 def recover_leftovers(folder: Path) -> list[str]:
