@@ -5,16 +5,18 @@ Expected values are worked out by hand from the rules in the SQL headers (common
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import json
+import os
 from pathlib import Path
 
 import pandas as pd
 import pytest
 
-from warranty_forecast.config import load_config
-from warranty_forecast.errors import ContractError, InputUnreadableError
-from warranty_forecast.shaping import shape_extracts
+from warranty_forecast.config import RunSettings, load_config
+from warranty_forecast.errors import ConfigError, ContractError, InputUnreadableError
+from warranty_forecast.shaping import DataFreshness, shape_extracts
 
 SHIPMENT_HEADER = "product,build_month,ship_date,sale_date,units,warranty_months,serial"
 CLAIM_HEADER = "claim_id,product,build_month,sale_date,failure_date,claim_date,cost,status,failure_code,serial"
@@ -57,6 +59,9 @@ CLAIMS = [
     "C15,A,2024-01,,2024-06-01,2024-06-03,100,approved,Y,S1",  # 17 serial of another cohort
 ]
 AS_OF = dt.date(2024, 12, 31)
+RUN_DATE = dt.date(2025, 12, 31)  # after every date of the rows above
+# the hand-written rows are half bad on purpose: no quarantine ceiling unless a test sets one
+NO_CEILING = RunSettings(max_quarantined_share=1.0)
 
 
 def write_extracts(folder: Path, shipments: list[str], claims: list[str]) -> tuple[Path, Path]:
@@ -67,12 +72,18 @@ def write_extracts(folder: Path, shipments: list[str], claims: list[str]) -> tup
     return shipments_path, claims_path
 
 
+def config_for(shipments_path: Path, claims_path: Path, as_of=AS_OF, run_date=RUN_DATE, **settings):
+    """A run configuration for hand-written extracts; `settings` replace RunConfig fields."""
+    config = load_config(
+        shipments_path=shipments_path, claims_path=claims_path, out_dir=shipments_path.parent / "out",
+        as_of_date=as_of, run_date=run_date,
+    )
+    return dataclasses.replace(config, **{"run": NO_CEILING, **settings})
+
+
 def shape(folder: Path, shipments: list[str] = SHIPMENTS, claims: list[str] = CLAIMS, as_of=AS_OF, **settings):
     shipments_path, claims_path = write_extracts(folder, shipments, claims)
-    config = load_config(
-        shipments_path=shipments_path, claims_path=claims_path, out_dir=folder / "out", as_of_date=as_of
-    )
-    return shape_extracts(config)
+    return shape_extracts(config_for(shipments_path, claims_path, as_of=as_of, **settings))
 
 
 @pytest.fixture(scope="module")
@@ -81,7 +92,7 @@ def shaped(tmp_path_factory):
 
 
 def test_quarantine_lists_each_bad_row_with_file_row_column_and_reason(shaped):
-    got = {(r.source_file, r.row_number, r.column, r.reason) for r in shaped.quarantine.itertuples()}
+    got = {(Path(r.source_file).name, r.row_number, r.column, r.reason) for r in shaped.quarantine.itertuples()}
     assert got == {
         ("shipments.csv", 4, "ship_date", "shipped_before_build"),
         ("shipments.csv", 5, "product", "missing_value"),
@@ -103,6 +114,11 @@ def test_quarantine_lists_each_bad_row_with_file_row_column_and_reason(shaped):
         ("claims.csv", 14, "claim_id", "missing_value"),
         ("claims.csv", 17, "serial", "serial_mismatch"),
     }
+    files = shaped.quarantine.groupby("extract")["source_file"].unique().to_dict()
+    assert {extract: [Path(f).name for f in names] for extract, names in files.items()} == {
+        "shipments": ["shipments.csv"], "claims": ["claims.csv"],
+    }
+    assert all(os.path.isabs(f) for f in shaped.quarantine["source_file"])
     duplicate = shaped.quarantine[shaped.quarantine["reason"] == "duplicate_serial"].iloc[0]
     assert "first appears at row 6" in duplicate["detail"]
     raw = json.loads(shaped.quarantine[shaped.quarantine["reason"] == "negative_cost"].iloc[0]["raw_values"])
@@ -111,12 +127,13 @@ def test_quarantine_lists_each_bad_row_with_file_row_column_and_reason(shaped):
 
 def test_every_row_is_used_quarantined_or_after_the_as_of_date(shaped):
     rec = shaped.reconciliation.set_index("extract")
+    folder = Path(shaped.quarantine["source_file"].iloc[0]).parent
     assert rec.loc["shipments"].to_dict() == {
-        "source_file": "shipments.csv", "rows_read": 16, "rows_used": 6, "rows_quarantined": 9,
+        "source_file": str(folder / "shipments.csv"), "rows_read": 16, "rows_used": 6, "rows_quarantined": 9,
         "rows_after_as_of": 1,
     }
     assert rec.loc["claims"].to_dict() == {
-        "source_file": "claims.csv", "rows_read": 17, "rows_used": 6, "rows_quarantined": 10,
+        "source_file": str(folder / "claims.csv"), "rows_read": 17, "rows_used": 6, "rows_quarantined": 10,
         "rows_after_as_of": 1,
     }
 
@@ -174,11 +191,57 @@ def test_age_in_service_matrix_units_at_risk(shaped):
     assert a1.index.max() == 11
 
 
-def test_as_of_date_defaults_to_latest_valid_claim_date(tmp_path):
+def test_as_of_date_defaults_to_the_newest_valid_date_of_both_extracts(tmp_path):
     shaped = shape(tmp_path, as_of=None)
-    # C6 filed 2025-08-20 is the latest valid claim_date, so nothing is after the as-of date
-    assert shaped.as_of_date == dt.date(2025, 8, 20)
-    assert shaped.reconciliation.set_index("extract").loc["claims", "rows_after_as_of"] == 0
+    # C6 filed 2025-08-20 is the newest valid date (the newest valid ship_date is 2025-06-01, row 9),
+    # so nothing is after the as-of date
+    assert (shaped.as_of_date, shaped.as_of_source) == (dt.date(2025, 8, 20), "newest valid claim_date")
+    assert shaped.reconciliation.set_index("extract")["rows_after_as_of"].to_dict() == {"shipments": 0, "claims": 0}
+    # a shipments extract newer than the claims moves the default as-of date to its newest ship_date
+    newer = shape(tmp_path, shipments=[*SHIPMENTS, "A,2025-09,2025-09-10,,5,,"], as_of=None)  # row 17
+    assert (newer.as_of_date, newer.as_of_source) == (dt.date(2025, 9, 10), "newest valid ship_date")
+    assert newer.freshness.days_after_newest_claim == 21
+    assert newer.freshness.days_after_newest_shipment == 0
+
+
+def test_as_of_date_after_the_newest_valid_data_is_a_config_error(tmp_path):
+    with pytest.raises(ConfigError, match=(
+        r"--as-of 2025-08-21 is after the newest valid data \(newest claim_date 2025-08-20, newest ship_date"
+        r" 2025-06-01\)"
+    )):
+        shape(tmp_path, as_of=dt.date(2025, 8, 21))
+    assert shape(tmp_path, as_of=dt.date(2025, 8, 20)).as_of_date == dt.date(2025, 8, 20)
+
+
+def test_without_any_usable_shipment_the_run_stops(tmp_path):
+    # no valid date anywhere: the run date stands in as the as-of date, and the run stops on the shipments
+    with pytest.raises(ContractError, match=r"shipments\.csv: no usable row shipped by 2025-12-31"):
+        shape(tmp_path, shipments=["A,2024-13,2024-01-10"], claims=["K1,A,2024-01,,x,y,5,,,"], as_of=None)
+    with pytest.raises(ContractError, match=r"shipments\.csv holds no data rows"):
+        shape(tmp_path, shipments=[], as_of=None)
+
+
+def test_freshness_warns_about_each_gap_longer_than_the_limit():
+    def freshness(claim, ship, run, limit=7):
+        return DataFreshness(
+            run_date=run, as_of_date=dt.date(2026, 11, 30), as_of_source="command line",
+            newest_claim_date=claim, newest_ship_date=ship, max_gap_days=limit,
+        )
+
+    on_time = freshness(dt.date(2026, 11, 23), dt.date(2026, 11, 30), dt.date(2026, 12, 7))  # 7-day gaps: no warning
+    assert on_time.warnings() == []
+    late = freshness(dt.date(2026, 11, 22), None, dt.date(2026, 12, 8))
+    assert late.warnings() == [
+        "claims extract: newest valid claim_date 2026-11-22 is 8 days before the as-of date 2026-11-30 (more than"
+        " run.max_data_gap_days = 7): the extract may be stale; claims missing from it make the return rates and"
+        " the forecast too low",
+        "shipments extract has no valid ship_date: it is empty or every row is quarantined",
+        "as-of date 2026-11-30 is 8 days before the run date 2026-12-08 (more than run.max_data_gap_days = 7):"
+        " the extracts may be stale",
+    ]
+    assert late.as_manifest()["days_as_of_after_newest_claim"] == 8
+    # a past as-of date (newest data after it) is not a gap
+    assert freshness(dt.date(2026, 12, 5), dt.date(2026, 12, 5), dt.date(2026, 12, 6)).warnings() == []
 
 
 def test_missing_required_column_names_file_and_column(tmp_path):
@@ -210,13 +273,11 @@ def test_parquet_extract_gives_the_same_result_as_csv(tmp_path, shaped):
     frame = pd.read_csv(shipments_path, dtype=str, keep_default_na=False).drop(index=7)  # data row 8
     parquet_path = tmp_path / "shipments.parquet"
     frame.replace("", None).to_parquet(parquet_path, index=False)
-    config = load_config(
-        shipments_path=parquet_path, claims_path=claims_path, out_dir=tmp_path / "o", as_of_date=AS_OF
-    )
-    from_parquet = shape_extracts(config)
+    from_parquet = shape_extracts(config_for(parquet_path, claims_path))
     pd.testing.assert_frame_equal(from_parquet.fit_returns, shaped.fit_returns)
     pd.testing.assert_frame_equal(from_parquet.fit_suspensions, shaped.fit_suspensions)
-    reasons = from_parquet.quarantine[from_parquet.quarantine["source_file"] == "shipments.parquet"]
+    reasons = from_parquet.quarantine[from_parquet.quarantine["extract"] == "shipments"]
+    assert (reasons["source_file"] == str(parquet_path)).all()
     # rows after the skipped line 8 move up by one
     assert reasons.set_index("row_number")["reason"].to_dict()[9] == "unparseable_value"
 

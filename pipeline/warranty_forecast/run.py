@@ -17,7 +17,7 @@ from typing import Any, Mapping
 import pandas as pd
 
 from warranty_forecast import charts
-from warranty_forecast.config import RunConfig
+from warranty_forecast.config import RunConfig, check_products_in_data
 from warranty_forecast.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
 from warranty_forecast.fitting import (
     FITTED,
@@ -90,8 +90,9 @@ def run_nightly(config: RunConfig) -> RunResult:
             f"{r.rows_after_as_of} after as-of"
             for name, r in reconciliation.iterrows()
         )
-        + f"; as-of {shaped.as_of_date}",
+        + f"; as-of {shaped.as_of_date} ({shaped.as_of_source}), run date {config.run_date}",
     )
+    check_products_in_data(config, shaped.known_products)
 
     started = time.perf_counter()
     settings = config.life_model
@@ -147,7 +148,7 @@ def run_nightly(config: RunConfig) -> RunResult:
     }
     clock.done("charts", started, f"{len(figures)} figures")
 
-    warnings = [*model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts)]
+    warnings = [*shaped.freshness.warnings(), *model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts)]
     for text in warnings:
         log.warning("%s", text)
 
@@ -260,6 +261,7 @@ def _manifest(
             {
                 "extract": name,
                 "path": str(path),
+                "source_file": row["source_file"],
                 "sha256": sha256_of(path),
                 "bytes": path.stat().st_size,
                 "rows_read": int(row["rows_read"]),
@@ -269,6 +271,8 @@ def _manifest(
     return {
         "as_of_date": shaped.as_of_date.isoformat(),
         "as_of_source": shaped.as_of_source,
+        "run_date": config.run_date.isoformat(),
+        "freshness": shaped.freshness.as_manifest(),
         "started_utc": started_utc.isoformat(timespec="seconds"),
         "inputs": inputs,
         "reconciliation": [
@@ -277,14 +281,18 @@ def _manifest(
         ],
         "facts": dict(sorted(shaped.run_facts.items())),
         "quarantine_by_reason": {
-            f"{file}:{column}:{reason}": int(count)
-            for (file, column, reason), count in shaped.quarantine.groupby(
-                ["source_file", "column", "reason"]
+            f"{extract}:{column}:{reason}": int(count)
+            for (extract, column, reason), count in shaped.quarantine.groupby(
+                ["extract", "column", "reason"]
             ).size().items()
         },
         "config": {
             "path": str(config.config_path) if config.config_path else None,
+            "max_data_gap_days": config.run.max_data_gap_days,
+            "max_quarantined_share": config.run.max_quarantined_share,
             "default_warranty_months": config.warranty.default_months,
+            "max_warranty_months": config.warranty.max_months,
+            "max_units_per_row": config.shipments.max_units_per_row,
             "counted_statuses": list(config.claims.counted_statuses),
             "cost_per_claim": config.reserve.cost_per_claim,
             "cost_per_claim_by_product": dict(config.reserve.cost_per_claim_by_product),

@@ -1,9 +1,11 @@
 -- quarantine: every input row that was not used, with where it is and why.
--- Grain: one row per quarantined data row of either extract.
--- Parameters: $shipments_file, $claims_file (the names printed in source_file).
+-- Grain: one row per quarantined data row of either extract (malformed CSV lines included).
+-- Parameters: $shipments_file, $claims_file (each extract's path as given, made absolute: the
+--   source_file column, so that two extracts with the same file name can be told apart).
 -- Reads: raw_shipments, raw_shipments_malformed, stg_shipments, raw_claims, raw_claims_malformed,
 --   stg_claims, claims_matched_to_units.
--- raw_values holds the row as read (every column as text) in JSON.
+-- raw_values holds the row as read (its contract columns as text, or the malformed line) in JSON.
+-- Per extract, the count of rows here equals reconciliation.rows_quarantined.
 with shipment_rows_failing_checks as (
     select
         checked.source_row_number,
@@ -33,6 +35,11 @@ claim_rows_failing_checks as (
     where checked.is_quarantined
 ),
 
+malformed_claim_lines as (
+    select source_row_number, problem_column, problem_reason, problem_detail, raw_values
+    from raw_claims_malformed
+),
+
 claims_failing_shipment_checks as (
     select
         matched.source_row_number,
@@ -46,16 +53,19 @@ claims_failing_shipment_checks as (
 ),
 
 all_quarantined as (
-    select $shipments_file as source_file, * from shipment_rows_failing_checks
+    select 'shipments' as extract, $shipments_file as source_file, * from shipment_rows_failing_checks
     union all
-    select $shipments_file as source_file, * from malformed_shipment_lines
+    select 'shipments' as extract, $shipments_file as source_file, * from malformed_shipment_lines
     union all
-    select $claims_file as source_file, * from claim_rows_failing_checks
+    select 'claims' as extract, $claims_file as source_file, * from claim_rows_failing_checks
     union all
-    select $claims_file as source_file, * from claims_failing_shipment_checks
+    select 'claims' as extract, $claims_file as source_file, * from malformed_claim_lines
+    union all
+    select 'claims' as extract, $claims_file as source_file, * from claims_failing_shipment_checks
 )
 
 select
+    extract,
     source_file,
     source_row_number as row_number,
     problem_column as "column",
@@ -63,4 +73,4 @@ select
     problem_detail as detail,
     raw_values::varchar as raw_values
 from all_quarantined
-order by source_file, row_number
+order by extract, row_number

@@ -1,6 +1,6 @@
 -- reconciliation: what became of every row read from each extract.
 -- Grain: one row per extract (shipments, claims).
--- Parameters: $shipments_file, $claims_file, $as_of_date.
+-- Parameters: $shipments_file, $claims_file (the absolute paths, as in quarantine), $as_of_date.
 -- Reads: raw_*, raw_*_malformed, stg_shipments, stg_claims, units_aged_to_as_of, claims_matched_to_units.
 -- rows_read = rows_used + rows_quarantined + rows_after_as_of must hold; Python checks it.
 with shipment_counts as (

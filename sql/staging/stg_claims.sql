@@ -1,7 +1,7 @@
 -- stg_claims: the claims extract typed and checked, row by row (checks that need the shipments are in
 -- intermediate/claims_matched_to_units.sql).
 -- Grain: one row per data row of the claims file (one claim).
--- Parameters: none.
+-- Parameters: $run_date (no date may be later).
 -- Reads: raw_claims (every contract column as text, plus source_row_number). Uses macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
@@ -57,11 +57,19 @@ row_checks as (
             check_present('product', product_text),
             check_present('build_month', build_month_text),
             check_parsed('build_month', build_month_text, parsed_build_month, 'YYYY-MM or a date'),
+            check_date_in_range('build_month', build_month_text, parsed_build_month),
+            check_not_after_run_date('build_month', build_month_text, parsed_build_month, $run_date),
             check_present('failure_date', failure_date_text),
             check_parsed('failure_date', failure_date_text, parsed_failure_date, 'a date'),
+            check_date_in_range('failure_date', failure_date_text, parsed_failure_date),
+            check_not_after_run_date('failure_date', failure_date_text, parsed_failure_date, $run_date),
             check_present('claim_date', claim_date_text),
             check_parsed('claim_date', claim_date_text, parsed_claim_date, 'a date'),
+            check_date_in_range('claim_date', claim_date_text, parsed_claim_date),
+            check_not_after_run_date('claim_date', claim_date_text, parsed_claim_date, $run_date),
             check_parsed('sale_date', sale_date_text, parsed_sale_date, 'a date'),
+            check_date_in_range('sale_date', sale_date_text, parsed_sale_date),
+            check_not_after_run_date('sale_date', sale_date_text, parsed_sale_date, $run_date),
             check_present('cost', cost_text),
             check_parsed('cost', cost_text, parsed_cost, 'a decimal number'),
             check_that(parsed_cost < 0, 'cost', 'negative_cost', 'cost ' || cost_text || ' is negative'),

@@ -1,9 +1,12 @@
 -- stg_shipments: the shipments extract typed and checked.
 -- Grain: one row per data row of the shipments file (a unit, or a lot of identical units).
--- Parameters: none (the as-of date and defaults apply in intermediate models).
+-- Parameters: $run_date (no date may be later), $max_units_per_row, $max_warranty_months (the limits
+--   from the configuration; the as-of date and defaults apply in intermediate models).
 -- Reads: raw_shipments (every contract column as text, plus source_row_number). Uses macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
+-- Numbers are parsed as double (text of any size gives a number, inf or NaN, never an error) and cast to
+-- integers only on rows that passed every check, so that no cast can overflow.
 with raw_rows as (
     select
         source_row_number,
@@ -48,15 +51,22 @@ row_checks as (
             check_present('product', product_text),
             check_present('build_month', build_month_text),
             check_parsed('build_month', build_month_text, parsed_build_month, 'YYYY-MM or a date'),
+            check_date_in_range('build_month', build_month_text, parsed_build_month),
+            check_not_after_run_date('build_month', build_month_text, parsed_build_month, $run_date),
             check_present('ship_date', ship_date_text),
             check_parsed('ship_date', ship_date_text, parsed_ship_date, 'a date'),
+            check_date_in_range('ship_date', ship_date_text, parsed_ship_date),
+            check_not_after_run_date('ship_date', ship_date_text, parsed_ship_date, $run_date),
             check_parsed('sale_date', sale_date_text, parsed_sale_date, 'a date'),
+            check_date_in_range('sale_date', sale_date_text, parsed_sale_date),
+            check_not_after_run_date('sale_date', sale_date_text, parsed_sale_date, $run_date),
             check_parsed('units', units_text, if(isfinite(units_number), units_number, null), 'a number'),
             check_that(units_number < 1, 'units', 'units_below_one', 'units ' || units_text || ' is below 1'),
             check_that(
                 units_number <> floor(units_number),
                 'units', 'not_a_whole_number', 'units ' || units_text || ' is not a whole number'
             ),
+            check_not_above('units', units_text, units_number, $max_units_per_row, 'units_above_limit'),
             check_parsed(
                 'warranty_months', warranty_months_text,
                 if(isfinite(warranty_months_number), warranty_months_number, null), 'a number'
@@ -65,6 +75,10 @@ row_checks as (
                 warranty_months_number < 1 or warranty_months_number <> floor(warranty_months_number),
                 'warranty_months', 'invalid_warranty_months',
                 'warranty_months ' || warranty_months_text || ' is not a whole number >= 1'
+            ),
+            check_not_above(
+                'warranty_months', warranty_months_text, warranty_months_number, $max_warranty_months,
+                'warranty_months_above_limit'
             ),
             check_that(
                 parsed_ship_date < parsed_build_month,
