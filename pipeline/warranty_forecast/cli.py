@@ -125,7 +125,7 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--claims", type=Path, required=True, help="claims extract (.csv or .parquet)")
     run.add_argument("--config", type=Path, default=None, help="TOML settings (see README: Configuration)")
     run.add_argument(
-        "--as-of", dest="as_of", default=None, help="as-of date YYYY-MM-DD (default: latest valid claim_date)"
+        "--as-of", dest="as_of", default=None, help="as-of date YYYY-MM-DD, not after today (default: the newest valid claim_date or ship_date)"
     )
     run.add_argument(
         "--out",

@@ -38,6 +38,17 @@ def _money(value: Any) -> str:
     return f"{value:,.2f}"
 
 
+def _freshness_lines(freshness: Mapping[str, Any] | None) -> list[str]:
+    if not freshness:
+        return []
+    return [
+        "",
+        f"Run date {freshness['run_date']}; newest valid claim_date {freshness['newest_claim_date'] or 'none'}, "
+        f"newest valid ship_date {freshness['newest_ship_date'] or 'none'} (a gap over "
+        f"{freshness['max_data_gap_days']} days is a warning below).",
+    ]
+
+
 def _text_escaped(frame: pd.DataFrame) -> pd.DataFrame:
     """A copy of `frame` whose text cells are escaped for Markdown (numbers and missing values untouched)."""
     escaped = frame.copy()
@@ -75,6 +86,7 @@ def render_report(
         "",
         f"As-of date {manifest['as_of_date']} ({manifest['as_of_source']}). "
         f"Run finished {manifest['finished_utc']} (UTC) in {manifest['seconds_total']:.1f} s.",
+        *_freshness_lines(manifest.get("freshness")),
         "",
         "## Cautions",
         "",
@@ -173,7 +185,7 @@ def render_report(
     if facts:
         lines += ["| fact | count |", "|---|---|", *[f"| {k} | {v:,} |" for k, v in facts.items()], ""]
     if len(quarantine):
-        counts = quarantine.groupby(["source_file", "column", "reason"]).size().reset_index(name="rows")
+        counts = quarantine.groupby(["extract", "column", "reason"]).size().reset_index(name="rows")
         lines += ["### Quarantined rows by reason (details in `quarantine.parquet`)", "", _table(counts), ""]
     lines += [
         "## Charts",
