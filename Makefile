@@ -38,4 +38,4 @@ $(BENCH_STAMP): pyproject.toml
 	touch $(BENCH_STAMP)
 
 bench: $(BENCH_STAMP)
-	$(BENCH_VENV)/bin/python -m warranty_forecast.bench $(BENCH_ARGS)
+	$(BENCH_VENV)/bin/python -m warranty_forecast.tools.bench $(BENCH_ARGS)

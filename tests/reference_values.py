@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from warranty_forecast.life_model import LifeData
+from warranty_forecast.lifecore.life_model import LifeData
 
 LOCAL_DATA = Path(__file__).resolve().parent / "data"
 SHARED_REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference"

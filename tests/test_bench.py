@@ -1,4 +1,4 @@
-"""Tests of the benchmark (warranty_forecast.bench) at a tiny size: the report's shape and the agreement of
+"""Tests of the benchmark (warranty_forecast.tools.bench) at a tiny size: the report's shape and the agreement of
 the grouped fit with a per-unit fit. No timing assertions (speed lives in the benchmark itself).
 
 Every external check names its source beside it.
@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from warranty_forecast import bench
+from warranty_forecast.tools import bench
 
 TINY = ["--sizes", "2000", "--seed", "7", "--repeats", "1"]
 

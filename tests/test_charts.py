@@ -7,9 +7,9 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 
-from warranty_forecast import charts
-from warranty_forecast.life_model import LifeData, WeibullFitter
-from warranty_forecast.life_table import life_table
+from warranty_forecast.outputs import charts
+from warranty_forecast.lifecore.life_model import LifeData, WeibullFitter
+from warranty_forecast.stages.life_table import life_table
 
 
 def matrix():
@@ -29,7 +29,6 @@ def test_heatmap_has_one_panel_per_product():
     assert [a.get_title() for a in visible] == ["P: returns per 1,000 at risk", "Q: returns per 1,000 at risk"]
     image = visible[0].images[0].get_array()
     assert image.shape == (3, 5) and np.ma.is_masked(image)  # later build months have no older cells
-    charts.plt.close(figure)
 
 
 def test_probability_plot_draws_points_line_and_band():
@@ -42,7 +41,6 @@ def test_probability_plot_draws_points_line_and_band():
     assert len(panel_p.lines) >= 2 and len(panel_p.collections) >= 1
     assert any("Weibull shape" in t.get_text() for t in panel_p.get_legend().get_texts())
     assert not any("Weibull shape" in t.get_text() for t in panel_q.get_legend().get_texts())
-    charts.plt.close(figure)
 
 
 def test_expected_returns_chart_stacks_products_and_handles_empty():
@@ -53,7 +51,5 @@ def test_expected_returns_chart_stacks_products_and_handles_empty():
     figure = charts.expected_returns_by_month(forecast)
     heights = sorted(round(p.get_height(), 6) for p in figure.axes[0].patches)
     assert heights == [0.0, 1.0, 2.0, 3.0]
-    charts.plt.close(figure)
     empty = charts.expected_returns_by_month(forecast.iloc[0:0])
     assert "no forecast" in empty.axes[0].texts[0].get_text()
-    charts.plt.close(empty)

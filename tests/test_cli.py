@@ -125,7 +125,7 @@ def test_missing_required_column_fails_cleanly_and_keeps_previous_outputs(demo_o
 
 
 def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
-    import warranty_forecast.publish as publish
+    import warranty_forecast.outputs.publish as publish
 
     def explode(*_args, **_kwargs):
         raise RuntimeError("disk on fire")

@@ -1,4 +1,4 @@
-"""Tests of the seeded demo-data generator (warranty_forecast.demo_data).
+"""Tests of the seeded demo-data generator (warranty_forecast.tools.demo_data).
 
 The rule checks below re-state the input contract with vectorised pandas operations, independently
 of the generator, so that the pipeline's quarantine catches exactly the planted rows.
@@ -15,7 +15,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from warranty_forecast.demo_data import (
+from warranty_forecast.tools.demo_data import (
     CLAIM_COLUMNS,
     DEFAULT_SEED,
     SHIPMENT_COLUMNS,

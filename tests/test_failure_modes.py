@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 from warranty_forecast.config import LifeModelSettings
-from warranty_forecast.failure_modes import (
+from warranty_forecast.stages.failure_modes import (
     OTHER,
     competing_risk_data,
     complete_mode_models,
@@ -17,9 +17,9 @@ from warranty_forecast.failure_modes import (
     life_model_by_mode_table,
     mode_membership,
 )
-from warranty_forecast.fitting import FITTED
-from warranty_forecast.forecast import CompetingRisks, expected_future_returns, expected_future_returns_by_mode
-from warranty_forecast.life_model import LifeData, weibull_log_survival
+from warranty_forecast.stages.fitting import FITTED
+from warranty_forecast.stages.forecast import CompetingRisks, expected_future_returns, expected_future_returns_by_mode
+from warranty_forecast.lifecore.life_model import LifeData, weibull_log_survival
 
 
 class Weibull:

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from warranty_forecast.config import LifeModelSettings
-from warranty_forecast.fitting import (
+from warranty_forecast.stages.fitting import (
     FITTED,
     FIXED_SHAPE,
     INSUFFICIENT_DATA,
@@ -16,7 +16,7 @@ from warranty_forecast.fitting import (
     fit_weibull,
     life_model_table,
 )
-from warranty_forecast.life_model import LifeData
+from warranty_forecast.lifecore.life_model import LifeData
 from simulated_data import simulated_life_data  # tests/ is on sys.path under pytest
 
 pytestmark = pytest.mark.filterwarnings("error")

@@ -8,8 +8,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from warranty_forecast.forecast import expected_failures_within, expected_future_returns, forecast_by_month
-from warranty_forecast.life_model import WeibullFitter, weibull_log_survival
+from warranty_forecast.stages.forecast import expected_failures_within, expected_future_returns, forecast_by_month
+from warranty_forecast.lifecore.life_model import WeibullFitter, weibull_log_survival
 import reference_values as ref  # tests/ is on sys.path under pytest
 
 

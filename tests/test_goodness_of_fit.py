@@ -1,4 +1,4 @@
-"""Tests of observed-vs-expected goodness of fit by month in service (warranty_forecast.goodness_of_fit).
+"""Tests of observed-vs-expected goodness of fit by month in service (warranty_forecast.lifecore.goodness_of_fit).
 
 Every external check names its source beside it. All simulations are seeded. Every test in this
 module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...) fails it.
@@ -12,15 +12,15 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from warranty_forecast.goodness_of_fit import (
+from warranty_forecast.lifecore.goodness_of_fit import (
     CELL_COLUMNS,
     GoodnessOfFit,
     goodness_of_fit,
     pool_cells,
     saturated_log_likelihood,
 )
-from warranty_forecast.life_model import LifeData, WeibullFitter, weibull_log_survival
-from warranty_forecast.lognormal_model import LognormalFitter
+from warranty_forecast.lifecore.life_model import LifeData, WeibullFitter, weibull_log_survival
+from warranty_forecast.lifecore.lognormal_model import LognormalFitter
 from simulated_data import lognormal_life, simulate_warranty, weibull_life  # tests/ is on sys.path
 
 pytestmark = pytest.mark.filterwarnings("error")
@@ -207,7 +207,7 @@ def test_saturated_closed_form_is_the_maximum(d, exposure):
 
 
 def test_deviance_uses_the_same_likelihood_as_the_fit():
-    # reference: warranty_forecast.life_model's Weibull log-likelihood (itself checked against scipy.stats):
+    # reference: warranty_forecast.lifecore.life_model's Weibull log-likelihood (itself checked against scipy.stats):
     # with suspensions at whole months, G^2 = 2 (log L_saturated - WeibullFit.log_likelihood) >= 0
     rng = np.random.default_rng(21)
     months = rng.integers(1, 37, size=3_000)

@@ -19,11 +19,11 @@ import duckdb
 import pandas as pd
 import pytest
 
-from warranty_forecast import shaping
+from warranty_forecast.stages import shaping
 from warranty_forecast.config import RunSettings, ShipmentSettings, WarrantySettings, load_config
 from warranty_forecast.errors import ConfigError, ContractError, InputUnreadableError, QuarantineCeilingError
 from warranty_forecast.run import run_nightly
-from warranty_forecast.shaping import shape_extracts
+from warranty_forecast.stages.shaping import shape_extracts
 
 RUN_DATE = dt.date(2025, 6, 30)
 SHIPMENT_HEADER = "product,build_month,ship_date,sale_date,units,warranty_months,serial"
@@ -232,7 +232,7 @@ def test_duckdb_spills_into_a_folder_of_the_run_that_is_always_removed(tmp_path,
     monkeypatch.setattr(shaping.duckdb, "connect", recording_connect)
     folder = tmp_path / "data"
     folder.mkdir()
-    with caplog.at_level(logging.INFO, logger="warranty_forecast.shaping"):
+    with caplog.at_level(logging.INFO, logger="warranty_forecast.stages.shaping"):
         shape(folder)
     assert not abandoned.exists() and alive.exists()
     assert f"left by process {dead_pid}, which is no longer running" in caplog.text

@@ -49,6 +49,10 @@ def test_wheel_holds_one_top_level_package_with_its_sql(wheel):
     shipped_sql = {name.split("warranty_forecast/sql/", 1)[1] for name in names if name.endswith(".sql")}
     in_repository = {str(p.relative_to(ROOT / "sql")) for p in (ROOT / "sql").rglob("*.sql")}
     assert shipped_sql == in_repository
+    package = ROOT / "pipeline" / "warranty_forecast"
+    shipped_code = {name.split("/", 1)[1] for name in names if name.startswith("warranty_forecast/") and name.endswith(".py")}
+    source_code = {str(p.relative_to(package)) for p in package.rglob("*.py")} | {"sql/__init__.py"}
+    assert shipped_code == source_code  # every subpackage is listed in pyproject.toml
 
 
 def test_demo_runs_from_the_wheel_in_a_fresh_virtual_environment(wheel, tmp_path):

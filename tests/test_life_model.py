@@ -1,4 +1,4 @@
-"""Tests of the grouped, censored Weibull life model (warranty_forecast.life_model).
+"""Tests of the grouped, censored Weibull life model (warranty_forecast.lifecore.life_model).
 
 Every external check names its source beside it. Reference numbers live in tests/reference_values.py.
 Every test in this module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...)
@@ -15,7 +15,7 @@ import pytest
 from scipy import integrate, optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.life_model import (
+from warranty_forecast.lifecore.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from warranty_forecast.life_table import life_table
+from warranty_forecast.stages.life_table import life_table
 
 
 def cells(product, at_risk, returns, withdrawn):

@@ -1,4 +1,4 @@
-"""Tests of the grouped, censored lognormal life model (warranty_forecast.lognormal_model).
+"""Tests of the grouped, censored lognormal life model (warranty_forecast.lifecore.lognormal_model).
 
 Every external check names its source beside it. All simulations are seeded. Every test in this
 module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...) fails it.
@@ -13,8 +13,8 @@ import pytest
 from scipy import optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.life_model import FitNotConvergedError, InsufficientDataError, LifeData, WeibullFitter
-from warranty_forecast.lognormal_model import (
+from warranty_forecast.lifecore.life_model import FitNotConvergedError, InsufficientDataError, LifeData, WeibullFitter
+from warranty_forecast.lifecore.lognormal_model import (
     FamilyComparison,
     LognormalFit,
     LognormalFitter,

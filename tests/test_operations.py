@@ -25,7 +25,7 @@ matplotlib.use("Agg")
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 
-import warranty_forecast.publish as publish  # noqa: E402
+import warranty_forecast.outputs.publish as publish  # noqa: E402
 import warranty_forecast.run as run_module  # noqa: E402
 from warranty_forecast import exit_codes  # noqa: E402
 from warranty_forecast.cli import main  # noqa: E402
@@ -138,7 +138,7 @@ HOLD_THE_LOCK = textwrap.dedent(
     """
     import sys
     from pathlib import Path
-    from warranty_forecast.publish import lock_output_folder
+    from warranty_forecast.outputs.publish import lock_output_folder
     with lock_output_folder(Path(sys.argv[1])):
         print("locked", flush=True)
         sys.stdin.read()  # hold it until the test closes our stdin
@@ -203,7 +203,7 @@ CRASH_BETWEEN_THE_RENAMES = textwrap.dedent(
     import os, sys
     from pathlib import Path
     import pandas as pd
-    from warranty_forecast import publish
+    from warranty_forecast.outputs import publish
     publish._exchange_folders = lambda first, second: False  # the two-rename fallback
     publish._move_in = lambda incoming, folder: os._exit(9)  # killed after the first rename
     publish.publish_outputs(Path(sys.argv[1]), {"new": pd.DataFrame({"a": [2]})}, {}, {}, {"generation": 2})

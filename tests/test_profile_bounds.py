@@ -1,5 +1,5 @@
 """Tests of likelihood-ratio (profile likelihood) bounds, the fixed-shape fit and UnidentifiableError
-(warranty_forecast.life_model).
+(warranty_forecast.lifecore.life_model).
 
 Every external check names its source beside it; reference numbers live in tests/reference_values.py.
 Simulations are seeded. Every test in this module turns warnings into errors.
@@ -15,7 +15,7 @@ import pytest
 from scipy import optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.life_model import (
+from warranty_forecast.lifecore.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,

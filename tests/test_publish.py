@@ -6,17 +6,14 @@ import hashlib
 import json
 import os
 
-import matplotlib
+import pandas as pd
+import pytest
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import pandas as pd  # noqa: E402
-import pytest  # noqa: E402
-
-import warranty_forecast.publish as publish  # noqa: E402
-from warranty_forecast import __version__  # noqa: E402
-from warranty_forecast.errors import OutputError  # noqa: E402
-from warranty_forecast.publish import publish_outputs, sha256_of  # noqa: E402
+import warranty_forecast.outputs.publish as publish
+from warranty_forecast import __version__
+from warranty_forecast.errors import OutputError
+from warranty_forecast.outputs.publish import publish_outputs, sha256_of
 
 
 def beside(folder):
@@ -26,9 +23,8 @@ def beside(folder):
 
 def test_writes_tables_figures_texts_and_manifest_last(tmp_path):
     out = tmp_path / "run"
-    figure = plt.figure()
+    figure = Figure()
     written = publish_outputs(out, {"t": pd.DataFrame({"a": [1, 2]})}, {"f": figure}, {"r.md": "# hi"}, {"k": 1})
-    plt.close(figure)
     assert sorted(p.name for p in out.iterdir()) == ["f.png", "manifest.json", "r.md", "t.parquet"]
     manifest = json.loads((out / "manifest.json").read_text())
     assert manifest["k"] == 1
@@ -148,14 +144,13 @@ def test_replaces_an_earlier_versions_outputs_only_when_every_file_matches_its_c
 @pytest.mark.parametrize("umask", [0o022, 0o027, 0o002])
 def test_folders_and_files_follow_the_umask(tmp_path, umask):
     out = tmp_path / "deep" / "run"
-    figure = plt.figure()
+    figure = Figure()
     previous = os.umask(umask)
     try:
         publish_outputs(out, {"t": pd.DataFrame({"a": [1]})}, {"f": figure}, {"r.md": "x"}, {})
         publish_outputs(out, {"t": pd.DataFrame({"a": [1]})}, {"f": figure}, {"r.md": "x"}, {})  # a replacement too
     finally:
         os.umask(previous)
-        plt.close(figure)
     for folder in (out, out.parent):
         assert folder.stat().st_mode & 0o777 == 0o777 & ~umask, folder
     for path in [*out.iterdir(), tmp_path / "deep" / ".run.lock"]:

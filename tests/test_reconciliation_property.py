@@ -16,7 +16,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from warranty_forecast.config import RunSettings, load_config
-from warranty_forecast.shaping import shape_extracts
+from warranty_forecast.stages.shaping import shape_extracts
 
 AS_OF = dt.date(2024, 12, 31)
 RUN_DATE = dt.date(2025, 6, 30)

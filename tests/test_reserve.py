@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 from warranty_forecast.config import ReserveSettings
-from warranty_forecast.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+from warranty_forecast.stages.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
 
 JAN, FEB = dt.date(2024, 1, 1), dt.date(2024, 2, 1)
 

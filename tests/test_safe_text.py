@@ -12,8 +12,8 @@ import io
 import pandas as pd
 import pytest
 
-from warranty_forecast import charts
-from warranty_forecast.safe_text import chart_text, markdown_text, one_line
+from warranty_forecast.outputs import charts
+from warranty_forecast.outputs.safe_text import chart_text, markdown_text, one_line
 
 HOSTILE_NAMES = [
     "QX|1",
@@ -81,7 +81,6 @@ def test_charts_draw_hostile_product_and_failure_code_names():
     by_month = charts.expected_returns_by_month(forecast)
     for figure in (heatmap, pareto, by_month):
         figure.savefig(io.BytesIO(), format="png", dpi=30)  # drawing is where math markup fails
-        charts.plt.close(figure)
     titles = {a.get_title() for a in heatmap.axes if a.get_visible()}
     assert r"\$x: returns per 1,000 at risk" in titles
     legend = [t.get_text() for t in by_month.axes[0].get_legend().get_texts()]

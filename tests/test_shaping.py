@@ -16,7 +16,7 @@ import pytest
 
 from warranty_forecast.config import RunSettings, load_config
 from warranty_forecast.errors import ConfigError, ContractError, InputUnreadableError
-from warranty_forecast.shaping import DataFreshness, shape_extracts
+from warranty_forecast.stages.shaping import DataFreshness, shape_extracts
 
 SHIPMENT_HEADER = "product,build_month,ship_date,sale_date,units,warranty_months,serial"
 CLAIM_HEADER = "claim_id,product,build_month,sale_date,failure_date,claim_date,cost,status,failure_code,serial"

@@ -6,7 +6,7 @@ line; anything else is logged with its traceback and exits 1. SIGINT and SIGTERM
 an exception, so every clean-up runs, and exit 128 + the signal number.
 
 `run` checks and locks the output folder before computing anything (see
-`warranty_forecast.publish.lock_output_folder`) and holds the lock until the outputs are published.
+`warranty_forecast.outputs.publish.lock_output_folder`) and holds the lock until the outputs are published.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from typing import Iterator, Sequence
 
 from warranty_forecast import __version__, exit_codes
 from warranty_forecast.config import load_config, parse_date
-from warranty_forecast.safe_text import one_line
+from warranty_forecast.outputs.safe_text import one_line
 from warranty_forecast.errors import (
     AlreadyRunningError,
     ConfigError,
@@ -181,7 +181,7 @@ def _dispatch(arguments: argparse.Namespace, rest: list[str]) -> int:
     if arguments.command == "run":
         return _run(arguments)
     if arguments.command == "bench":
-        from warranty_forecast.bench import main as bench_main
+        from warranty_forecast.tools.bench import main as bench_main
 
         return bench_main(rest)
     return _demo_data(arguments)
@@ -265,7 +265,7 @@ class _StopOnSignal:
 
 
 def _run(arguments: argparse.Namespace) -> int:
-    from warranty_forecast.publish import lock_output_folder
+    from warranty_forecast.outputs.publish import lock_output_folder
     from warranty_forecast.run import run_nightly
 
     as_of = parse_date(arguments.as_of, "--as-of") if arguments.as_of else None
@@ -284,7 +284,7 @@ def _run(arguments: argparse.Namespace) -> int:
 
 
 def _demo_data(arguments: argparse.Namespace) -> int:
-    from warranty_forecast.demo_data import write_demo_data
+    from warranty_forecast.tools.demo_data import write_demo_data
 
     demo = write_demo_data(arguments.out, seed=arguments.seed)
     log.info(

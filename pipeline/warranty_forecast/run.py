@@ -16,10 +16,10 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from warranty_forecast import charts
+from warranty_forecast.outputs import charts
 from warranty_forecast.config import RunConfig, check_products_in_data
-from warranty_forecast.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
-from warranty_forecast.fitting import (
+from warranty_forecast.stages.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
+from warranty_forecast.stages.fitting import (
     FITTED,
     FIXED_SHAPE,
     PUBLISHED_STATUSES,
@@ -28,19 +28,19 @@ from warranty_forecast.fitting import (
     life_data_by_product,
     life_model_table,
 )
-from warranty_forecast.forecast import (
+from warranty_forecast.stages.forecast import (
     CompetingRisks,
     LifeDistribution,
     expected_future_returns,
     expected_future_returns_by_mode,
     forecast_by_month,
 )
-from warranty_forecast.life_model import WeibullFit
-from warranty_forecast.life_table import life_table
-from warranty_forecast.publish import publish_outputs, sha256_of
-from warranty_forecast.report import render_report
-from warranty_forecast.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
-from warranty_forecast.shaping import shape_extracts
+from warranty_forecast.lifecore.life_model import WeibullFit
+from warranty_forecast.stages.life_table import life_table
+from warranty_forecast.outputs.publish import publish_outputs, sha256_of
+from warranty_forecast.outputs.report import render_report
+from warranty_forecast.stages.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+from warranty_forecast.stages.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
 
@@ -177,11 +177,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         quarantine=shaped.quarantine,
         warnings=warnings,
     )
-    try:
-        written = publish_outputs(config.out_dir, tables, figures, {"report.md": report}, manifest)
-    finally:
-        for figure in figures.values():
-            charts.plt.close(figure)
+    written = publish_outputs(config.out_dir, tables, figures, {"report.md": report}, manifest)
     clock.done("publish", started, f"{len(written) + 1} files to {config.out_dir}")
     return RunResult(config.out_dir, shaped.as_of_date, manifest, tuple(warnings))
 

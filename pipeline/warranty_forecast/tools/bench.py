@@ -1,6 +1,6 @@
 """Benchmark: the grouped Weibull fit against per-unit fits of the same simulated warranty data.
 
-    python -m warranty_forecast.bench [--sizes 10000 100000 1000000] [--seed N] [--skip-per-unit-above N]
+    python -m warranty_forecast.tools.bench [--sizes 10000 100000 1000000] [--seed N] [--skip-per-unit-above N]
 
 (`make bench` runs it in .venv-bench, which also has lifelines.) This is a report, not a test: it
 prints a table and the targets, and exits 0 whether or not they are met; non-zero only on errors.
@@ -59,7 +59,7 @@ import numpy as np
 import numpy.typing as npt
 from scipy import optimize, stats
 
-from warranty_forecast.life_model import LifeData, WeibullFit, WeibullFitter
+from warranty_forecast.lifecore.life_model import LifeData, WeibullFit, WeibullFitter
 
 DAYS_PER_MONTH = 365.25 / 12
 DEFAULT_SIZES = (10_000, 100_000, 1_000_000)
@@ -476,7 +476,7 @@ def report(results: Sequence[SizeResult], sim: Simulation, seed: int, repeats: i
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="python -m warranty_forecast.bench",
+        prog="python -m warranty_forecast.tools.bench",
         allow_abbrev=False,
         description="Benchmark the grouped Weibull fit against per-unit fits with scipy and lifelines.",
     )

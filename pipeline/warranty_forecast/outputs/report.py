@@ -10,7 +10,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from warranty_forecast.safe_text import markdown_text
+from warranty_forecast.outputs.safe_text import markdown_text
 
 CAUTIONS = (
     "Reserve figures are statistical estimates (expected future returns x cost per claim, undiscounted, "

@@ -30,7 +30,7 @@ import numpy.typing as npt
 import pandas as pd
 from scipy import special, stats
 
-from warranty_forecast.life_model import LifeData
+from warranty_forecast.lifecore.life_model import LifeData
 
 logger = logging.getLogger(__name__)
 

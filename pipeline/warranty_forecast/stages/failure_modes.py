@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
-from warranty_forecast.fitting import PUBLISHED_STATUSES, fit_weibull
-from warranty_forecast.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
+from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, fit_weibull
+from warranty_forecast.lifecore.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
 
 OTHER = "other"
 

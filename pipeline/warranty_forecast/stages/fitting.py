@@ -23,8 +23,8 @@ import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
 from warranty_forecast.errors import FitError
-from warranty_forecast.goodness_of_fit import GoodnessOfFit, goodness_of_fit
-from warranty_forecast.life_model import (
+from warranty_forecast.lifecore.goodness_of_fit import GoodnessOfFit, goodness_of_fit
+from warranty_forecast.lifecore.life_model import (
     InsufficientDataError,
     LifeData,
     LikelihoodRatioBounds,
@@ -33,7 +33,7 @@ from warranty_forecast.life_model import (
     WeibullFitter,
     likelihood_ratio_bounds,
 )
-from warranty_forecast.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
+from warranty_forecast.lifecore.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
 
 FITTED = "fitted"
 FIXED_SHAPE = "fixed_shape"

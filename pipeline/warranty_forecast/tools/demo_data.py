@@ -595,7 +595,7 @@ def _truth(seed: int, sims: list[_LineSimulation], raw: pd.DataFrame, planted: p
         planted_counts.setdefault(str(source), {})[str(reason)] = int(n)
     status = raw["status"].value_counts().sort_index()
     return {
-        "description": "Invented demo data from the seeded generator warranty_forecast.demo_data; "
+        "description": "Invented demo data from the seeded generator warranty_forecast.tools.demo_data; "
         "no real company, product or claim.",
         "company": COMPANY,
         "as_of_date": AS_OF_DATE.isoformat(),
@@ -686,10 +686,10 @@ def _readme(data: DemoData, sizes: dict[str, int]) -> str:
     return f"""# Demo data: invented warranty extracts
 
 Everything here is **invented demo data** made by our own seeded generator
-(`pipeline/warranty_forecast/demo_data.py`, seed {t['seed']}). The company, {t['company']}, and its
+(`pipeline/warranty_forecast/tools/demo_data.py`, seed {t['seed']}). The company, {t['company']}, and its
 products do not exist. Regenerate with `warranty-forecast demo-data` or
 
-    python -c 'from pathlib import Path; from warranty_forecast.demo_data import write_demo_data; write_demo_data(Path("data_demo"))'
+    python -c 'from pathlib import Path; from warranty_forecast.tools.demo_data import write_demo_data; write_demo_data(Path("data_demo"))'
 
 The same seed gives byte-identical files.
 

@@ -1,6 +1,6 @@
 """Lognormal life model for grouped, censored warranty data, fitted by maximum likelihood.
 
-An alternative life family to the Weibull of `warranty_forecast.life_model`, fitted on the same `LifeData`
+An alternative life family to the Weibull of `warranty_forecast.lifecore.life_model`, fitted on the same `LifeData`
 (ages in months in service, or any unit used consistently).
 
 Parameterisation
@@ -35,7 +35,7 @@ import numpy.typing as npt
 from scipy import optimize, special
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.life_model import (
+from warranty_forecast.lifecore.life_model import (
     FitNotConvergedError,
     InsufficientDataError,
     LifeData,

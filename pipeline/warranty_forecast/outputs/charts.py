@@ -1,4 +1,5 @@
-"""Static charts of a run. Functions return matplotlib Figures (Agg backend); the publisher saves them.
+"""Static charts of a run. Functions return matplotlib Figures built without pyplot (no global state,
+no backend chosen at import, nothing to close); the publisher saves them as PNG.
 
 No fitting or file I/O happens here: every chart draws tables computed by the statistics stages.
 """
@@ -8,17 +9,13 @@ from __future__ import annotations
 import math
 from typing import Mapping, Protocol
 
-import matplotlib
+import numpy as np
+import pandas as pd
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-
-from warranty_forecast.life_model import WeibullFit  # noqa: E402
-from warranty_forecast.safe_text import chart_text  # noqa: E402
+from warranty_forecast.lifecore.life_model import WeibullFit
+from warranty_forecast.outputs.safe_text import chart_text
 
 _PER_THOUSAND = 1000.0
 
@@ -32,7 +29,8 @@ class LifeCurve(Protocol):
 def _grid(count: int, width: float = 5.0, height: float = 4.2) -> tuple[Figure, np.ndarray]:
     columns = min(max(count, 1), 3)
     rows = max(1, math.ceil(count / columns))
-    figure, axes = plt.subplots(rows, columns, figsize=(width * columns, height * rows), squeeze=False)
+    figure = Figure(figsize=(width * columns, height * rows))
+    axes = figure.subplots(rows, columns, squeeze=False)
     for extra in axes.flat[count:]:
         extra.set_visible(False)
     return figure, axes
@@ -125,7 +123,7 @@ def _weibull_scale(fraction: pd.Series | np.ndarray) -> np.ndarray:
     return np.log(-np.log1p(-values))
 
 
-def _fraction_ticks(axis: plt.Axes) -> None:
+def _fraction_ticks(axis: Axes) -> None:
     secondary = axis.secondary_yaxis("right", functions=(lambda y: y, lambda y: y))
     fractions = np.array([1e-4, 1e-3, 0.01, 0.05, 0.1, 0.3, 0.632, 0.9, 0.99])
     secondary.set_yticks(_weibull_scale(fractions), [f"{f:.2%}".rstrip("0").rstrip(".") for f in fractions])
@@ -134,7 +132,8 @@ def _fraction_ticks(axis: plt.Axes) -> None:
 
 def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
     """Expected future returns per calendar month, stacked by product."""
-    figure, axis = plt.subplots(figsize=(10, 4.5))
+    figure = Figure(figsize=(10, 4.5))
+    axis = figure.subplots()
     if forecast.empty:
         axis.text(0.5, 0.5, "no forecast: no product has a published life model", ha="center", va="center")
         axis.set_axis_off()

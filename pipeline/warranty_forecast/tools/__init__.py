@@ -1,0 +1,1 @@
+"""Tools beside the nightly path: the seeded demo-data generator and the benchmark."""
