@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 from pathlib import Path
 
@@ -159,3 +160,24 @@ def test_a_run_with_a_per_product_key_for_an_unknown_product_stops_before_publis
     with pytest.raises(ConfigError, match=r"cost_per_claim_by_product\.PUMP-2 .*did you mean 'PUMP-1'"):
         run_nightly(config)
     assert not out.exists()
+
+
+def test_settings_round_trip_through_their_document(tmp_path):
+    # every key is declared once (a settings field); the manifest's copy parses back to the same settings
+    from warranty_forecast.config import SECTIONS, settings_as_document, settings_from_document
+
+    config = config_from(
+        tmp_path,
+        "[reserve]\ncost_per_claim = 12.5\n[reserve.cost_per_claim_by_product]\nA = 3.0\n"
+        "[life_model]\nfixed_shape = 1.5\ngoodness_of_fit_warning_p_value = 0.01\n"
+        "[life_model.fixed_shape_by_product]\nB = 2.0\n[claims]\ncounted_statuses = ['approved', 'rejected']\n",
+    )
+    document = settings_as_document(config)
+    assert set(document) == set(SECTIONS)
+    for name, settings in SECTIONS.items():
+        assert set(document[name]) == {item.name for item in dataclasses.fields(settings)}
+    parsed = settings_from_document(
+        {name: {k: v for k, v in table.items() if v is not None} for name, table in document.items()}, "round trip"
+    )
+    assert all(parsed[name] == getattr(config, name) for name in SECTIONS)
+    assert config.life_model.goodness_of_fit_warning_p_value == 0.01

@@ -2,51 +2,22 @@
 
 This is the only module that reads configuration files. Nothing happens at import time.
 
-TOML keys (every key optional; unknown keys are an error so that typos do not pass silently):
-
-```toml
-[run]
-max_data_gap_days = 7            # warn when the as-of date trails the run date, or an extract's newest date
-                                 # trails the as-of date, by more days than this
-max_quarantined_share = 0.05     # stop (exit 6, nothing published) when more of an extract's rows are quarantined
-
-[warranty]
-default_months = 24              # coverage length (months) for shipment rows without warranty_months
-max_months = 240                 # a shipment row with a longer warranty_months is quarantined
-
-[shipments]
-max_units_per_row = 1000000000   # a shipment row with more units is quarantined
-
-[claims]
-counted_statuses = ["approved"]  # claim statuses that count as returns in the life model
-
-[reserve]
-cost_per_claim = 85.0            # currency units; overrides the observed mean cost for every product
-cost_window_months = 12          # trailing window (months before the as-of date) for the mean cost
-[reserve.cost_per_claim_by_product]
-WP10 = 90.0                      # per-product override; wins over cost_per_claim
-
-[life_model]
-confidence_level = 0.95          # two-sided level of every confidence bound (Wald and likelihood-ratio)
-min_returns = 5                  # fewer counted returns: fixed-shape fit if a shape is configured, else none
-fixed_shape = 1.5                # shape from engineering experience for thin or unidentifiable data
-min_returns_per_mode = 20        # failure codes with fewer returns fold into "other"
-forecast_model = "weibull"       # "weibull", "lognormal" or "failure_modes" (competing risks by code)
-aic_threshold = 10.0             # warn when the lognormal AIC beats the Weibull by more than this
-[life_model.fixed_shape_by_product]
-QHT-360 = 2.5                    # per-product shape; wins over fixed_shape
-```
+Every key is declared once, as a field of its section's settings class below, with its default and its
+rule (`_key`); parsing, the unknown-key check and the manifest's copy of the settings all derive from
+those fields. The README's Configuration section shows the whole file with a comment per key. Every
+key is optional; an unknown key is an error, so that a typo does not pass silently.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import difflib
 import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 from warranty_forecast.errors import ConfigError
 
@@ -59,59 +30,144 @@ FORECAST_MODELS: tuple[str, ...] = ("weibull", "lognormal", "failure_modes")
 MAX_WARRANTY_MONTHS_LIMIT = 1200
 MAX_UNITS_PER_ROW_LIMIT = 1_000_000_000
 
+# A rule turns a TOML value into the setting's value or raises ValueError with what it must be.
+Rule = Callable[[Any], Any]
+
+
+def _key(default: Any, rule: Rule) -> Any:
+    """A settings field: its default and the rule its TOML value must pass."""
+    return field(default=default, metadata={"rule": rule})
+
+
+def _integer(minimum: int, maximum: int | None = None) -> Rule:
+    def rule(value: Any) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+            raise ValueError(f"must be an integer >= {minimum}")
+        if maximum is not None and value > maximum:
+            raise ValueError(f"must be an integer <= {maximum:_}")
+        return value
+    return rule
+
+
+def _number_in(low: float, high: float, *, high_included: bool, unit: str = "") -> Rule:
+    interval = f"[{low:g}, {high:g}{']' if high_included else ')'}"
+
+    def rule(value: Any) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise ValueError(f"must be a number in {interval}{unit}")
+        if not (low <= value <= high if high_included else low <= value < high):
+            raise ValueError(f"must be a number in {interval}{unit}")
+        return float(value)
+    return rule
+
+
+def _non_negative(unit: str = "") -> Rule:
+    def rule(value: Any) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
+            raise ValueError(f"must be a number >= 0{unit}")
+        return float(value)
+    return rule
+
+
+def _weibull_shape(value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.05 <= value <= 20:
+        raise ValueError("must be a Weibull shape in [0.05, 20]")
+    return float(value)
+
+
+def _one_of(choices: Sequence[str]) -> Rule:
+    def rule(value: Any) -> str:
+        if value not in choices:
+            raise ValueError(f"must be one of {list(choices)}")
+        return value
+    return rule
+
+
+def _statuses(value: Any) -> tuple[str, ...]:
+    if not isinstance(value, list) or not value or any(not isinstance(s, str) or s not in CLAIM_STATUSES for s in value):
+        raise ValueError(f"must be a non-empty list drawn from {list(CLAIM_STATUSES)}")
+    return tuple(dict.fromkeys(value))
+
+
+def _by_product(rule: Rule) -> Rule:
+    """A table of product -> value, each value held to `rule`; kept as sorted (product, value) pairs."""
+    def table_rule(value: Any) -> tuple[tuple[str, Any], ...]:
+        if not isinstance(value, Mapping):
+            raise ValueError(" must be a table of product = value")
+        pairs = []
+        for product, item in value.items():
+            try:
+                pairs.append((str(product), rule(item)))
+            except ValueError as error:
+                raise ValueError(f".{product} {error}, got {item!r}") from None
+        return tuple(sorted(pairs))
+    table_rule.is_table = True  # type: ignore[attr-defined]
+    return table_rule
+
 
 @dataclass(frozen=True)
 class RunSettings:
-    max_data_gap_days: int = 7
-    max_quarantined_share: float = 0.05
+    """[run]: when to warn about stale extracts and when to refuse a run."""
+
+    max_data_gap_days: int = _key(7, _integer(0))  # days between the as-of date and the newest data, or the run date
+    max_quarantined_share: float = _key(0.05, _number_in(0.0, 1.0, high_included=True))  # above: exit 6
 
 
 @dataclass(frozen=True)
 class WarrantySettings:
-    default_months: int = 24
-    max_months: int = 240
+    """[warranty]: coverage lengths in months."""
+
+    default_months: int = _key(24, _integer(1))  # for shipment rows without warranty_months (<= max_months)
+    max_months: int = _key(240, _integer(1, MAX_WARRANTY_MONTHS_LIMIT))  # longer: the row is quarantined
+
+    def check(self) -> None:
+        if self.default_months > self.max_months:
+            raise ValueError(f"default_months must be an integer <= {self.max_months:_}, got {self.default_months!r}")
 
 
 @dataclass(frozen=True)
 class ShipmentSettings:
-    max_units_per_row: int = MAX_UNITS_PER_ROW_LIMIT
+    """[shipments]: limits on a shipments row."""
+
+    max_units_per_row: int = _key(MAX_UNITS_PER_ROW_LIMIT, _integer(1, MAX_UNITS_PER_ROW_LIMIT))
 
 
 @dataclass(frozen=True)
 class ClaimSettings:
-    counted_statuses: tuple[str, ...] = ("approved",)
+    """[claims]: which claims count as returns."""
+
+    counted_statuses: tuple[str, ...] = _key(("approved",), _statuses)
 
 
 @dataclass(frozen=True)
 class ReserveSettings:
-    cost_per_claim: float | None = None
-    cost_window_months: int = 12
-    cost_per_claim_by_product: tuple[tuple[str, float], ...] = ()
+    """[reserve]: the cost per claim (currency units)."""
+
+    cost_per_claim: float | None = _key(None, _non_negative(" (currency units)"))  # None: observed costs
+    cost_window_months: int = _key(12, _integer(1))  # trailing window for the observed mean cost
+    cost_per_claim_by_product: tuple[tuple[str, float], ...] = _key((), _by_product(_non_negative(" (currency units)")))
 
     def override_for(self, product: str) -> float | None:
         """The configured cost per claim (currency units) for a product, or None to use observed costs."""
-        for name, cost in self.cost_per_claim_by_product:
-            if name == product:
-                return cost
-        return self.cost_per_claim
+        return dict(self.cost_per_claim_by_product).get(product, self.cost_per_claim)
 
 
 @dataclass(frozen=True)
 class LifeModelSettings:
-    confidence_level: float = 0.95
-    min_returns: int = 5
-    fixed_shape: float | None = None
-    fixed_shape_by_product: tuple[tuple[str, float], ...] = ()
-    min_returns_per_mode: int = 20
-    forecast_model: str = "weibull"
-    aic_threshold: float = 10.0
+    """[life_model]: fitting, bounds, forecast model and the thresholds of its warnings."""
+
+    confidence_level: float = _key(0.95, _number_in(0.5, 1.0, high_included=False))
+    min_returns: int = _key(5, _integer(2))
+    fixed_shape: float | None = _key(None, _weibull_shape)  # None: both parameters fitted
+    fixed_shape_by_product: tuple[tuple[str, float], ...] = _key((), _by_product(_weibull_shape))
+    min_returns_per_mode: int = _key(20, _integer(2))
+    forecast_model: str = _key("weibull", _one_of(FORECAST_MODELS))
+    aic_threshold: float = _key(10.0, _non_negative())  # warn when the lognormal's AIC is lower by more
+    goodness_of_fit_warning_p_value: float = _key(0.001, _number_in(0.0, 1.0, high_included=False))
 
     def fixed_shape_for(self, product: str) -> float | None:
         """The configured Weibull shape for a product (engineering experience), or None."""
-        for name, shape in self.fixed_shape_by_product:
-            if name == product:
-                return shape
-        return self.fixed_shape
+        return dict(self.fixed_shape_by_product).get(product, self.fixed_shape)
 
 
 @dataclass(frozen=True)
@@ -209,101 +265,56 @@ def check_products_in_data(config: RunConfig, known_products: Sequence[str]) -> 
             )
 
 
+# The TOML tables, each the name of a RunConfig field and its settings class.
+SECTIONS: dict[str, type] = {
+    "run": RunSettings,
+    "warranty": WarrantySettings,
+    "shipments": ShipmentSettings,
+    "claims": ClaimSettings,
+    "reserve": ReserveSettings,
+    "life_model": LifeModelSettings,
+}
+
+
 def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str, Any]:
     """Validate a parsed TOML document; return the settings objects keyed as RunConfig fields."""
-    _reject_unknown(document, {"run", "warranty", "shipments", "claims", "reserve", "life_model"}, source, "")
-    run = _table(document, "run", source)
-    warranty = _table(document, "warranty", source)
-    shipments = _table(document, "shipments", source)
-    claims = _table(document, "claims", source)
-    reserve = _table(document, "reserve", source)
-    life_model = _table(document, "life_model", source)
-    _reject_unknown(run, {"max_data_gap_days", "max_quarantined_share"}, source, "run.")
-    _reject_unknown(warranty, {"default_months", "max_months"}, source, "warranty.")
-    _reject_unknown(shipments, {"max_units_per_row"}, source, "shipments.")
-    _reject_unknown(claims, {"counted_statuses"}, source, "claims.")
-    _reject_unknown(
-        reserve, {"cost_per_claim", "cost_window_months", "cost_per_claim_by_product"}, source, "reserve."
-    )
-    _reject_unknown(
-        life_model,
-        {
-            "confidence_level", "min_returns", "fixed_shape", "fixed_shape_by_product", "min_returns_per_mode",
-            "forecast_model", "aic_threshold",
-        },
-        source,
-        "life_model.",
-    )
+    _reject_unknown(document, set(SECTIONS), source, "")
+    return {name: _section(settings, _table(document, name, source), source, name) for name, settings in SECTIONS.items()}
 
-    max_months = _int(
-        warranty, "max_months", 240, source, "warranty.", minimum=1, maximum=MAX_WARRANTY_MONTHS_LIMIT
-    )
-    default_months = _int(warranty, "default_months", 24, source, "warranty.", minimum=1, maximum=max_months)
-    share = run.get("max_quarantined_share", 0.05)
-    if isinstance(share, bool) or not isinstance(share, (int, float)) or not 0.0 <= float(share) <= 1.0:
-        raise ConfigError(f"{source}: run.max_quarantined_share must be a number in [0, 1], got {share!r}")
-    statuses = claims.get("counted_statuses", ["approved"])
-    if (
-        not isinstance(statuses, list)
-        or not statuses
-        or any(not isinstance(s, str) or s not in CLAIM_STATUSES for s in statuses)
-    ):
-        raise ConfigError(
-            f"{source}: claims.counted_statuses must be a non-empty list drawn from {list(CLAIM_STATUSES)},"
-            f" got {statuses!r}"
-        )
-    by_product_table = _table(reserve, "cost_per_claim_by_product", source)
-    by_product = tuple(
-        sorted(
-            (str(name), _cost(by_product_table, name, source, "reserve.cost_per_claim_by_product."))
-            for name in by_product_table
-        )
-    )
-    cost = _cost(reserve, "cost_per_claim", source, "reserve.") if "cost_per_claim" in reserve else None
-    shapes_by_product = _table(life_model, "fixed_shape_by_product", source)
-    forecast_model = life_model.get("forecast_model", "weibull")
-    if forecast_model not in FORECAST_MODELS:
-        raise ConfigError(
-            f"{source}: life_model.forecast_model must be one of {list(FORECAST_MODELS)}, got {forecast_model!r}"
-        )
-    level = life_model.get("confidence_level", 0.95)
-    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.5 <= float(level) < 1.0:
-        raise ConfigError(f"{source}: life_model.confidence_level must be a number in [0.5, 1), got {level!r}")
-    return {
-        "run": RunSettings(
-            max_data_gap_days=_int(run, "max_data_gap_days", 7, source, "run.", minimum=0),
-            max_quarantined_share=float(share),
-        ),
-        "warranty": WarrantySettings(default_months=default_months, max_months=max_months),
-        "shipments": ShipmentSettings(
-            max_units_per_row=_int(
-                shipments, "max_units_per_row", MAX_UNITS_PER_ROW_LIMIT, source, "shipments.",
-                minimum=1, maximum=MAX_UNITS_PER_ROW_LIMIT,
-            )
-        ),
-        "claims": ClaimSettings(counted_statuses=tuple(dict.fromkeys(statuses))),
-        "reserve": ReserveSettings(
-            cost_per_claim=cost,
-            cost_window_months=_int(reserve, "cost_window_months", 12, source, "reserve.", minimum=1),
-            cost_per_claim_by_product=by_product,
-        ),
-        "life_model": LifeModelSettings(
-            confidence_level=float(level),
-            min_returns=_int(life_model, "min_returns", 5, source, "life_model.", minimum=2),
-            fixed_shape=_shape(life_model, "fixed_shape", source, "life_model.") if "fixed_shape" in life_model else None,
-            fixed_shape_by_product=tuple(
-                sorted(
-                    (str(name), _shape(shapes_by_product, name, source, "life_model.fixed_shape_by_product."))
-                    for name in shapes_by_product
-                )
-            ),
-            min_returns_per_mode=_int(life_model, "min_returns_per_mode", 20, source, "life_model.", minimum=2),
-            forecast_model=forecast_model,
-            aic_threshold=_number(life_model, "aic_threshold", source, "life_model.", "")
-            if "aic_threshold" in life_model
-            else 10.0,
-        ),
-    }
+
+def settings_as_document(config: RunConfig) -> dict[str, dict[str, Any]]:
+    """The settings in force, as TOML-shaped tables (for the manifest): by-product pairs as tables."""
+    document = {}
+    for name in SECTIONS:
+        section = getattr(config, name)
+        document[name] = {
+            item.name: (dict(value) if getattr(item.metadata.get("rule"), "is_table", False) else
+                        list(value) if isinstance(value, tuple) else value)
+            for item in dataclasses.fields(section)
+            for value in (getattr(section, item.name),)
+        }
+    return document
+
+
+def _section(settings: type, table: Mapping[str, Any], source: str, name: str) -> Any:
+    keys = {item.name: item for item in dataclasses.fields(settings)}
+    _reject_unknown(table, set(keys), source, f"{name}.")
+    values = {}
+    for key, value in table.items():
+        rule = keys[key].metadata["rule"]
+        try:
+            values[key] = rule(value)
+        except ValueError as error:
+            detail = f"{error}" if getattr(rule, "is_table", False) else f" {error}, got {value!r}"
+            raise ConfigError(f"{source}: {name}.{key}{detail}") from None
+    section = settings(**values)
+    check = getattr(section, "check", None)
+    if check is not None:
+        try:
+            check()
+        except ValueError as error:
+            raise ConfigError(f"{source}: {name}.{error}") from None
+    return section
 
 
 def _table(document: Mapping[str, Any], key: str, source: str) -> Mapping[str, Any]:
@@ -317,33 +328,3 @@ def _reject_unknown(table: Mapping[str, Any], known: set[str], source: str, pref
     unknown = sorted(set(table) - known)
     if unknown:
         raise ConfigError(f"{source}: unknown key(s) {', '.join(prefix + k for k in unknown)}; known: {sorted(known)}")
-
-
-def _int(
-    table: Mapping[str, Any], key: str, default: int, source: str, prefix: str, *, minimum: int,
-    maximum: int | None = None,
-) -> int:
-    value = table.get(key, default)
-    if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
-        raise ConfigError(f"{source}: {prefix}{key} must be an integer >= {minimum}, got {value!r}")
-    if maximum is not None and value > maximum:
-        raise ConfigError(f"{source}: {prefix}{key} must be an integer <= {maximum:_}, got {value!r}")
-    return value
-
-
-def _shape(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
-    value = table[key]
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.05 <= value <= 20:
-        raise ConfigError(f"{source}: {prefix}{key} must be a Weibull shape in [0.05, 20], got {value!r}")
-    return float(value)
-
-
-def _number(table: Mapping[str, Any], key: str, source: str, prefix: str, unit: str) -> float:
-    value = table[key]
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
-        raise ConfigError(f"{source}: {prefix}{key} must be a number >= 0{unit}, got {value!r}")
-    return float(value)
-
-
-def _cost(table: Mapping[str, Any], key: str, source: str, prefix: str) -> float:
-    return _number(table, key, source, prefix, " (currency units)")

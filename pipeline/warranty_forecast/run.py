@@ -7,17 +7,15 @@ from __future__ import annotations
 
 import datetime as dt
 import logging
-import platform
 import time
 from dataclasses import dataclass
-from importlib import metadata
 from pathlib import Path
 from typing import Any, Mapping
 
 import pandas as pd
 
 from warranty_forecast.outputs import charts
-from warranty_forecast.config import RunConfig, check_products_in_data
+from warranty_forecast.config import LifeModelSettings, RunConfig, check_products_in_data
 from warranty_forecast.stages.failure_modes import complete_mode_models, fit_failure_modes, life_model_by_mode_table
 from warranty_forecast.stages.fitting import (
     FITTED,
@@ -37,14 +35,13 @@ from warranty_forecast.stages.forecast import (
 )
 from warranty_forecast.lifecore.life_model import WeibullFit
 from warranty_forecast.stages.life_table import life_table
-from warranty_forecast.outputs.publish import publish_outputs, sha256_of
+from warranty_forecast.outputs.manifest import RunManifest, run_manifest
+from warranty_forecast.outputs.publish import publish_outputs
 from warranty_forecast.outputs.report import render_report
 from warranty_forecast.stages.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
 from warranty_forecast.stages.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
-
-_PACKAGES = ("warranty-forecast", "pandas", "numpy", "scipy", "duckdb", "pyarrow", "matplotlib")
 
 
 @dataclass(frozen=True)
@@ -53,7 +50,7 @@ class RunResult:
 
     out_dir: Path
     as_of_date: dt.date
-    manifest: dict[str, Any]
+    manifest: RunManifest | None  # None only where a test stands in for a run
     warnings: tuple[str, ...]
 
 
@@ -148,7 +145,7 @@ def run_nightly(config: RunConfig) -> RunResult:
     }
     clock.done("charts", started, f"{len(figures)} figures")
 
-    warnings = [*shaped.freshness.warnings(), *model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts)]
+    warnings = [*shaped.freshness.warnings(), *model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts, settings)]
     for text in warnings:
         log.warning("%s", text)
 
@@ -165,9 +162,15 @@ def run_nightly(config: RunConfig) -> RunResult:
         "fit_returns": shaped.fit_returns,
         "fit_suspensions": shaped.fit_suspensions,
     }
-    manifest = _manifest(config, shaped, clock, started_utc, warnings)
-    manifest["finished_utc"] = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
-    manifest["seconds_total"] = round(clock.total, 3)
+    manifest = run_manifest(
+        config,
+        shaped,
+        warnings=tuple(warnings),
+        started_utc=started_utc,
+        finished_utc=dt.datetime.now(dt.timezone.utc),
+        seconds_by_stage=clock.seconds,
+        seconds_total=clock.total,
+    )
     report = render_report(
         manifest=manifest,
         life_model=life_model,
@@ -177,7 +180,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         quarantine=shaped.quarantine,
         warnings=warnings,
     )
-    written = publish_outputs(config.out_dir, tables, figures, {"report.md": report}, manifest)
+    written = publish_outputs(config.out_dir, tables, figures, {"report.md": report}, manifest.to_document())
     clock.done("publish", started, f"{len(written) + 1} files to {config.out_dir}")
     return RunResult(config.out_dir, shaped.as_of_date, manifest, tuple(warnings))
 
@@ -212,7 +215,8 @@ def forecast_models(
 
 
 def _warnings(
-    life_model: pd.DataFrame, by_mode: pd.DataFrame, costs: pd.DataFrame, facts: dict[str, int]
+    life_model: pd.DataFrame, by_mode: pd.DataFrame, costs: pd.DataFrame, facts: dict[str, int],
+    settings: LifeModelSettings,
 ) -> list[str]:
     texts = []
     for row in life_model.itertuples(index=False):
@@ -227,7 +231,7 @@ def _warnings(
             )
         if row.prefers_lognormal:
             texts.append(f"product {row.product}: {row.family_message}")
-        if row.gof_p_value < 0.001:
+        if row.gof_p_value < settings.goodness_of_fit_warning_p_value:
             texts.append(
                 f"product {row.product}: returns by month in service depart from the Weibull (chi-square"
                 f" {row.gof_chi_square:.1f} on {row.gof_df:.0f} df, p = {row.gof_p_value:.1e}; largest residual in"
@@ -245,71 +249,3 @@ def _warnings(
             " check the shipments extract for missing rows"
         )
     return texts
-
-
-def _manifest(
-    config: RunConfig, shaped: Any, clock: _StageClock, started_utc: dt.datetime, warnings: list[str]
-) -> dict[str, Any]:
-    inputs = []
-    for name, path in (("shipments", config.shipments_path), ("claims", config.claims_path)):
-        row = shaped.reconciliation.set_index("extract").loc[name]
-        inputs.append(
-            {
-                "extract": name,
-                "path": str(path),
-                "source_file": row["source_file"],
-                "sha256": sha256_of(path),
-                "bytes": path.stat().st_size,
-                "rows_read": int(row["rows_read"]),
-                "ignored_columns": shaped.ignored_columns[name],
-            }
-        )
-    return {
-        "as_of_date": shaped.as_of_date.isoformat(),
-        "as_of_source": shaped.as_of_source,
-        "run_date": config.run_date.isoformat(),
-        "freshness": shaped.freshness.as_manifest(),
-        "started_utc": started_utc.isoformat(timespec="seconds"),
-        "inputs": inputs,
-        "reconciliation": [
-            {key: (int(value) if not isinstance(value, str) else value) for key, value in row.items()}
-            for row in shaped.reconciliation.to_dict(orient="records")
-        ],
-        "facts": dict(sorted(shaped.run_facts.items())),
-        "quarantine_by_reason": {
-            f"{extract}:{column}:{reason}": int(count)
-            for (extract, column, reason), count in shaped.quarantine.groupby(
-                ["extract", "column", "reason"]
-            ).size().items()
-        },
-        "config": {
-            "path": str(config.config_path) if config.config_path else None,
-            "max_data_gap_days": config.run.max_data_gap_days,
-            "max_quarantined_share": config.run.max_quarantined_share,
-            "default_warranty_months": config.warranty.default_months,
-            "max_warranty_months": config.warranty.max_months,
-            "max_units_per_row": config.shipments.max_units_per_row,
-            "counted_statuses": list(config.claims.counted_statuses),
-            "cost_per_claim": config.reserve.cost_per_claim,
-            "cost_per_claim_by_product": dict(config.reserve.cost_per_claim_by_product),
-            "cost_window_months": config.reserve.cost_window_months,
-            "confidence_level": config.life_model.confidence_level,
-            "min_returns": config.life_model.min_returns,
-            "fixed_shape": config.life_model.fixed_shape,
-            "fixed_shape_by_product": dict(config.life_model.fixed_shape_by_product),
-            "min_returns_per_mode": config.life_model.min_returns_per_mode,
-            "forecast_model": config.life_model.forecast_model,
-            "aic_threshold": config.life_model.aic_threshold,
-        },
-        "warnings": warnings,
-        "seconds_by_stage": dict(clock.seconds),
-        "seconds_by_sql_layer": {k: round(v, 4) for k, v in shaped.seconds_by_layer.items()},
-        "versions": {"python": platform.python_version(), **{p: _version(p) for p in _PACKAGES}},
-    }
-
-
-def _version(package: str) -> str:
-    try:
-        return metadata.version(package)
-    except metadata.PackageNotFoundError:
-        return "not installed"

@@ -10,6 +10,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
+from warranty_forecast.outputs.manifest import RunManifest
 from warranty_forecast.outputs.safe_text import markdown_text
 
 CAUTIONS = (
@@ -67,7 +68,7 @@ def _table(frame: pd.DataFrame) -> str:
 
 def render_report(
     *,
-    manifest: Mapping[str, Any],
+    manifest: RunManifest,
     life_model: pd.DataFrame,
     life_model_by_mode: pd.DataFrame,
     reserve_totals: pd.DataFrame,
@@ -82,11 +83,11 @@ def render_report(
     )
     warnings = [markdown_text(text) for text in warnings]
     lines = [
-        f"# Warranty returns forecast — as of {manifest['as_of_date']}",
+        f"# Warranty returns forecast — as of {manifest.as_of_date}",
         "",
-        f"As-of date {manifest['as_of_date']} ({manifest['as_of_source']}). "
-        f"Run finished {manifest['finished_utc']} (UTC) in {manifest['seconds_total']:.1f} s.",
-        *_freshness_lines(manifest.get("freshness")),
+        f"As-of date {manifest.as_of_date} ({manifest.as_of_source}). "
+        f"Run finished {manifest.finished_utc.isoformat(timespec='seconds')} (UTC) in {manifest.seconds_total:.1f} s.",
+        *_freshness_lines(manifest.freshness),
         "",
         "## Cautions",
         "",
@@ -181,7 +182,7 @@ def render_report(
         ]
     lines += ["", "## Data read", ""]
     lines += [_table(reconciliation), ""]
-    facts = manifest.get("facts", {})
+    facts = manifest.facts
     if facts:
         lines += ["| fact | count |", "|---|---|", *[f"| {k} | {v:,} |" for k, v in facts.items()], ""]
     if len(quarantine):

@@ -1,0 +1,144 @@
+"""The run's manifest as a typed object: what was read, how it was reconciled, the settings in force,
+the warnings, the timings and the versions. `publish` writes it as manifest.json, last, with the
+producer marker and the written files added; the report reads it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import platform
+from dataclasses import dataclass
+from importlib import metadata
+from pathlib import Path
+from typing import Any, Mapping
+
+import pandas as pd
+
+from warranty_forecast.config import RunConfig, settings_as_document
+from warranty_forecast.outputs.publish import sha256_of
+from warranty_forecast.stages.shaping import ShapedData
+
+_PACKAGES = ("warranty-forecast", "pandas", "numpy", "scipy", "duckdb", "pyarrow", "matplotlib")
+
+
+@dataclass(frozen=True)
+class InputFile:
+    """One extract as read: where, its fingerprint, its rows and the columns it carried beyond the contract."""
+
+    extract: str
+    path: str
+    source_file: str
+    sha256: str
+    bytes: int
+    rows_read: int
+    ignored_columns: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class RunManifest:
+    """Everything the manifest records about one run (dates as dates, times in UTC, seconds as floats)."""
+
+    as_of_date: dt.date
+    as_of_source: str
+    run_date: dt.date
+    freshness: Mapping[str, Any]
+    started_utc: dt.datetime
+    finished_utc: dt.datetime
+    seconds_total: float
+    inputs: tuple[InputFile, ...]
+    reconciliation: tuple[Mapping[str, Any], ...]
+    facts: Mapping[str, int]
+    quarantine_by_reason: Mapping[str, int]
+    config_path: str | None
+    settings: Mapping[str, Mapping[str, Any]]
+    warnings: tuple[str, ...]
+    seconds_by_stage: Mapping[str, float]
+    seconds_by_sql_layer: Mapping[str, float]
+    versions: Mapping[str, str]
+
+    def to_document(self) -> dict[str, Any]:
+        """The manifest as JSON-ready data, in the order manifest.json shows it."""
+        return {
+            "as_of_date": self.as_of_date.isoformat(),
+            "as_of_source": self.as_of_source,
+            "run_date": self.run_date.isoformat(),
+            "freshness": dict(self.freshness),
+            "started_utc": self.started_utc.isoformat(timespec="seconds"),
+            "inputs": [
+                {**vars(item), "ignored_columns": list(item.ignored_columns)} for item in self.inputs
+            ],
+            "reconciliation": [dict(row) for row in self.reconciliation],
+            "facts": dict(self.facts),
+            "quarantine_by_reason": dict(self.quarantine_by_reason),
+            "config": {"path": self.config_path, **{name: dict(table) for name, table in self.settings.items()}},
+            "warnings": list(self.warnings),
+            "seconds_by_stage": dict(self.seconds_by_stage),
+            "seconds_by_sql_layer": dict(self.seconds_by_sql_layer),
+            "versions": dict(self.versions),
+            "finished_utc": self.finished_utc.isoformat(timespec="seconds"),
+            "seconds_total": self.seconds_total,
+        }
+
+
+def run_manifest(
+    config: RunConfig,
+    shaped: ShapedData,
+    *,
+    warnings: tuple[str, ...],
+    started_utc: dt.datetime,
+    finished_utc: dt.datetime,
+    seconds_by_stage: Mapping[str, float],
+    seconds_total: float,
+) -> RunManifest:
+    """The manifest of a run whose stages are done (the input files are fingerprinted here)."""
+    reconciliation = shaped.reconciliation.set_index("extract")
+    inputs = tuple(
+        _input_file(name, path, reconciliation.loc[name], shaped.ignored_columns[name])
+        for name, path in (("shipments", config.shipments_path), ("claims", config.claims_path))
+    )
+    return RunManifest(
+        as_of_date=shaped.as_of_date,
+        as_of_source=shaped.as_of_source,
+        run_date=config.run_date,
+        freshness=shaped.freshness.as_manifest(),
+        started_utc=started_utc,
+        finished_utc=finished_utc,
+        seconds_total=round(seconds_total, 3),
+        inputs=inputs,
+        reconciliation=tuple(
+            {key: (value if isinstance(value, str) else int(value)) for key, value in row.items()}
+            for row in shaped.reconciliation.to_dict(orient="records")
+        ),
+        facts=dict(sorted(shaped.run_facts.items())),
+        quarantine_by_reason=_quarantine_counts(shaped.quarantine),
+        config_path=str(config.config_path) if config.config_path else None,
+        settings=settings_as_document(config),
+        warnings=warnings,
+        seconds_by_stage=dict(seconds_by_stage),
+        seconds_by_sql_layer={layer: round(seconds, 4) for layer, seconds in shaped.seconds_by_layer.items()},
+        versions={"python": platform.python_version(), **{package: _version(package) for package in _PACKAGES}},
+    )
+
+
+def _input_file(extract: str, path: Path, reconciled: pd.Series, ignored: list[str]) -> InputFile:
+    return InputFile(
+        extract=extract,
+        path=str(path),
+        source_file=str(reconciled["source_file"]),
+        sha256=sha256_of(path),
+        bytes=path.stat().st_size,
+        rows_read=int(reconciled["rows_read"]),
+        ignored_columns=tuple(ignored),
+    )
+
+
+def _quarantine_counts(quarantine: pd.DataFrame) -> dict[str, int]:
+    counts = quarantine.groupby(["extract", "column", "reason"]).size()
+    return {f"{extract}:{column}:{reason}": int(count) for (extract, column, reason), count in counts.items()}
+
+
+def _version(package: str) -> str:
+    try:
+        return metadata.version(package)
+    except metadata.PackageNotFoundError:
+        return "not installed"
