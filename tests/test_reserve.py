@@ -9,7 +9,12 @@ import pandas as pd
 import pytest
 
 from warranty_forecast.config import ReserveSettings
-from warranty_forecast.stages.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+from warranty_forecast.stages.reserve import (
+    book_reserve,
+    cost_per_claim_by_product,
+    reserve_by_build_month,
+    reserve_by_product,
+)
 
 JAN, FEB = dt.date(2024, 1, 1), dt.date(2024, 2, 1)
 
@@ -69,3 +74,21 @@ def test_reserve_is_expected_returns_times_cost_and_empty_without_forecast():
     assert totals.loc["A", "reserve"] == 300.0 and totals.loc["A", "units"] == 300
     assert math.isnan(totals.loc["B", "reserve"])
     assert totals.loc["B", "cost_to_date"] == 140.0
+
+
+def test_book_reserve_prices_the_forecast_and_totals_what_it_books():
+    summary = pd.DataFrame(
+        {
+            "product": ["A", "B"], "build_month": [JAN, JAN], "units": [100, 50], "units_in_channel": [0, 0],
+            "returns_to_date": [3, 2], "cost_to_date": [150.0, 140.0],
+        }
+    )
+    forecast = pd.DataFrame(
+        {"product": ["A", "A"], "build_month": [JAN, JAN], "month": [FEB, dt.date(2024, 3, 1)],
+         "expected_returns": [1.5, 0.5]}
+    )
+    booked = book_reserve(summary, claim_costs(), forecast, {"A": "forecast (weibull)"}, {"A"}, ReserveSettings())
+    assert booked.forecast["expected_cost"].tolist() == [75.0, 25.0]  # A's window mean cost 50 x expected returns
+    assert booked.forecast["expected_cost"].sum() == booked.by_build_month["reserve"].sum(min_count=1)
+    assert booked.by_product.set_index("product").loc["A", "reserve"] == 100.0
+    assert booked.total == 100.0  # B has no forecast: it adds nothing (and the run warns about it)

@@ -38,7 +38,7 @@ from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.outputs.manifest import RunManifest, run_manifest
 from warranty_forecast.outputs.publish import publish_outputs
 from warranty_forecast.outputs.report import render_report
-from warranty_forecast.stages.reserve import cost_per_claim_by_product, reserve_by_build_month, reserve_by_product
+from warranty_forecast.stages.reserve import book_reserve
 from warranty_forecast.stages.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
@@ -117,19 +117,14 @@ def run_nightly(config: RunConfig) -> RunResult:
     clock.done("forecast", started, f"{len(forecast)} rows, {forecast['expected_returns'].sum():,.1f} returns")
 
     started = time.perf_counter()
-    costs = cost_per_claim_by_product(
-        shaped.claim_cost_by_product, shaped.cohort_summary["product"], config.reserve
-    )
-    forecast = forecast.merge(costs[["product", "cost_per_claim"]], on="product", how="left")
-    forecast["expected_cost"] = forecast["expected_returns"] * forecast["cost_per_claim"]
-    forecast = forecast.drop(columns="cost_per_claim")
     status = {
         product: (f"forecast ({model_names[product]})" if product in models else f"no forecast: {outcome.status}")
         for product, outcome in fits.items()
     }
-    reserve = reserve_by_build_month(shaped.cohort_summary, forecast, costs, status, models.keys())
-    totals = reserve_by_product(reserve)
-    clock.done("reserve", started, f"total {totals['reserve'].sum(min_count=1):,.2f}")
+    reserve = book_reserve(
+        shaped.cohort_summary, shaped.claim_cost_by_product, forecast, status, models.keys(), config.reserve
+    )
+    clock.done("reserve", started, f"total {reserve.total:,.2f}")
 
     started = time.perf_counter()
     table = life_table(shaped.age_in_service, config.life_model.confidence_level)
@@ -145,7 +140,7 @@ def run_nightly(config: RunConfig) -> RunResult:
     }
     clock.done("charts", started, f"{len(figures)} figures")
 
-    warnings = [*shaped.freshness.warnings(), *model_notes, *_warnings(life_model, by_mode, costs, shaped.run_facts, settings)]
+    warnings = [*shaped.freshness.warnings(), *model_notes, *_warnings(life_model, by_mode, reserve.costs, shaped.run_facts, settings)]
     for text in warnings:
         log.warning("%s", text)
 
@@ -155,9 +150,9 @@ def run_nightly(config: RunConfig) -> RunResult:
         "life_table": table,
         "life_model": life_model,
         "life_model_by_mode": by_mode,
-        "forecast": forecast,
-        "reserve": reserve,
-        "reserve_by_product": totals,
+        "forecast": reserve.forecast,
+        "reserve": reserve.by_build_month,
+        "reserve_by_product": reserve.by_product,
         "quarantine": shaped.quarantine,
         "fit_returns": shaped.fit_returns,
         "fit_suspensions": shaped.fit_suspensions,
@@ -175,7 +170,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         manifest=manifest,
         life_model=life_model,
         life_model_by_mode=by_mode,
-        reserve_totals=totals,
+        reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,
         warnings=warnings,

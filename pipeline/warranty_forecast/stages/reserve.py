@@ -14,6 +14,7 @@ Cost per claim, per product, first that applies:
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Collection, Iterable, Mapping
 
 import numpy as np
@@ -120,3 +121,46 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
         forecast_status=("forecast_status", "first"),
     )
     return sums
+
+
+def costed_forecast(forecast: pd.DataFrame, costs: pd.DataFrame) -> pd.DataFrame:
+    """`forecast` (expected returns per product x build month x month) with expected_cost in currency units:
+    expected returns x the product's cost per claim (empty where the product has no cost per claim)."""
+    priced = forecast.merge(costs[["product", "cost_per_claim"]], on="product", how="left")
+    priced["expected_cost"] = priced["expected_returns"] * priced["cost_per_claim"]
+    return priced.drop(columns="cost_per_claim")
+
+
+@dataclass(frozen=True)
+class ReserveResult:
+    """The reserve stage's tables (currency units of the claims extract)."""
+
+    costs: pd.DataFrame  # cost per claim by product, with its basis
+    forecast: pd.DataFrame  # expected returns and their cost per product x build month x calendar month
+    by_build_month: pd.DataFrame  # RESERVE_COLUMNS
+    by_product: pd.DataFrame  # totals of by_build_month
+
+    @property
+    def total(self) -> float:
+        """The reserve summed over the products that have one (products without a forecast or a cost per
+        claim add nothing and are named in the warnings); NaN when no product has one."""
+        return float(self.by_product["reserve"].sum(min_count=1))
+
+
+def book_reserve(
+    cohort_summary: pd.DataFrame,
+    claim_costs: pd.DataFrame,
+    forecast: pd.DataFrame,
+    forecast_status: Mapping[str, str],
+    forecast_products: Collection[str],
+    settings: ReserveSettings,
+) -> ReserveResult:
+    """The whole reserve stage: cost per claim, the costed forecast, the reserve per build month and product."""
+    costs = cost_per_claim_by_product(claim_costs, cohort_summary["product"], settings)
+    by_build_month = reserve_by_build_month(cohort_summary, forecast, costs, forecast_status, forecast_products)
+    return ReserveResult(
+        costs=costs,
+        forecast=costed_forecast(forecast, costs),
+        by_build_month=by_build_month,
+        by_product=reserve_by_product(by_build_month),
+    )
