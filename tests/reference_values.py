@@ -9,12 +9,12 @@ import csv
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 from warranty_forecast.lifecore.life_model import LifeData
 
+# The reference files are copied into the repository (tests/data/README.md says from where), so the
+# tests never read outside it; a missing copy is a failure, not a skip.
 LOCAL_DATA = Path(__file__).resolve().parent / "data"
-SHARED_REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference"
 
 # NIST/SEMATECH e-Handbook of Statistical Methods, section 8.4.1.3 (Weibull maximum likelihood example):
 # 20 units, 10 failures, 10 suspensions at 500 hours; all values published, hours scale.
@@ -37,14 +37,8 @@ BEARING_NEW_FAILURES_300H = 5.058  # computed per reference README; the book pri
 
 
 def reference_life_data(name: str) -> LifeData:
-    """Load a reference CSV (hours,count,kind), preferring the copy in tests/data."""
-    for folder in (LOCAL_DATA, SHARED_REFERENCE):
-        path = folder / name
-        if path.is_file():
-            break
-    else:
-        pytest.skip(f"reference data {name} not found in {LOCAL_DATA} or {SHARED_REFERENCE}")
-    with path.open(newline="") as handle:
+    """Load a reference CSV (hours,count,kind) from its copy in tests/data."""
+    with (LOCAL_DATA / name).open(newline="") as handle:
         rows = list(csv.DictReader(handle))
     hours = np.array([float(r["hours"]) for r in rows])
     counts = np.array([float(r["count"]) for r in rows])

@@ -6,7 +6,6 @@ import datetime as dt
 import math
 
 import pandas as pd
-import pytest
 
 from warranty_forecast.config import ReserveSettings
 from warranty_forecast.stages.reserve import (
