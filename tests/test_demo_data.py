@@ -15,14 +15,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from warranty_forecast.tools.demo_data import (
-    CLAIM_COLUMNS,
-    DEFAULT_SEED,
-    SHIPMENT_COLUMNS,
-    DemoData,
-    generate_demo_data,
-    write_demo_data,
-)
+from warranty_forecast.tools.demo_data import DemoData, generate_demo_data
+from warranty_forecast.tools.demo_files import write_demo_data
+from warranty_forecast.tools.demo_scenario import CLAIM_COLUMNS, DEFAULT_SEED, SHIPMENT_COLUMNS
 
 AS_OF = pd.Timestamp("2026-11-30")
 DAYS_PER_MONTH = 365.25 / 12

@@ -284,7 +284,7 @@ def _run(arguments: argparse.Namespace) -> int:
 
 
 def _demo_data(arguments: argparse.Namespace) -> int:
-    from warranty_forecast.tools.demo_data import write_demo_data
+    from warranty_forecast.tools.demo_files import write_demo_data
 
     demo = write_demo_data(arguments.out, seed=arguments.seed)
     log.info(

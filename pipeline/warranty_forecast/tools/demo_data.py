@@ -6,178 +6,58 @@ R(t) = exp(-(t / scale) ** shape) with t in months (days / (365.25 / 12)). One b
 line carries an extra early failure mode (the planted defect), and both extracts carry a handful
 of planted malformed rows, each breaking exactly one input rule, listed in ``planted_defects``.
 
-``generate_demo_data`` is pure (no I/O); ``write_demo_data`` writes the files atomically.
+The scenario itself (lines, defect, planted rows, file layout) is in ``demo_scenario``;
+``generate_demo_data`` here is pure (no I/O); ``demo_files.write_demo_data`` writes the files atomically.
 The same seed gives the same frames and the same bytes.
 """
 
 from __future__ import annotations
 
 import datetime as dt
-import io
-import json
 import logging
-import os
-import tempfile
 import time
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
-import pyarrow.parquet as pq
+
+from warranty_forecast.tools.demo_scenario import (
+    AS_OF_DATE,
+    CLAIM_ID_PREFIX,
+    CLAIM_PLANTS,
+    CLAIM_SALE_DATE_FRACTION,
+    CLAIMS_FILE,
+    COMPANY,
+    DAYS_PER_MONTH,
+    DEFAULT_SEED,
+    DEFAULT_WARRANTY_MONTHS,
+    DEFECT,
+    FIRST_BUILD_MONTH,
+    LOT_SIZE_MAX,
+    LOT_SIZE_MIN,
+    MISSING_WARRANTY_FRACTION,
+    N_BUILD_MONTHS,
+    NEVER_SHIPPED_BUILD_MONTH,
+    NO_FAULT_FOUND_COST,
+    NO_FAULT_FOUND_FRACTION,
+    OUT_OF_COVERAGE_GOODWILL_FRACTION,
+    OUT_OF_COVERAGE_WINDOW_MONTHS,
+    PLANTED_COLUMNS,
+    PRODUCT_LINES,
+    REJECTED_FRACTION,
+    REPORTING_LAG_CAP_DAYS,
+    REPORTING_LAG_MEAN_DAYS,
+    SALE_LAG_GAMMA_SHAPE,
+    SALE_LAG_MEAN_DAYS,
+    SHIP_WINDOW_DAYS,
+    SHIPMENT_PLANTS,
+    SHIPMENTS_FILE,
+    UNKNOWN_SALE_FRACTION,
+    ProductLine,
+)
 
 logger = logging.getLogger(__name__)
-
-DEFAULT_SEED = 20261130
-AS_OF_DATE = dt.date(2026, 11, 30)
-DAYS_PER_MONTH = 365.25 / 12  # days in one warranty month
-FIRST_BUILD_MONTH = "2021-11"
-N_BUILD_MONTHS = 60  # 2021-11 .. 2026-10
-COMPANY = "Quillmere Appliance Co. (fictional)"
-
-SHIP_WINDOW_DAYS = 60  # ship date is 0..60 days after the first day of the build month
-SALE_LAG_GAMMA_SHAPE = 2.0  # ship-to-sale lag ~ gamma, days
-SALE_LAG_MEAN_DAYS = 45.0
-UNKNOWN_SALE_FRACTION = 0.08  # shipment rows whose sale date the channel never reported
-DEFAULT_WARRANTY_MONTHS = 24  # what the pipeline assumes when warranty_months is empty
-MISSING_WARRANTY_FRACTION = 0.05  # rows of default-warranty lines with warranty_months left empty
-LOT_SIZE_MIN, LOT_SIZE_MAX = 10, 200  # units per lot (lot-level lines)
-REPORTING_LAG_MEAN_DAYS = 6.0  # failure-to-claim lag ~ exponential, whole days
-REPORTING_LAG_CAP_DAYS = 60
-OUT_OF_COVERAGE_WINDOW_MONTHS = 3.0  # goodwill window just beyond the warranty
-OUT_OF_COVERAGE_GOODWILL_FRACTION = 0.02
-REJECTED_FRACTION = 0.002  # of units, at uniform ages within warranty, unit did not fail
-NO_FAULT_FOUND_FRACTION = 0.003
-NO_FAULT_FOUND_COST = (20.0, 30.0)  # handling cost, uniform, currency units
-CLAIM_SALE_DATE_FRACTION = 0.90  # claims carrying a proof-of-purchase date
-CLAIM_ID_PREFIX = "WC"
-
-SHIPMENT_COLUMNS = ["product", "build_month", "ship_date", "sale_date", "units", "warranty_months", "serial"]
-CLAIM_COLUMNS = [
-    "claim_id", "product", "build_month", "sale_date", "failure_date",
-    "claim_date", "cost", "status", "failure_code", "serial",
-]
-PLANTED_COLUMNS = ["source_file", "row_number", "column", "reason"]
-SHIPMENTS_FILE = "shipments.parquet"
-CLAIMS_FILE = "claims.csv"
-PLANTED_FILE = "planted_defects.csv"
-TRUTH_FILE = "truth.json"
-README_FILE = "README.md"
-
-SHIPMENTS_SCHEMA = pa.schema([
-    ("product", pa.string()),
-    ("build_month", pa.string()),
-    ("ship_date", pa.date32()),
-    ("sale_date", pa.date32()),
-    ("units", pa.int32()),
-    ("warranty_months", pa.int16()),
-    ("serial", pa.string()),
-])
-
-
-@dataclass(frozen=True)
-class ProductLine:
-    """One product line: Weibull life from the sale date (months), warranty, volume and claim cost."""
-
-    product: str
-    description: str
-    shape: float  # Weibull shape, dimensionless
-    scale_months: float  # Weibull scale (characteristic life), months
-    warranty_months: int
-    units_per_month: int  # nominal build volume, units per build month
-    unit_level: bool  # True: one row per unit with a serial; False: lots without serials
-    serial_prefix: str
-    cost_mean: float  # mean approved claim cost, currency units
-    cost_sigma_log: float  # lognormal sigma of the claim cost
-    failure_codes: tuple[tuple[str, float], ...]  # (code, share of genuine failures)
-    volume_phase: float  # seasonal phase of the monthly volume, radians
-
-
-@dataclass(frozen=True)
-class Defect:
-    """An extra early failure mode carried by a fraction of one build month of one line."""
-
-    product: str
-    build_month: str
-    shape: float
-    scale_months: float
-    fraction: float  # share of the build month's units that carry the defect
-    failure_code: str
-
-
-PRODUCT_LINES: tuple[ProductLine, ...] = (
-    ProductLine(
-        product="QDS-210", description="countertop chilled-water dispenser",
-        shape=0.8, scale_months=1300.0, warranty_months=24, units_per_month=9000,
-        unit_level=False, serial_prefix="", cost_mean=85.0, cost_sigma_log=0.5,
-        failure_codes=(("SEAL_LEAK", 0.45), ("SOLENOID_STUCK", 0.35), ("CONTROL_BOARD_DOA", 0.20)),
-        volume_phase=0.0,
-    ),
-    ProductLine(
-        product="QCP-140", description="domestic heating circulator pump",
-        shape=1.4, scale_months=400.0, warranty_months=24, units_per_month=7000,
-        unit_level=False, serial_prefix="", cost_mean=60.0, cost_sigma_log=0.5,
-        failure_codes=(("BEARING_NOISE", 0.50), ("IMPELLER_CRACK", 0.30), ("WINDING_OPEN", 0.20)),
-        volume_phase=2.0,
-    ),
-    ProductLine(
-        product="QHT-360", description="cordless hedge trimmer",
-        shape=2.6, scale_months=110.0, warranty_months=36, units_per_month=2500,
-        unit_level=True, serial_prefix="HT", cost_mean=240.0, cost_sigma_log=0.4,
-        failure_codes=(("BATTERY_FADE", 0.50), ("GEARBOX_WEAR", 0.30), ("TRIGGER_SWITCH", 0.20)),
-        volume_phase=4.0,
-    ),
-)
-
-DEFECT = Defect(
-    product="QCP-140", build_month="2025-02", shape=1.0, scale_months=4.0,
-    fraction=0.04, failure_code="START_CAP_SHORT",
-)
-
-# Planted malformed rows: (reason, column) in the order they are made.
-SHIPMENT_PLANTS: tuple[tuple[str, str], ...] = (
-    ("missing_value", "product"),
-    ("missing_value", "ship_date"),
-    ("unparseable_value", "build_month"),
-    ("units_below_one", "units"),
-    ("shipped_before_build", "ship_date"),
-    ("sold_before_shipped", "sale_date"),
-    ("duplicate_serial", "serial"),
-)
-CLAIM_PLANTS: tuple[tuple[str, str], ...] = (
-    ("missing_value", "claim_id"),
-    ("unparseable_value", "failure_date"),
-    ("unparseable_value", "cost"),
-    ("negative_cost", "cost"),
-    ("unknown_status", "status"),
-    ("claim_before_failure", "claim_date"),
-    ("failure_before_sale", "failure_date"),
-    ("failure_before_build", "failure_date"),
-    ("duplicate_claim_id", "claim_id"),
-    ("cohort_never_shipped", "build_month"),
-)
-NEVER_SHIPPED_BUILD_MONTH = "2019-05"
-_PLANT_NOTES: dict[tuple[str, str], str] = {
-    ("missing_value", "product"): "product is empty",
-    ("missing_value", "ship_date"): "ship_date is empty",
-    ("unparseable_value", "build_month"): "build_month is `2024-13`",
-    ("units_below_one", "units"): "units is 0",
-    ("shipped_before_build", "ship_date"): "ship_date is before the first day of the build month",
-    ("sold_before_shipped", "sale_date"): "sale_date is before ship_date",
-    ("duplicate_serial", "serial"): "repeats the serial of an earlier row (this later row is the bad one)",
-    ("missing_value", "claim_id"): "claim_id is empty",
-    ("unparseable_value", "failure_date"): "failure_date is `2025-02-30`",
-    ("unparseable_value", "cost"): "cost is `abc`",
-    ("negative_cost", "cost"): "cost is -35.00",
-    ("unknown_status", "status"): "status is `pending`",
-    ("claim_before_failure", "claim_date"): "claim_date is before failure_date",
-    ("failure_before_sale", "failure_date"): "failure_date is before the claim's own sale_date",
-    ("failure_before_build", "failure_date"): "failure_date is before the first day of the build month",
-    ("duplicate_claim_id", "claim_id"): "exact copy of an earlier row (this later row is the bad one)",
-    ("cohort_never_shipped", "build_month"): f"build month {NEVER_SHIPPED_BUILD_MONTH} of this product never shipped",
-}
 
 
 @dataclass(frozen=True, eq=False)
@@ -636,136 +516,3 @@ def _truth(seed: int, sims: list[_LineSimulation], raw: pd.DataFrame, planted: p
         "claims_by_status": {str(k): int(v) for k, v in status.items()},
         "planted_rows": {"total": int(len(planted)), **planted_counts},
     }
-
-
-def _shipments_parquet_bytes(shipments: pd.DataFrame) -> bytes:
-    table = pa.Table.from_pandas(shipments, schema=SHIPMENTS_SCHEMA, preserve_index=False)
-    table = table.replace_schema_metadata(None)
-    sink = io.BytesIO()
-    pq.write_table(table, sink, compression="zstd", compression_level=9)
-    return sink.getvalue()
-
-
-def _csv_bytes(frame: pd.DataFrame) -> bytes:
-    return frame.to_csv(index=False, na_rep="", lineterminator="\n").encode("utf-8")
-
-
-def _atomic_write(path: Path, payload: bytes) -> None:
-    """Write to a temporary file in the same folder, then os.replace it onto path."""
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        os.chmod(tmp, 0o644)  # mkstemp creates 0600; the extracts are meant to be shared
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(payload)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
-def _readme(data: DemoData, sizes: dict[str, int]) -> str:
-    t = data.truth
-    line_rows = "\n".join(
-        f"| {product} | {p['description']} | {p['shape']} | {p['scale_months']:g} | {p['rate']:.4e} "
-        f"| {p['warranty_months']} | {p['units']:,} | {p['in_warranty_failure_probability']:.4f} |"
-        for product, p in t["product_lines"].items()
-    )
-    code_rows = "\n".join(
-        f"| {product} | " + ", ".join(f"`{c}` {s:.0%}" for c, s in p["failure_code_shares"].items()) + " |"
-        for product, p in t["product_lines"].items()
-    )
-    d = t["defect"]
-    planted_rows = "\n".join(
-        f"| {r.source_file} | {r.row_number} | {r.column} | `{r.reason}` | {_PLANT_NOTES[(r.reason, r.column)]} |"
-        for r in data.planted_defects.itertuples(index=False)
-    )
-    status = ", ".join(f"{k} {v:,}" for k, v in t["claims_by_status"].items())
-    files = "\n".join(f"| {name} | {size:,} |" for name, size in sizes.items())
-    return f"""# Demo data: invented warranty extracts
-
-Everything here is **invented demo data** made by our own seeded generator
-(`pipeline/warranty_forecast/tools/demo_data.py`, seed {t['seed']}). The company, {t['company']}, and its
-products do not exist. Regenerate with `warranty-forecast demo-data` or
-
-    python -c 'from pathlib import Path; from warranty_forecast.tools.demo_data import write_demo_data; write_demo_data(Path("data_demo"))'
-
-The same seed gives byte-identical files.
-
-## Scenario
-
-Nightly extracts as known on the as-of date **{t['as_of_date']}**: no ship or claim date after
-it, and a sale date after it is written as missing (unit still in the channel). Three product
-lines, build months {t['build_months']['first']} .. {t['build_months']['last']}
-({t['build_months']['count']} months), {t['total_units']:,} units in total.
-
-- The two 24-month lines ship in lots of {LOT_SIZE_MIN}-{LOT_SIZE_MAX} identical units (no serials); the
-  hedge trimmer ships one row per unit with a unique serial.
-- Ship date is 0-{SHIP_WINDOW_DAYS} days after the first day of the build month; ship-to-sale lag is
-  gamma with mean {SALE_LAG_MEAN_DAYS:g} days; about {UNKNOWN_SALE_FRACTION:.0%} of shipment rows have no
-  reported sale date; some rows of the 24-month lines leave `warranty_months` empty (default 24).
-- Each unit fails at a Weibull age from its sale date, R(t) = exp(-(t/scale)^shape), t in months
-  (days / {DAYS_PER_MONTH}).
-- A failure within warranty whose claim arrives by the as-of date is an `approved` claim
-  (reporting lag exponential, mean {REPORTING_LAG_MEAN_DAYS:g} days, whole days, capped at {REPORTING_LAG_CAP_DAYS});
-  {OUT_OF_COVERAGE_GOODWILL_FRACTION:.0%} of failures up to {OUT_OF_COVERAGE_WINDOW_MONTHS:g} months beyond
-  warranty are approved as goodwill.
-- `rejected` ({REJECTED_FRACTION:.1%} of units, cost 0) and `no_fault_found` ({NO_FAULT_FOUND_FRACTION:.1%} of
-  units, handling cost {NO_FAULT_FOUND_COST[0]:g}-{NO_FAULT_FOUND_COST[1]:g}) claims come from units that did
-  not fail; they stay survivors.
-- About {CLAIM_SALE_DATE_FRACTION:.0%} of claims carry the sale date; trimmer claims carry the serial.
-
-## True parameters
-
-| product | description | shape | scale (months) | rate = scale^-shape | warranty (months) | units | P(fail in warranty) |
-|---|---|---|---|---|---|---|---|
-{line_rows}
-
-Failure codes are independent competing risks with fixed shares of the genuine failures
-(each code is a Weibull with the line's shape):
-
-| product | failure codes |
-|---|---|
-{code_rows}
-
-**Defect:** build month {d['build_month']} of {d['product']}: {d['fraction']:.0%} of its units carry an
-extra early failure mode, Weibull shape {d['shape']:g}, scale {d['scale_months']:g} months, failure code
-`{d['failure_code']}` ({d['susceptible_units']:,} of {d['build_month_units']:,} units).
-
-Claims: {t['claims_total']:,} valid ({status}), plus the planted rows below. Full details in `truth.json`.
-
-## Planted malformed rows
-
-Each breaks exactly one input rule; every other row breaks none. Row numbers are 1-based data rows
-(header excluded). Also in `planted_defects.csv`.
-
-| file | row | column | reason | what is wrong |
-|---|---|---|---|---|
-{planted_rows}
-
-## Files
-
-| file | bytes |
-|---|---|
-{files}
-| README.md | this file |
-"""
-
-
-def write_demo_data(out_dir: Path, seed: int = DEFAULT_SEED) -> DemoData:
-    """Generate the scenario for ``seed`` and write its five files into ``out_dir`` atomically."""
-    data = generate_demo_data(seed)
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    payloads = {
-        SHIPMENTS_FILE: _shipments_parquet_bytes(data.shipments),
-        CLAIMS_FILE: _csv_bytes(data.claims),
-        PLANTED_FILE: _csv_bytes(data.planted_defects),
-        TRUTH_FILE: (json.dumps(data.truth, indent=2, sort_keys=True) + "\n").encode("utf-8"),
-    }
-    payloads[README_FILE] = _readme(data, {k: len(v) for k, v in payloads.items()}).encode("utf-8")
-    for name, payload in payloads.items():
-        _atomic_write(out_dir / name, payload)
-    logger.info("wrote demo data to %s (%d bytes)", out_dir, sum(len(v) for v in payloads.values()))
-    return data
