@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from warranty_forecast.lifecore.life_model import LifeData
+from warranty_forecast.lifecore.data import LifeData
 
 # The reference files are copied into the repository (tests/data/README.md says from where), so the
 # tests never read outside it; a missing copy is a failure, not a skip.

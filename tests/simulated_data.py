@@ -6,7 +6,7 @@ from typing import Callable
 
 import numpy as np
 
-from warranty_forecast.lifecore.life_model import LifeData
+from warranty_forecast.lifecore.data import LifeData
 
 DAYS_PER_MONTH = 365.25 / 12
 

@@ -8,7 +8,9 @@ import numpy as np
 import pandas as pd
 
 from warranty_forecast.outputs import charts
-from warranty_forecast.lifecore.life_model import LifeData, WeibullFitter
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.families import WEIBULL
+from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.stages.life_table import life_table
 
 
@@ -34,7 +36,7 @@ def test_heatmap_has_one_panel_per_product():
 def test_probability_plot_draws_points_line_and_band():
     table = life_table(matrix())
     data = LifeData.from_monthly_returns([1, 2, 3, 4, 5], [12, 13, 12, 10, 6], [5.0], [4900.0])
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     figure = charts.weibull_probability_plot(table, {"P": fit, "Q": None})
     panel_p = next(a for a in figure.axes if a.get_title() == "P")
     panel_q = next(a for a in figure.axes if a.get_title() == "Q")

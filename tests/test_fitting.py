@@ -16,7 +16,7 @@ from warranty_forecast.stages.fitting import (
     fit_weibull,
     life_model_table,
 )
-from warranty_forecast.lifecore.life_model import LifeData
+from warranty_forecast.lifecore.data import LifeData
 from simulated_data import simulated_life_data  # tests/ is on sys.path under pytest
 
 pytestmark = pytest.mark.filterwarnings("error")
@@ -36,9 +36,9 @@ def test_thin_data_without_a_configured_shape_has_no_fit():
 
 def test_thin_data_with_a_configured_shape_estimates_the_scale_only():
     outcome = fit_weibull(THIN, LifeModelSettings(), fixed_shape=2.0)
-    assert outcome.status == FIXED_SHAPE and outcome.fit.shape_fixed and outcome.fit.shape == 2.0
+    assert outcome.status == FIXED_SHAPE and outcome.fit.fixed and outcome.fit.shape == 2.0
     assert "shape fixed at 2" in outcome.message
-    lower, upper = outcome.fit.scale_bounds()
+    lower, upper = outcome.fit.bounds("scale")
     assert lower < outcome.fit.scale < upper
 
 

@@ -19,8 +19,10 @@ from warranty_forecast.lifecore.goodness_of_fit import (
     pool_cells,
     saturated_log_likelihood,
 )
-from warranty_forecast.lifecore.life_model import LifeData, WeibullFitter, weibull_log_survival
-from warranty_forecast.lifecore.lognormal_model import LognormalFitter
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.families import LOGNORMAL, WEIBULL
+from warranty_forecast.lifecore.fitter import Fitter
+from closed_forms import weibull_log_survival  # tests/closed_forms.py
 from simulated_data import lognormal_life, simulate_warranty, weibull_life  # tests/ is on sys.path
 
 pytestmark = pytest.mark.filterwarnings("error")
@@ -95,7 +97,7 @@ def test_lognormal_fit_callable_is_accepted():
     data = LifeData.from_monthly_returns(
         *simulate_warranty(np.random.default_rng(3), 5_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
     )
-    fit = LognormalFitter().fit(data)
+    fit = Fitter(LOGNORMAL).fit(data)
     result = goodness_of_fit(data, fit.log_survival)
     assert result.cells["observed"].sum() == pytest.approx(data.n_returns)
     assert result.pooled_cells["observed"].sum() == pytest.approx(data.n_returns)
@@ -121,7 +123,7 @@ def test_pooling_rule():
 def test_pooled_cells_meet_minimum():
     # common practice, no source: every pooled cell has expected >= min_expected
     data = LifeData.from_monthly_returns(*simulate_warranty(np.random.default_rng(8), 1_500, weibull_life(1.3, 60.0), ages_in_days=True))
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     for minimum in (1.0, 5.0, 20.0):
         result = goodness_of_fit(data, fit.log_survival, min_expected=minimum)
         pooled = result.pooled_cells
@@ -154,7 +156,7 @@ def test_pearson_p_values_calibrated_under_the_weibull():
         data = LifeData.from_monthly_returns(
             *simulate_warranty(np.random.default_rng(1000 + seed), 2_000, weibull_life(1.3, 60.0), ages_in_days=True)
         )
-        fit = WeibullFitter().fit(data)
+        fit = Fitter(WEIBULL).fit(data)
         result = goodness_of_fit(data, fit.log_survival)
         p_chi.append(result.chi_square_p_value)
         p_dev.append(result.deviance_p_value)
@@ -172,10 +174,10 @@ def test_wrong_family_is_rejected():
     data = LifeData.from_monthly_returns(
         *simulate_warranty(np.random.default_rng(5), 50_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
     )
-    weibull = goodness_of_fit(data, WeibullFitter().fit(data).log_survival)
+    weibull = goodness_of_fit(data, Fitter(WEIBULL).fit(data).log_survival)
     assert weibull.chi_square_p_value < 1e-10  # measured 2e-36
     assert weibull.deviance_p_value < 1e-10
-    lognormal = goodness_of_fit(data, LognormalFitter().fit(data).log_survival)
+    lognormal = goodness_of_fit(data, Fitter(LOGNORMAL).fit(data).log_survival)
     assert lognormal.chi_square_p_value > 0.01  # measured 0.85
 
 
@@ -208,7 +210,7 @@ def test_saturated_closed_form_is_the_maximum(d, exposure):
 
 def test_deviance_uses_the_same_likelihood_as_the_fit():
     # reference: warranty_forecast.lifecore.life_model's Weibull log-likelihood (itself checked against scipy.stats):
-    # with suspensions at whole months, G^2 = 2 (log L_saturated - WeibullFit.log_likelihood) >= 0
+    # with suspensions at whole months, G^2 = 2 (log L_saturated - FitResult.log_likelihood) >= 0
     rng = np.random.default_rng(21)
     months = rng.integers(1, 37, size=3_000)
     life = 60.0 * rng.weibull(1.3, size=3_000)
@@ -217,7 +219,7 @@ def test_deviance_uses_the_same_likelihood_as_the_fit():
     m, r = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
     a, c = np.unique(window[~failed], return_counts=True)
     data = LifeData.from_monthly_returns(m, r.astype(float), a.astype(float), c.astype(float))
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     result = goodness_of_fit(data, fit.log_survival)
     expected = 2.0 * (saturated_log_likelihood(data) - fit.log_likelihood)
     assert expected > 0.0
@@ -232,7 +234,7 @@ def test_deviance_never_negative():
         data = LifeData.from_monthly_returns(
             *simulate_warranty(np.random.default_rng(seed), 300, weibull_life(2.5, 30.0), ages_in_days=True)
         )
-        fit = WeibullFitter().fit(data)
+        fit = Fitter(WEIBULL).fit(data)
         assert goodness_of_fit(data, fit.log_survival).deviance >= 0.0
 
 

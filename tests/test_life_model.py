@@ -15,24 +15,15 @@ import pytest
 from scipy import integrate, optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.lifecore.life_model import (
-    FitNotConvergedError,
-    InsufficientDataError,
-    LifeData,
-    WeibullFit,
-    WeibullFitter,
-    log_likelihood,
-    rate_from_scale,
-    scale_from_rate,
-    weibull_b_life,
-    weibull_cdf,
-    weibull_hazard,
-    weibull_log_survival,
-    weibull_mean,
-    weibull_pdf,
-    weibull_survival,
-    weibull_variance,
-)
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.errors import FitNotConvergedError, InsufficientDataError
+from warranty_forecast.lifecore.families import WEIBULL
+from warranty_forecast.lifecore.families.weibull import rate_from_scale, scale_from_rate
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.likelihood import log_likelihood
+from warranty_forecast.lifecore.result import FitResult
+from closed_forms import weibull_b_life, weibull_cdf, weibull_hazard, weibull_log_survival, weibull_mean, weibull_pdf, weibull_survival, weibull_variance  # tests/closed_forms.py
+from closed_forms import summary_table  # tests/closed_forms.py
 import reference_values as ref  # tests/reference_values.py (tests/ is on sys.path under pytest)
 from reference_values import reference_life_data
 from simulated_data import mixed_life_data, simulate_warranty, simulated_life_data, weibull_life
@@ -66,7 +57,7 @@ def scipy_log_likelihood(data: LifeData, shape: float, scale: float) -> float:
 
 def test_nist_handbook_example():
     # NIST/SEMATECH e-Handbook 8.4.1.3; tolerance half a unit in the last published digit.
-    fit = WeibullFitter().fit(reference_life_data("nist_weibull_censored.csv"))
+    fit = Fitter(WEIBULL).fit(reference_life_data("nist_weibull_censored.csv"))
     assert fit.converged
     assert fit.shape == pytest.approx(ref.NIST_SHAPE, abs=5e-5)
     # measured 606.52756: the exact MLE (scipy agrees, see below) is 4.4e-4 below the printed 606.5280
@@ -80,7 +71,7 @@ def test_nist_handbook_example():
 def test_nist_example_matches_scipy_censored_fit():
     # reference library: scipy.stats.weibull_min.fit with CensoredData (floc=0), tight Nelder-Mead
     data = reference_life_data("nist_weibull_censored.csv")
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     censored = stats.CensoredData(
         uncensored=np.repeat(data.exact_ages, data.exact_counts.astype(int)),
         right=np.repeat(data.suspension_ages, data.suspension_counts.astype(int)),
@@ -95,13 +86,13 @@ def test_bearing_cage():
     # scale from R survreg output (reproduced there to 7 digits), log-likelihood and B10 computed.
     data = reference_life_data("bearing_cage.csv")
     assert data.n_returns == 6 and data.n_returns + data.n_suspensions == 1703  # Abernethy et al. (1983)
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     assert fit.converged
     assert fit.shape == pytest.approx(ref.BEARING_SHAPE, abs=5e-7)
     assert fit.scale == pytest.approx(ref.BEARING_SCALE, abs=5e-3)
     assert fit.log_likelihood == pytest.approx(ref.BEARING_LOG_LIKELIHOOD, abs=5e-4)
     assert fit.b10 == pytest.approx(ref.BEARING_B10, abs=0.5)  # "about 3,903"
-    lower, upper = fit.b_life_bounds(0.10)
+    lower, upper = fit.bounds("b_life", p=0.10)
     assert lower == pytest.approx(ref.BEARING_B10_WALD_95[0], abs=1.0)  # "about", computed
     assert upper == pytest.approx(ref.BEARING_B10_WALD_95[1], abs=1.0)
 
@@ -110,7 +101,7 @@ def test_bearing_cage_prediction_of_new_failures():
     # Meeker & Escobar (1998) Table 12.1: every surviving unit runs 300 more hours; expected new
     # failures sum_i n_i (R(t_i) - R(t_i + 300)) / R(t_i). 5.058 computed per the reference README.
     data = reference_life_data("bearing_cage.csv")
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     ages, counts = data.suspension_ages, data.suspension_counts
     expected = counts @ (1.0 - np.exp(fit.log_survival(ages + 300.0) - fit.log_survival(ages)))
     assert expected == pytest.approx(ref.BEARING_NEW_FAILURES_300H, abs=5e-4)
@@ -131,7 +122,7 @@ def test_grouped_fit_matches_scipy_censored_fit():
     months, returns, ages, counts = simulate_warranty(np.random.default_rng(20240601), 4000, weibull_life(1.3, 60.0))
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     assert data.n_returns > 500  # enough returns for a well-determined fit
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     n_per_month = returns.astype(int)
     censored = stats.CensoredData(
         interval=np.column_stack([np.repeat(months - 1.0, n_per_month), np.repeat(months * 1.0, n_per_month)]),
@@ -151,14 +142,14 @@ def test_log_likelihood_matches_scipy_sums(shape, scale):
     # reference library: scipy.stats.weibull_min logpdf / logcdf / logsf sums at the same parameters
     data = mixed_life_data()
     theta = [math.log(scale), math.log(shape)]
-    assert log_likelihood(theta, data) == pytest.approx(scipy_log_likelihood(data, shape, scale), rel=1e-12)
+    assert log_likelihood(WEIBULL, theta, data) == pytest.approx(scipy_log_likelihood(data, shape, scale), rel=1e-12)
 
 
 def test_complete_data_fit_matches_scipy():
     # reference library: scipy.stats.weibull_min.fit on uncensored data (floc=0)
     failures = stats.weibull_min.rvs(2.2, scale=30.0, size=40, random_state=np.random.default_rng(3))
     data = LifeData.from_exact(failures, np.ones_like(failures), [], [])
-    fit = WeibullFitter(require_suspensions=False).fit(data)
+    fit = Fitter(WEIBULL, require_suspensions=False).fit(data)
     shape, _, scale = stats.weibull_min.fit(failures, 2.0, floc=0, scale=28.0, optimizer=_tight_fmin)
     assert fit.shape == pytest.approx(shape, rel=1e-6)
     assert fit.scale == pytest.approx(scale, rel=1e-6)
@@ -238,17 +229,17 @@ def test_gradient_and_hessian_match_central_differences(scale, shape):
     # common practice, no source: central finite differences, step 1e-5 in theta
     data = mixed_life_data()
     theta = np.array([math.log(scale), math.log(shape)])
-    value, grad, hess = log_likelihood(theta, data, derivatives=2)
-    assert log_likelihood(theta, data) == value
-    assert np.array_equal(log_likelihood(theta, data, derivatives=1)[1], grad)
+    value, grad, hess = log_likelihood(WEIBULL, theta, data, derivatives=2)
+    assert log_likelihood(WEIBULL, theta, data) == value
+    assert np.array_equal(log_likelihood(WEIBULL, theta, data, derivatives=1)[1], grad)
     step = 1e-5
     fd_grad, fd_hess = np.zeros(2), np.zeros((2, 2))
     for i in range(2):
         e = np.zeros(2)
         e[i] = step
-        fd_grad[i] = (log_likelihood(theta + e, data) - log_likelihood(theta - e, data)) / (2 * step)
-        grad_up = log_likelihood(theta + e, data, derivatives=1)[1]
-        grad_down = log_likelihood(theta - e, data, derivatives=1)[1]
+        fd_grad[i] = (log_likelihood(WEIBULL, theta + e, data) - log_likelihood(WEIBULL, theta - e, data)) / (2 * step)
+        grad_up = log_likelihood(WEIBULL, theta + e, data, derivatives=1)[1]
+        grad_down = log_likelihood(WEIBULL, theta - e, data, derivatives=1)[1]
         fd_hess[:, i] = (grad_up - grad_down) / (2 * step)
     floor = 1e-6 * max(1.0, abs(value))
     np.testing.assert_allclose(grad, fd_grad, rtol=1e-6, atol=floor)
@@ -258,7 +249,7 @@ def test_gradient_and_hessian_match_central_differences(scale, shape):
 
 def test_log_likelihood_rejects_unknown_derivative_order():
     with pytest.raises(ValueError, match="derivatives"):
-        log_likelihood([0.0, 0.0], mixed_life_data(), derivatives=3)
+        log_likelihood(WEIBULL, [0.0, 0.0], mixed_life_data(), derivatives=3)
 
 
 def test_zero_count_rows_contribute_nothing():
@@ -274,12 +265,12 @@ def test_zero_count_rows_contribute_nothing():
         suspension_counts=np.concatenate([base.suspension_counts, [0.0, 0.0]]),
     )
     for theta in ([math.log(30.0), math.log(1.4)], [math.log(0.01), math.log(8.0)]):
-        v0, g0, h0 = log_likelihood(theta, base, derivatives=2)
-        v1, g1, h1 = log_likelihood(theta, padded, derivatives=2)
+        v0, g0, h0 = log_likelihood(WEIBULL, theta, base, derivatives=2)
+        v1, g1, h1 = log_likelihood(WEIBULL, theta, padded, derivatives=2)
         assert v1 == v0
         np.testing.assert_array_equal(g1, g0)
         np.testing.assert_array_equal(h1, h0)
-    fit0, fit1 = WeibullFitter().fit(base), WeibullFitter().fit(padded)
+    fit0, fit1 = Fitter(WEIBULL).fit(base), Fitter(WEIBULL).fit(padded)
     assert (fit1.shape, fit1.scale, fit1.log_likelihood) == (fit0.shape, fit0.scale, fit0.log_likelihood)
 
 
@@ -290,7 +281,7 @@ def test_no_warnings_at_extreme_parameters():
         warnings.simplefilter("error")
         for log_scale in (-30.0, -5.0, 0.0, 5.0, 30.0, 60.0):
             for log_shape in (-6.0, -2.0, 0.0, 2.0, 4.0, 6.0):
-                value, grad, hess = log_likelihood([log_scale, log_shape], data, derivatives=2)
+                value, grad, hess = log_likelihood(WEIBULL, [log_scale, log_shape], data, derivatives=2)
                 assert np.isfinite(value) and np.all(np.isfinite(grad)) and np.all(np.isfinite(hess))
                 assert value < 0.0
 
@@ -337,7 +328,7 @@ def test_inputs_are_copied_not_mutated():
     months, returns, ages, counts = simulate_warranty(np.random.default_rng(1), 1000, weibull_life(1.2, 40.0))
     originals = [a.copy() for a in (months, returns, ages, counts)]
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
-    WeibullFitter().fit(data)
+    Fitter(WEIBULL).fit(data)
     for before, after in zip(originals, (months, returns, ages, counts)):
         np.testing.assert_array_equal(before, after)
     assert not np.shares_memory(data.interval_counts, returns)
@@ -354,23 +345,23 @@ def test_inputs_are_copied_not_mutated():
 def test_zero_returns_raise_insufficient_data():
     data = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300])
     with pytest.raises(InsufficientDataError, match="0 returns"):
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
     assert issubclass(InsufficientDataError, FitError) and issubclass(FitNotConvergedError, FitError)
 
 
 def test_fewer_returns_than_minimum_raise_insufficient_data():
     data = LifeData.from_monthly_returns([1, 3], [2, 2], [12.0], [500])
     with pytest.raises(InsufficientDataError, match="fewer than the 5"):
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
     # with the minimum lowered the data reach the optimiser (4 returns cannot pin down the scale here)
-    assert WeibullFitter(min_returns=4, raise_on_failure=False).fit(data).n_returns == 4
+    assert Fitter(WEIBULL, min_returns=4, raise_on_failure=False).fit(data).n_returns == 4
 
 
 def test_no_suspensions_raise_insufficient_data_unless_allowed():
     data = LifeData.from_monthly_returns([1, 2, 3, 4, 5, 6], [3, 5, 6, 4, 2, 1], [], [])
     with pytest.raises(InsufficientDataError, match="no suspensions"):
-        WeibullFitter().fit(data)
-    assert WeibullFitter(require_suspensions=False).fit(data).converged
+        Fitter(WEIBULL).fit(data)
+    assert Fitter(WEIBULL, require_suspensions=False).fit(data).converged
 
 
 @pytest.mark.parametrize(
@@ -384,21 +375,21 @@ def test_no_suspensions_raise_insufficient_data_unless_allowed():
 def test_returns_in_one_month_do_not_give_a_confident_fit(months, returns, ages, counts, why):
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     with pytest.raises(FitNotConvergedError, match=why) as raised:
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
     message = str(raised.value)
     assert "fix the shape from engineering experience" in message
     assert "returns all in one month" in message
     assert "too few returns" in message
-    flagged = WeibullFitter(raise_on_failure=False).fit(data)
+    flagged = Fitter(WEIBULL, raise_on_failure=False).fit(data)
     assert not flagged.converged
-    assert all(math.isnan(v) for v in flagged.shape_bounds() + flagged.b_life_bounds(0.1))
+    assert all(math.isnan(v) for v in flagged.bounds("shape") + flagged.bounds("b_life", p=0.1))
 
 
 def test_lower_tail_data_with_unidentifiable_scale_is_not_converged():
     # 200,000 units, true scale 2e5 months: ~17 returns within 24 months, scale > 1000 x max age
     data = simulated_life_data(0, 200_000, 1.0, 2e5)
     with pytest.raises(FitNotConvergedError, match="near-unidentifiable"):
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
 
 
 @pytest.mark.parametrize(
@@ -407,42 +398,42 @@ def test_lower_tail_data_with_unidentifiable_scale_is_not_converged():
 )
 def test_shape_near_the_bounds_is_recovered(shape, scale, n_units, max_months, warranty):
     data = simulated_life_data(11, n_units, shape, scale, max_months=max_months, warranty_months=warranty)
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     assert fit.converged
-    lower, upper = fit.shape_bounds()
+    lower, upper = fit.bounds("shape")
     assert lower < shape < upper
-    lower, upper = fit.scale_bounds()
+    lower, upper = fit.bounds("scale")
     assert lower < scale < upper
     assert fit.shape == pytest.approx(shape, rel=0.1)
 
 
 def test_true_shape_inside_wald_bounds_for_large_simulation():
     data = simulated_life_data(8, 100_000, 1.5, 40.0)
-    fit = WeibullFitter().fit(data)
-    lower, upper = fit.shape_bounds()
+    fit = Fitter(WEIBULL).fit(data)
+    lower, upper = fit.bounds("shape")
     assert lower < 1.5 < upper
     assert upper / lower < 1.05  # large data set: narrow bounds
-    lower, upper = fit.scale_bounds()
+    lower, upper = fit.bounds("scale")
     assert lower < 40.0 < upper
 
 
 def test_wald_coverage_of_shape_is_near_nominal():
     # common practice, no source: 200 seeded replicates; nominal 95% (binomial sd ~1.5%)
     rng = np.random.default_rng(7)
-    fitter = WeibullFitter()
+    fitter = Fitter(WEIBULL)
     hits = 0
     for _ in range(200):
         fit = fitter.fit(LifeData.from_monthly_returns(*simulate_warranty(rng, 1500, weibull_life(1.5, 40.0))))
-        lower, upper = fit.shape_bounds()
+        lower, upper = fit.bounds("shape")
         hits += lower <= 1.5 <= upper
     assert 0.90 <= hits / 200 <= 0.99
 
 
 def test_fitter_settings_are_validated():
     with pytest.raises(ValueError, match="confidence_level"):
-        WeibullFitter(confidence_level=1.0)
-    with pytest.raises(ValueError, match="shape_limits"):
-        WeibullFitter(shape_limits=(2.0, 1.0))
+        Fitter(WEIBULL, confidence_level=1.0)
+    with pytest.raises(ValueError, match="dispersion_limits"):
+        Fitter(WEIBULL, dispersion_limits=(2.0, 1.0))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -451,8 +442,8 @@ def test_fitter_settings_are_validated():
 
 
 @pytest.fixture(scope="module")
-def warranty_fit() -> WeibullFit:
-    return WeibullFitter().fit(simulated_life_data(5, 5000, 1.3, 60.0))
+def warranty_fit() -> FitResult:
+    return Fitter(WEIBULL).fit(simulated_life_data(5, 5000, 1.3, 60.0))
 
 
 def test_fit_methods_match_closed_forms(warranty_fit):
@@ -463,7 +454,7 @@ def test_fit_methods_match_closed_forms(warranty_fit):
     np.testing.assert_array_equal(fit.log_survival(t), weibull_log_survival(t, fit.shape, fit.scale))
     np.testing.assert_array_equal(fit.hazard(t), weibull_hazard(t, fit.shape, fit.scale))
     np.testing.assert_array_equal(fit.pdf(t), weibull_pdf(t, fit.shape, fit.scale))
-    assert fit.rate == rate_from_scale(fit.shape, fit.scale)
+    assert rate_from_scale(fit.shape, fit.scale) == pytest.approx(fit.scale ** -fit.shape, rel=1e-14)
     assert fit.b10 == pytest.approx(float(fit.b_life(0.10)), rel=1e-15)
     assert fit.iterations >= 1 and fit.gradient_norm < 1e-6
     assert fit.covariance.shape == (2, 2) and np.all(np.linalg.eigvalsh(fit.covariance) > 0)
@@ -474,20 +465,20 @@ def test_wald_bounds_are_log_symmetric_and_bracket_estimates(warranty_fit):
     fit = warranty_fit
     z = stats.norm.ppf(0.975)
     se_log_scale, se_log_shape = np.sqrt(np.diag(fit.covariance))
-    lower, upper = fit.shape_bounds()
+    lower, upper = fit.bounds("shape")
     assert math.log(upper / fit.shape) == pytest.approx(z * se_log_shape, rel=1e-12)
     assert math.log(fit.shape / lower) == pytest.approx(z * se_log_shape, rel=1e-12)
-    lower, upper = fit.scale_bounds()
+    lower, upper = fit.bounds("scale")
     assert math.log(upper / fit.scale) == pytest.approx(z * se_log_scale, rel=1e-12)
     for p in (0.01, 0.10, 0.5):
-        lower, upper = fit.b_life_bounds(p)
+        lower, upper = fit.bounds("b_life", p=p)
         assert lower < float(fit.b_life(p)) < upper
 
 
 def test_cdf_bounds_are_vectorised_and_consistent_with_b_life_bounds(warranty_fit):
     fit = warranty_fit
     t = np.array([0.0, 1.0, 6.0, 24.0, 120.0])
-    lower, upper = fit.cdf_bounds(t)
+    lower, upper = fit.bounds("cdf", t=t)
     assert lower.shape == upper.shape == t.shape
     assert lower[0] == upper[0] == 0.0
     assert np.all(lower[1:] < fit.cdf(t[1:])) and np.all(fit.cdf(t[1:]) < upper[1:])
@@ -496,26 +487,26 @@ def test_cdf_bounds_are_vectorised_and_consistent_with_b_life_bounds(warranty_fi
     # and the lower B10 bound are tied: u_upper(t_p) - log(-log(1-p)) = shape * (log t_p - log t_lower).
     p = 0.10
     t_p = float(fit.b_life(p))
-    t_lower, _ = fit.b_life_bounds(p)
-    _, f_upper = fit.cdf_bounds(t_p)
+    t_lower, _ = fit.bounds("b_life", p=p)
+    _, f_upper = fit.bounds("cdf", t=t_p)
     u_upper = math.log(-math.log1p(-float(f_upper)))
     tie = fit.shape * math.log(t_p / t_lower)
     assert u_upper - math.log(-math.log1p(-p)) == pytest.approx(tie, rel=1e-10)
 
 
 def test_summary_table(warranty_fit):
-    table = warranty_fit.summary()
-    assert list(table.index) == ["shape", "scale", "rate", "B1", "B10", "mean"]
+    table = summary_table(warranty_fit)
+    assert list(table.index) == ["scale", "shape", "B1", "B10", "mean"]
     assert list(table.columns) == ["estimate", "lower", "upper", "bound_method"]
     assert set(table["bound_method"]) == {"wald-log"}
     assert np.all(table["lower"] < table["estimate"]) and np.all(table["estimate"] < table["upper"])
     assert table.loc["B10", "estimate"] == warranty_fit.b10
-    assert (table.loc["B10", "lower"], table.loc["B10", "upper"]) == warranty_fit.b_life_bounds(0.10)
+    assert (table.loc["B10", "lower"], table.loc["B10", "upper"]) == warranty_fit.bounds("b_life", p=0.10)
     assert table.loc["mean", "estimate"] == pytest.approx(warranty_fit.mean)
 
 
 def test_confidence_level_widens_bounds():
     data = simulated_life_data(5, 5000, 1.3, 60.0)
-    narrow = WeibullFitter(confidence_level=0.80).fit(data).shape_bounds()
-    wide = WeibullFitter(confidence_level=0.99).fit(data).shape_bounds()
+    narrow = Fitter(WEIBULL, confidence_level=0.80).fit(data).bounds("shape")
+    wide = Fitter(WEIBULL, confidence_level=0.99).fit(data).bounds("shape")
     assert wide[0] < narrow[0] and narrow[1] < wide[1]

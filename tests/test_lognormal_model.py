@@ -1,4 +1,4 @@
-"""Tests of the grouped, censored lognormal life model (warranty_forecast.lifecore.lognormal_model).
+"""Tests of the grouped, censored lognormal life model (warranty_forecast.lifecore.families.lognormal through the generic fitter).
 
 Every external check names its source beside it. All simulations are seeded. Every test in this
 module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...) fails it.
@@ -13,15 +13,14 @@ import pytest
 from scipy import optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.lifecore.life_model import FitNotConvergedError, InsufficientDataError, LifeData, WeibullFitter
-from warranty_forecast.lifecore.lognormal_model import (
-    FamilyComparison,
-    LognormalFit,
-    LognormalFitter,
-    aic,
-    compare_families,
-    lognormal_log_likelihood,
-)
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.errors import FitNotConvergedError, InsufficientDataError
+from warranty_forecast.lifecore.families import WEIBULL
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.comparison import FamilyComparison, compare_families
+from warranty_forecast.lifecore.families import LOGNORMAL
+from warranty_forecast.lifecore.likelihood import log_likelihood
+from warranty_forecast.lifecore.result import FitResult, aic
 from simulated_data import lognormal_life, mixed_life_data, simulate_warranty, weibull_life  # tests/ on sys.path
 
 pytestmark = pytest.mark.filterwarnings("error")
@@ -70,7 +69,7 @@ def test_grouped_fit_matches_scipy_censored_fit(lognormal_warranty):
     months, returns, ages, counts = lognormal_warranty
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     assert data.n_returns > 300  # a well-determined fit
-    fit = LognormalFitter().fit(data)
+    fit = Fitter(LOGNORMAL).fit(data)
     assert fit.converged
     n_per_month = returns.astype(int)
     censored = stats.CensoredData(
@@ -94,7 +93,7 @@ def test_grouped_fit_matches_scipy_censored_fit(lognormal_warranty):
 def test_log_likelihood_matches_scipy_sums(mu, sigma):
     # reference library: scipy.stats.lognorm logpdf / logcdf / logsf sums at the same parameters
     data = mixed_life_data()
-    value = lognormal_log_likelihood([mu, math.log(sigma)], data)
+    value = log_likelihood(LOGNORMAL, [mu, math.log(sigma)], data)
     assert value == pytest.approx(scipy_log_likelihood(data, mu, sigma), rel=1e-12)
 
 
@@ -102,7 +101,7 @@ def test_complete_data_fit_matches_closed_form():
     # common practice, no source: with exact failures only, mu = mean(log t), sigma^2 = mean((log t - mu)^2)
     failures = stats.lognorm.rvs(0.7, scale=20.0, size=50, random_state=np.random.default_rng(7))
     data = LifeData.from_exact(failures, np.ones_like(failures), [], [])
-    fit = LognormalFitter(require_suspensions=False).fit(data)
+    fit = Fitter(LOGNORMAL, require_suspensions=False).fit(data)
     log_t = np.log(failures)
     assert fit.mu == pytest.approx(log_t.mean(), rel=1e-9)
     assert fit.sigma == pytest.approx(log_t.std(ddof=0), rel=1e-9)
@@ -113,7 +112,7 @@ def test_complete_data_fit_matches_closed_form():
 def test_covariance_is_inverse_of_numerical_information(lognormal_warranty):
     # common practice, no source: second central differences of scipy's log-likelihood sums at the MLE
     data = LifeData.from_monthly_returns(*lognormal_warranty)
-    fit = LognormalFitter().fit(data)
+    fit = Fitter(LOGNORMAL).fit(data)
 
     def loglik(theta: np.ndarray) -> float:
         return scipy_log_likelihood(data, theta[0], math.exp(theta[1]))
@@ -140,11 +139,11 @@ def test_gradient_matches_central_differences(theta):
     # common practice, no source: central differences, step 1e-6, of the log-likelihood itself;
     # the data include lower = 0 intervals and zero-count rows
     data = mixed_life_data()
-    value, gradient = lognormal_log_likelihood(theta, data, derivatives=1)
-    assert value == lognormal_log_likelihood(theta, data)
+    value, gradient = log_likelihood(LOGNORMAL, theta, data, derivatives=1)
+    assert value == log_likelihood(LOGNORMAL, theta, data)
     h = 1e-6
     numeric = [
-        (lognormal_log_likelihood(np.add(theta, e), data) - lognormal_log_likelihood(np.subtract(theta, e), data))
+        (log_likelihood(LOGNORMAL, np.add(theta, e), data) - log_likelihood(LOGNORMAL, np.subtract(theta, e), data))
         / (2 * h)
         for e in np.eye(2) * h
     ]
@@ -165,8 +164,8 @@ def test_zero_count_rows_contribute_nothing():
         suspension_counts=full.suspension_counts[s],
     )
     theta = (2.0, math.log(1.5))
-    v_full, g_full = lognormal_log_likelihood(theta, full, derivatives=1)
-    v_trim, g_trim = lognormal_log_likelihood(theta, trimmed, derivatives=1)
+    v_full, g_full = log_likelihood(LOGNORMAL, theta, full, derivatives=1)
+    v_trim, g_trim = log_likelihood(LOGNORMAL, theta, trimmed, derivatives=1)
     assert v_full == pytest.approx(v_trim, rel=1e-14)
     np.testing.assert_allclose(g_full, g_trim, rtol=1e-14)
 
@@ -182,17 +181,17 @@ def test_interval_probability_stable_in_both_tails(lower, upper, mu, sigma):
         expected = stats.norm.logcdf(z_u) + math.log1p(-math.exp(stats.norm.logcdf(z_l) - stats.norm.logcdf(z_u)))
     else:
         expected = stats.norm.logsf(z_l) + math.log1p(-math.exp(stats.norm.logsf(z_u) - stats.norm.logsf(z_l)))
-    value, gradient = lognormal_log_likelihood([mu, math.log(sigma)], data, derivatives=1)
+    value, gradient = log_likelihood(LOGNORMAL, [mu, math.log(sigma)], data, derivatives=1)
     assert value == pytest.approx(expected, rel=1e-10)
     assert np.all(np.isfinite(gradient))
 
 
 def test_absurd_parameters_give_minus_infinity_without_warnings():
     # common practice, no source: a median of e^2000 months is rejected, not computed
-    value, gradient = lognormal_log_likelihood([2000.0, 0.0], mixed_life_data(), derivatives=1)
+    value, gradient = log_likelihood(LOGNORMAL, [2000.0, 0.0], mixed_life_data(), derivatives=1)
     assert value == -math.inf and np.all(gradient == 0.0)
     with pytest.raises(ValueError, match="derivatives"):
-        lognormal_log_likelihood([1.0, 0.0], mixed_life_data(), derivatives=2)
+        log_likelihood(LOGNORMAL, [1.0, 0.0], mixed_life_data(), derivatives=3)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -202,9 +201,7 @@ def test_absurd_parameters_give_minus_infinity_without_warnings():
 
 def test_fit_functions_match_scipy_lognorm():
     # reference library: scipy.stats.lognorm(s=sigma, scale=exp(mu))
-    fit = LognormalFit(
-        mu=3.5, sigma=0.9, log_likelihood=-100.0, covariance=np.eye(2), converged=True, n_returns=10, n_suspensions=90
-    )
+    fit = FitResult(LOGNORMAL, LOGNORMAL.theta(mu=3.5, sigma=0.9), np.eye(2), -100.0, True, 1, 0.0, mixed_life_data())
     dist = stats.lognorm(0.9, scale=math.exp(3.5))
     t = np.array([0.0, 0.5, 5.0, 33.0, 200.0])
     np.testing.assert_allclose(fit.log_survival(t), dist.logsf(t), rtol=1e-12, atol=0.0)
@@ -231,7 +228,7 @@ def test_lognormal_data_prefer_lognormal():
     data = LifeData.from_monthly_returns(
         *simulate_warranty(np.random.default_rng(11), 20_000, lognormal_life(math.log(80.0), 1.5))
     )
-    weibull, lognormal = WeibullFitter().fit(data), LognormalFitter().fit(data)
+    weibull, lognormal = Fitter(WEIBULL).fit(data), Fitter(LOGNORMAL).fit(data)
     comparison = compare_families(weibull.log_likelihood, lognormal.log_likelihood)
     assert comparison.prefers_lognormal
     assert comparison.delta_aic > 10.0  # measured 72.8
@@ -244,7 +241,7 @@ def test_weibull_data_prefer_weibull():
     data = LifeData.from_monthly_returns(
         *simulate_warranty(np.random.default_rng(12), 20_000, weibull_life(1.8, 50.0))
     )
-    weibull, lognormal = WeibullFitter().fit(data), LognormalFitter().fit(data)
+    weibull, lognormal = Fitter(WEIBULL).fit(data), Fitter(LOGNORMAL).fit(data)
     comparison = compare_families(weibull.log_likelihood, lognormal.log_likelihood)
     assert not comparison.prefers_lognormal
     assert comparison.delta_aic < 0.0  # measured -118.1
@@ -273,9 +270,9 @@ def test_compare_families_threshold_and_messages():
 def test_insufficient_data():
     # common practice, no source: the fitter refuses data it cannot fit
     with pytest.raises(InsufficientDataError, match="fewer than the 5"):
-        LognormalFitter().fit(LifeData.from_monthly_returns([1, 2], [1.0, 2.0], [12.0], [100.0]))
+        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2], [1.0, 2.0], [12.0], [100.0]))
     with pytest.raises(InsufficientDataError, match="no suspensions"):
-        LognormalFitter().fit(LifeData.from_monthly_returns([1, 2, 3], [4.0, 5.0, 6.0], [], []))
+        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2, 3], [4.0, 5.0, 6.0], [], []))
     assert issubclass(InsufficientDataError, FitError)
 
 
@@ -283,8 +280,8 @@ def test_returns_in_one_month_do_not_converge():
     # common practice, no source: with every return in month 1, sigma runs off towards infinity
     data = LifeData.from_monthly_returns([1], [10.0], [12.0], [100.0])
     with pytest.raises(FitNotConvergedError, match="returns all in one month"):
-        LognormalFitter().fit(data)
-    fit = LognormalFitter(raise_on_failure=False).fit(data)
+        Fitter(LOGNORMAL).fit(data)
+    fit = Fitter(LOGNORMAL, raise_on_failure=False).fit(data)
     assert not fit.converged and np.all(np.isnan(fit.covariance))
 
 
@@ -292,7 +289,7 @@ def test_fit_does_not_touch_inputs(lognormal_warranty):
     # common practice, no source: inputs stay as they were
     months, returns, ages, counts = (a.copy() for a in lognormal_warranty)
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
-    LognormalFitter().fit(data)
+    Fitter(LOGNORMAL).fit(data)
     for before, after in zip(lognormal_warranty, (months, returns, ages, counts)):
         np.testing.assert_array_equal(before, after)
     np.testing.assert_array_equal(data.interval_counts, lognormal_warranty[1])

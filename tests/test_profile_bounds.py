@@ -15,22 +15,15 @@ import pytest
 from scipy import optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.lifecore.life_model import (
-    FitNotConvergedError,
-    InsufficientDataError,
-    LifeData,
-    LikelihoodRatioBounds,
-    ProfileLikelihoodError,
-    UnidentifiableError,
-    WeibullFit,
-    WeibullFitter,
-    likelihood_ratio_bounds,
-    log_likelihood,
-    profile_bounds,
-    profile_log_likelihood,
-    weibull_b_life,
-    weibull_cdf,
-)
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.errors import FitNotConvergedError, InsufficientDataError, ProfileLikelihoodError, UnidentifiableError
+from warranty_forecast.lifecore.families import WEIBULL
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.likelihood import log_likelihood
+from warranty_forecast.lifecore.profile import LikelihoodRatioBounds, likelihood_ratio_bounds, profile_bounds, profile_log_likelihood
+from warranty_forecast.lifecore.result import FitResult
+from closed_forms import weibull_b_life, weibull_cdf  # tests/closed_forms.py
+from closed_forms import summary_table  # tests/closed_forms.py
 import reference_values as ref  # tests/reference_values.py (tests/ is on sys.path under pytest)
 from reference_values import reference_life_data
 
@@ -133,16 +126,16 @@ def test_bearing_cage_b10_likelihood_ratio_interval():
     # B10 "about 3,903" hours, 95% likelihood-ratio interval "about [2,094, 22,144]" (computed; the book's
     # figure, from memory, about [2,093, 22,144]); Wald on the log scale "about [1,489, 10,234]".
     data = reference_life_data("bearing_cage.csv")
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     assert fit.b10 == pytest.approx(ref.BEARING_B10, abs=0.5)
-    lower, upper = profile_bounds(fit, data, "b_life", p=0.10)
+    lower, upper = profile_bounds(fit, "b_life", p=0.10)
     assert lower == pytest.approx(ref.BEARING_B10_LR_95[0], abs=1.0)  # measured 2094.28
     assert upper == pytest.approx(ref.BEARING_B10_LR_95[1], abs=1.0)  # measured 22144.43
-    wald_lower, wald_upper = fit.b_life_bounds(0.10)
+    wald_lower, wald_upper = fit.bounds("b_life", p=0.10)
     assert wald_upper == pytest.approx(ref.BEARING_B10_WALD_95[1], abs=1.0)
     assert upper > 2.0 * wald_upper  # 6 failures: the likelihood is far from quadratic
     assert wald_lower < lower < fit.b10
-    bundle = likelihood_ratio_bounds(fit, data)
+    bundle = likelihood_ratio_bounds(fit)
     assert bundle.b_life[0.10] == (lower, upper)
     assert bundle.is_bounded and bundle.open_ends == ()
 
@@ -166,16 +159,16 @@ def test_profile_ends_match_brute_force(data_name, quantity, kwargs):
     else:
         data = small_warranty_data()
         assert 20 <= data.n_returns <= 80
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     t = kwargs.get("t")
 
     def loglik(theta) -> float:
-        return float(log_likelihood(theta, data))
+        return float(log_likelihood(WEIBULL, theta, data))
 
-    lower, upper = profile_bounds(fit, data, quantity, **kwargs)
+    lower, upper = profile_bounds(fit, quantity, **kwargs)
     for end in (lower, upper):
         psi = to_psi(quantity, end)
-        own = profile_log_likelihood(fit, data, quantity, end, **kwargs)
+        own = profile_log_likelihood(fit, quantity, end, **kwargs)
         assert 2.0 * (fit.log_likelihood - own) == pytest.approx(CHI2_95, abs=1e-6)
 
         constrained = optimize.minimize(
@@ -209,10 +202,10 @@ def test_likelihood_ratio_bounds_respect_reparameterisation():
     # common practice, no source: likelihood-ratio intervals are invariant under reparameterisation;
     # "F(L) = p" is the same constraint as "t_p = L", so at the lower B10 bound L the upper F(L) bound is 0.10
     data = small_warranty_data()
-    fit = WeibullFitter().fit(data)
-    b10_lower, b10_upper = profile_bounds(fit, data, "b_life", p=0.10)
-    assert profile_bounds(fit, data, "cdf", t=b10_lower)[1] == pytest.approx(0.10, rel=1e-7)
-    assert profile_bounds(fit, data, "cdf", t=b10_upper)[0] == pytest.approx(0.10, rel=1e-7)
+    fit = Fitter(WEIBULL).fit(data)
+    b10_lower, b10_upper = profile_bounds(fit, "b_life", p=0.10)
+    assert profile_bounds(fit, "cdf", t=b10_lower)[1] == pytest.approx(0.10, rel=1e-7)
+    assert profile_bounds(fit, "cdf", t=b10_upper)[0] == pytest.approx(0.10, rel=1e-7)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -238,17 +231,17 @@ def test_coverage_of_likelihood_ratio_intervals(shape, scale):
     returns = np.array([d.n_returns for d in sets])
     assert returns.min() >= 10 and np.median(returns) > 50 and returns.max() > 300  # a few dozen to hundreds
     b10 = float(weibull_b_life(0.10, shape, scale))
-    fitter = WeibullFitter()
+    fitter = Fitter(WEIBULL)
     hits = {"lr_shape": 0, "lr_b10": 0, "wald_shape": 0, "wald_b10": 0}
     for data in sets:
         fit = fitter.fit(data)
-        lower, upper = profile_bounds(fit, data, "shape")
+        lower, upper = profile_bounds(fit, "shape")
         hits["lr_shape"] += lower <= shape <= upper
-        lower, upper = profile_bounds(fit, data, "b_life", p=0.10)
+        lower, upper = profile_bounds(fit, "b_life", p=0.10)
         hits["lr_b10"] += lower <= b10 <= upper
-        lower, upper = fit.shape_bounds()
+        lower, upper = fit.bounds("shape")
         hits["wald_shape"] += lower <= shape <= upper
-        lower, upper = fit.b_life_bounds(0.10)
+        lower, upper = fit.bounds("b_life", p=0.10)
         hits["wald_b10"] += lower <= b10 <= upper
     coverage = {name: count / len(sets) for name, count in hits.items()}
     assert 0.92 <= coverage["lr_shape"] <= 0.98, coverage
@@ -266,14 +259,14 @@ def test_large_sample_likelihood_ratio_close_to_wald(shape, scale):
     # likelihood-ratio and Wald intervals nearly agree, and both bracket the estimate
     data = large_warranty_data(shape, scale)
     assert data.n_returns > 2000
-    fit = WeibullFitter().fit(data)
-    bounds = likelihood_ratio_bounds(fit, data, cdf_ages=(12.0,))
+    fit = Fitter(WEIBULL).fit(data)
+    bounds = likelihood_ratio_bounds(fit, cdf_ages=(12.0,))
     assert bounds.is_bounded
     pairs = {
-        "shape": (bounds.shape, fit.shape_bounds(), fit.shape),
-        "scale": (bounds.scale, fit.scale_bounds(), fit.scale),
-        "B10": (bounds.b_life[0.10], fit.b_life_bounds(0.10), fit.b10),
-        "F(12)": (bounds.cdf[12.0], tuple(float(v) for v in fit.cdf_bounds(12.0)), float(fit.cdf(12.0))),
+        "shape": (bounds.shape, fit.bounds("shape"), fit.shape),
+        "scale": (bounds.scale, fit.bounds("scale"), fit.scale),
+        "B10": (bounds.b_life[0.10], fit.bounds("b_life", p=0.10), fit.b10),
+        "F(12)": (bounds.cdf[12.0], tuple(float(v) for v in fit.bounds("cdf", t=12.0)), float(fit.cdf(12.0))),
     }
     for name, (lr, wald, estimate) in pairs.items():
         assert lr[0] < estimate < lr[1], name
@@ -294,9 +287,9 @@ def test_zero_count_and_repeated_rows_do_not_change_bounds():
         suspension_ages=np.concatenate([base.suspension_ages, [0.0, 7.5]]),
         suspension_counts=np.concatenate([base.suspension_counts, [3.0, 0.0]]),
     )
-    fit0, fit1 = WeibullFitter().fit(base), WeibullFitter().fit(padded)
-    b0 = likelihood_ratio_bounds(fit0, base, cdf_ages=(24.0,))
-    b1 = likelihood_ratio_bounds(fit1, padded, cdf_ages=(24.0,))
+    fit0, fit1 = Fitter(WEIBULL).fit(base), Fitter(WEIBULL).fit(padded)
+    b0 = likelihood_ratio_bounds(fit0, cdf_ages=(24.0,))
+    b1 = likelihood_ratio_bounds(fit1, cdf_ages=(24.0,))
     for one, other in [(b0.shape, b1.shape), (b0.scale, b1.scale), (b0.b_life[0.01], b1.b_life[0.01]),
                        (b0.b_life[0.1], b1.b_life[0.1]), (b0.cdf[24.0], b1.cdf[24.0])]:
         np.testing.assert_allclose(one, other, rtol=1e-8)
@@ -309,16 +302,16 @@ def test_zero_count_and_repeated_rows_do_not_change_bounds():
 
 def test_likelihood_ratio_bounds_bundle():
     data = small_warranty_data()
-    fit = WeibullFitter(confidence_level=0.90).fit(data)
-    bounds = likelihood_ratio_bounds(fit, data, b_life_fractions=(0.01, 0.10), cdf_ages=(6.0, 24.0))
+    fit = Fitter(WEIBULL, confidence_level=0.90).fit(data)
+    bounds = likelihood_ratio_bounds(fit, b_life_fractions=(0.01, 0.10), cdf_ages=(6.0, 24.0))
     assert isinstance(bounds, LikelihoodRatioBounds)
     assert bounds.bound_method == "likelihood-ratio" and bounds.confidence_level == 0.90
-    assert not bounds.shape_fixed and bounds.is_bounded
+    assert not bounds.fixed and bounds.is_bounded
     assert list(bounds.b_life) == [0.01, 0.10] and list(bounds.cdf) == [6.0, 24.0]
-    assert bounds.shape == profile_bounds(fit, data, "shape")  # default level: the fit's
-    assert bounds.scale == profile_bounds(fit, data, "scale", confidence_level=0.90)
-    assert bounds.b_life[0.01] == profile_bounds(fit, data, "b_life", p=0.01)
-    assert bounds.cdf[24.0] == profile_bounds(fit, data, "cdf", t=24.0)
+    assert bounds.shape == profile_bounds(fit, "shape")  # default level: the fit's
+    assert bounds.scale == profile_bounds(fit, "scale", confidence_level=0.90)
+    assert bounds.b_life[0.01] == profile_bounds(fit, "b_life", p=0.01)
+    assert bounds.cdf[24.0] == profile_bounds(fit, "cdf", t=24.0)
     lower6, upper6 = bounds.cdf[6.0]
     lower24, upper24 = bounds.cdf[24.0]
     assert lower6 < float(fit.cdf(6.0)) < upper6 and lower24 < float(fit.cdf(24.0)) < upper24
@@ -327,7 +320,7 @@ def test_likelihood_ratio_bounds_bundle():
         bounds.shape = (0.0, 1.0)  # type: ignore[misc]
     with pytest.raises(TypeError):
         bounds.b_life[0.5] = (1.0, 2.0)  # type: ignore[index]
-    wide = likelihood_ratio_bounds(fit, data, confidence_level=0.99)
+    wide = likelihood_ratio_bounds(fit, confidence_level=0.99)
     assert wide.confidence_level == 0.99
     assert wide.shape[0] < bounds.shape[0] and bounds.shape[1] < wide.shape[1]
     assert wide.b_life[0.10][0] < bounds.b_life[0.10][0] and bounds.b_life[0.10][1] < wide.b_life[0.10][1]
@@ -335,33 +328,33 @@ def test_likelihood_ratio_bounds_bundle():
 
 def test_profile_bounds_reject_bad_input():
     data = small_warranty_data()
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     with pytest.raises(ValueError, match="quantity"):
-        profile_bounds(fit, data, "mean")  # type: ignore[arg-type]
+        profile_bounds(fit, "mean")  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="needs p"):
-        profile_bounds(fit, data, "b_life")
+        profile_bounds(fit, "b_life")
     with pytest.raises(ValueError, match="strictly between 0 and 1"):
-        profile_bounds(fit, data, "b_life", p=1.0)
+        profile_bounds(fit, "b_life", p=1.0)
     with pytest.raises(ValueError, match="age t > 0"):
-        profile_bounds(fit, data, "cdf", t=0.0)
+        profile_bounds(fit, "cdf", t=0.0)
     with pytest.raises(ValueError, match="confidence_level"):
-        profile_bounds(fit, data, "shape", confidence_level=1.0)
-    with pytest.raises(ValueError, match="the data the fit was made from"):
-        profile_bounds(fit, large_warranty_data(), "shape")
-    flagged = WeibullFitter(raise_on_failure=False).fit(LifeData.from_monthly_returns([1], [12], [1.0], [988]))
+        profile_bounds(fit, "shape", confidence_level=1.0)
+    # a fit keeps its own data, so bounds can no longer be asked of other data (was: ValueError)
+    assert fit.data is data
+    flagged = Fitter(WEIBULL, raise_on_failure=False).fit(LifeData.from_monthly_returns([1], [12], [1.0], [988]))
     assert not flagged.converged
     with pytest.raises(FitNotConvergedError, match="converged fit"):
-        likelihood_ratio_bounds(flagged, LifeData.from_monthly_returns([1], [12], [1.0], [988]))
+        likelihood_ratio_bounds(flagged)
 
 
 def test_fit_off_its_maximum_raises_profile_error():
     # a fit whose parameters are not the maximum: the profile finds a higher likelihood and refuses
     data = small_warranty_data()
-    fit = WeibullFitter().fit(data)
+    fit = Fitter(WEIBULL).fit(data)
     theta = fit.theta + np.array([0.0, 0.2])
-    off = dataclasses.replace(fit, shape=math.exp(theta[1]), log_likelihood=float(log_likelihood(theta, data)))
+    off = dataclasses.replace(fit, theta=theta, log_likelihood=float(log_likelihood(WEIBULL, theta, data)))
     with pytest.raises(ProfileLikelihoodError, match="not at the global maximum"):
-        profile_bounds(off, data, "b_life", p=0.10)
+        profile_bounds(off, "b_life", p=0.10)
     assert issubclass(ProfileLikelihoodError, FitError)
 
 
@@ -380,20 +373,20 @@ def two_failure_bearing_data() -> LifeData:
 
 def test_unbounded_b10_upper_end_is_infinite_and_flagged():
     data = two_failure_bearing_data()
-    fit = WeibullFitter(min_returns=2).fit(data)
+    fit = Fitter(WEIBULL, min_returns=2).fit(data)
     assert fit.converged
-    lower, upper = profile_bounds(fit, data, "b_life", p=0.10)
+    lower, upper = profile_bounds(fit, "b_life", p=0.10)
     assert 0.0 < lower < fit.b10 and upper == math.inf
-    bounds = likelihood_ratio_bounds(fit, data)
+    bounds = likelihood_ratio_bounds(fit)
     assert not bounds.is_bounded
     assert "B10 upper" in bounds.open_ends and "B1 upper" not in bounds.open_ends
     assert bounds.b_life[0.10] == (lower, math.inf)
     # the deviance really stays below the threshold far out (a flat likelihood, not a search failure)
-    far = profile_log_likelihood(fit, data, "b_life", 1e6 * fit.b10, p=0.10)
+    far = profile_log_likelihood(fit, "b_life", 1e6 * fit.b10, p=0.10)
     assert 2.0 * (fit.log_likelihood - far) < CHI2_95
     # the full data set (six failures) bounds it
     full = reference_life_data("bearing_cage.csv")
-    assert likelihood_ratio_bounds(WeibullFitter().fit(full), full).is_bounded
+    assert likelihood_ratio_bounds(Fitter(WEIBULL).fit(full)).is_bounded
 
 
 @pytest.mark.parametrize(
@@ -406,13 +399,13 @@ def test_unbounded_b10_upper_end_is_infinite_and_flagged():
 def test_flat_likelihood_raises_unidentifiable(months, returns, ages, counts, why):
     data = LifeData.from_monthly_returns(months, returns, ages, counts)
     with pytest.raises(UnidentifiableError, match=why) as raised:
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
     assert isinstance(raised.value, FitNotConvergedError)
     assert "fix the shape from engineering experience" in str(raised.value)
     # the remedy: a fixed shape gives a converged fit with finite likelihood-ratio bounds
-    fixed = WeibullFitter().fit_fixed_shape(data, 1.5)
+    fixed = Fitter(WEIBULL).fit(data, fixed={"shape": 1.5})
     assert fixed.converged
-    assert likelihood_ratio_bounds(fixed, data, cdf_ages=(24.0,)).is_bounded
+    assert likelihood_ratio_bounds(fixed, cdf_ages=(24.0,)).is_bounded
 
 
 def test_runaway_scale_raises_unidentifiable():
@@ -420,14 +413,14 @@ def test_runaway_scale_raises_unidentifiable():
     (data,) = simulate_warranty_sets(np.random.default_rng(0), 1, 1.0, 2e5, units_per_month=(5500.0, 5500.0))
     assert 5 <= data.n_returns <= 40
     with pytest.raises(UnidentifiableError, match="near-unidentifiable"):
-        WeibullFitter().fit(data)
+        Fitter(WEIBULL).fit(data)
 
 
 def test_other_non_convergence_is_not_unidentifiable():
     # one optimiser iteration per start: not converged for want of iterations, not for a flat likelihood
     data = large_warranty_data()
     with pytest.raises(FitNotConvergedError, match="gradient") as raised:
-        WeibullFitter(max_iterations=1).fit(data)
+        Fitter(WEIBULL, max_iterations=1).fit(data)
     assert not isinstance(raised.value, UnidentifiableError)
 
 
@@ -438,19 +431,19 @@ def test_other_non_convergence_is_not_unidentifiable():
 
 def test_fixed_shape_fit_recovers_scale_on_large_simulation():
     data = large_warranty_data(1.5, 40.0)
-    fit = WeibullFitter().fit_fixed_shape(data, 1.5)
-    assert fit.converged and fit.shape_fixed and fit.shape == 1.5
+    fit = Fitter(WEIBULL).fit(data, fixed={"shape": 1.5})
+    assert fit.converged and fit.fixed and fit.shape == 1.5
     assert fit.scale == pytest.approx(40.0, rel=0.01)
-    assert fit.shape_bounds() == (1.5, 1.5)
+    assert fit.bounds("shape") == (1.5, 1.5)
     assert fit.covariance[1, 1] == 0.0 and fit.covariance[0, 1] == 0.0 and fit.covariance[0, 0] > 0.0
-    wald = fit.scale_bounds()
-    lr = profile_bounds(fit, data, "scale")
+    wald = fit.bounds("scale")
+    lr = profile_bounds(fit, "scale")
     assert wald[0] < 40.0 < wald[1] and lr[0] < 40.0 < lr[1]
     # common practice, no source: many returns, near-quadratic log-likelihood: LR and Wald nearly agree
     np.testing.assert_allclose(lr, wald, rtol=1e-3)
     # fixing the shape removes its uncertainty: the scale interval is narrower than the free fit's
-    free = WeibullFitter().fit(data)
-    assert wald[1] - wald[0] < free.scale_bounds()[1] - free.scale_bounds()[0]
+    free = Fitter(WEIBULL).fit(data)
+    assert wald[1] - wald[0] < free.bounds("scale")[1] - free.bounds("scale")[0]
 
 
 def test_fixed_shape_fit_matches_brute_force():
@@ -458,11 +451,11 @@ def test_fixed_shape_fit_matches_brute_force():
     # (scipy), the observed information by central differences, the LR ends by the 1-D deviance
     data = small_warranty_data()
     shape = 1.2
-    fit = WeibullFitter().fit_fixed_shape(data, shape)
+    fit = Fitter(WEIBULL).fit(data, fixed={"shape": shape})
     log_shape = math.log(shape)
 
     def loglik(a: float) -> float:
-        return float(log_likelihood((a, log_shape), data))
+        return float(log_likelihood(WEIBULL, (a, log_shape), data))
 
     best = optimize.minimize_scalar(lambda a: -loglik(a), bounds=(0.0, 10.0), method="bounded",
                                     options={"xatol": 1e-12})
@@ -473,7 +466,7 @@ def test_fixed_shape_fit_matches_brute_force():
     assert (loglik(a + h) - loglik(a - h)) / (2.0 * h) == pytest.approx(0.0, abs=1e-6)
     information = -(loglik(a + h) - 2.0 * loglik(a) + loglik(a - h)) / h**2
     assert fit.covariance[0, 0] == pytest.approx(1.0 / information, rel=1e-5)
-    for end in profile_bounds(fit, data, "scale"):
+    for end in profile_bounds(fit, "scale"):
         assert 2.0 * (fit.log_likelihood - loglik(math.log(end))) == pytest.approx(CHI2_95, abs=1e-6)
 
 
@@ -481,53 +474,53 @@ def test_fixed_shape_b_life_and_cdf_bounds_follow_scale_bounds():
     # closed forms: t_p = scale (-log(1-p))^(1/shape) rises with the scale, F(t) falls with it
     data = small_warranty_data()
     shape = 1.2
-    fit = WeibullFitter().fit_fixed_shape(data, shape)
-    bounds = likelihood_ratio_bounds(fit, data, cdf_ages=(24.0,))
-    assert bounds.shape_fixed and bounds.is_bounded and bounds.shape == (shape, shape)
-    assert profile_bounds(fit, data, "shape") == (shape, shape)
+    fit = Fitter(WEIBULL).fit(data, fixed={"shape": shape})
+    bounds = likelihood_ratio_bounds(fit, cdf_ages=(24.0,))
+    assert bounds.fixed and bounds.is_bounded and bounds.shape == (shape, shape)
+    assert profile_bounds(fit, "shape") == (shape, shape)
     lower, upper = bounds.scale
     for p in (0.01, 0.10):
         factor = (-math.log1p(-p)) ** (1.0 / shape)
         np.testing.assert_allclose(bounds.b_life[p], (lower * factor, upper * factor), rtol=1e-12)
-        np.testing.assert_allclose(fit.b_life_bounds(p), np.array(fit.scale_bounds()) * factor, rtol=1e-12)
+        np.testing.assert_allclose(fit.bounds("b_life", p=p), np.array(fit.bounds("scale")) * factor, rtol=1e-12)
     expected = (float(weibull_cdf(24.0, shape, upper)), float(weibull_cdf(24.0, shape, lower)))
     np.testing.assert_allclose(bounds.cdf[24.0], expected, rtol=1e-12)
     f_lower, f_upper = bounds.cdf[24.0]
     assert f_lower < float(fit.cdf(24.0)) < f_upper
-    assert profile_log_likelihood(fit, data, "b_life", bounds.b_life[0.10][1], p=0.10) == pytest.approx(
+    assert profile_log_likelihood(fit, "b_life", bounds.b_life[0.10][1], p=0.10) == pytest.approx(
         fit.log_likelihood - 0.5 * CHI2_95, abs=1e-6
     )
 
 
 def test_fixed_shape_summary_and_method():
     data = small_warranty_data()
-    fit = WeibullFitter().fit_fixed_shape(data, 1.5)
+    fit = Fitter(WEIBULL).fit(data, fixed={"shape": 1.5})
     assert fit.bound_method == "wald-log, shape fixed"
-    table = fit.summary()
+    table = summary_table(fit)
     assert table.loc["shape", "lower"] == table.loc["shape", "upper"] == table.loc["shape", "estimate"] == 1.5
     assert table.loc["shape", "bound_method"] == "fixed"
     assert set(table["bound_method"].drop("shape")) == {"wald-log, shape fixed"}
     assert np.all(table["lower"].drop("shape") < table["estimate"].drop("shape"))
-    assert WeibullFitter().fit(data).bound_method == "wald-log"
+    assert Fitter(WEIBULL).fit(data).bound_method == "wald-log"
     with pytest.raises(ValueError, match="fixed"):
-        profile_log_likelihood(fit, data, "shape", 1.5)
+        profile_log_likelihood(fit, "shape", 1.5)
 
 
 def test_fixed_shape_refuses_no_returns_and_no_exposure():
-    fitter = WeibullFitter()
+    fitter = Fitter(WEIBULL)
     # documented: no returns, no maximum-likelihood scale (the likelihood rises as the scale grows)
     no_returns = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300])
     with pytest.raises(InsufficientDataError, match="0 returns"):
-        fitter.fit_fixed_shape(no_returns, 1.5)
+        fitter.fit(no_returns, fixed={"shape": 1.5})
     no_exposure = LifeData(suspension_ages=[0.0], suspension_counts=[100.0])
     with pytest.raises(InsufficientDataError):
-        fitter.fit_fixed_shape(no_exposure, 1.5)
+        fitter.fit(no_exposure, fixed={"shape": 1.5})
     no_suspensions = LifeData.from_monthly_returns([1, 2], [3, 1], [], [])
     with pytest.raises(InsufficientDataError, match="no suspensions"):
-        fitter.fit_fixed_shape(no_suspensions, 1.5)
+        fitter.fit(no_suspensions, fixed={"shape": 1.5})
     # one return is enough once the shape is fixed (min_returns does not apply)
     one_return = LifeData.from_monthly_returns([7], [1], [12.0, 24.0], [500, 300])
-    assert fitter.fit_fixed_shape(one_return, 1.5).converged
+    assert fitter.fit(one_return, fixed={"shape": 1.5}).converged
     for bad in (0.0, -1.0, math.nan, math.inf, 1e3):
         with pytest.raises(ValueError, match="fixed shape"):
-            fitter.fit_fixed_shape(one_return, bad)
+            fitter.fit(one_return, fixed={"shape": bad})

@@ -33,7 +33,7 @@ from warranty_forecast.stages.forecast import (
     expected_future_returns_by_mode,
     forecast_by_month,
 )
-from warranty_forecast.lifecore.life_model import WeibullFit
+from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.outputs.manifest import RunManifest, run_manifest
 from warranty_forecast.outputs.publish import publish_outputs
@@ -181,7 +181,7 @@ def run_nightly(config: RunConfig) -> RunResult:
 
 
 def forecast_models(
-    fits: Mapping[str, ProductFit], complete_modes: Mapping[str, Mapping[str, WeibullFit]], forecast_model: str
+    fits: Mapping[str, ProductFit], complete_modes: Mapping[str, Mapping[str, FitResult]], forecast_model: str
 ) -> tuple[dict[str, LifeDistribution], dict[str, str], list[str]]:
     """The life model each product's forecast uses, its name, and notes where the configured one is missing.
 

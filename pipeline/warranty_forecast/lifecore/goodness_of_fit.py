@@ -2,7 +2,7 @@
 
 Input: a `LifeData` whose returns are all monthly intervals (k-1, k] (integer month in service
 k >= 1; no exact failure ages) and suspensions at any age in months, plus a fitted model given as a
-callable log_survival(t) -> log R(t) (e.g. `WeibullFit.log_survival` or `LognormalFit.log_survival`).
+callable log_survival(t) -> log R(t) (e.g. `FitResult.log_survival` of any family).
 
 Risk sets, for month k = 1..K (K: the last month holding a return or the end of an observation):
   n_k  units exposed for the whole month: returned in a month >= k, or suspended at an age >= k;
@@ -30,7 +30,7 @@ import numpy.typing as npt
 import pandas as pd
 from scipy import special, stats
 
-from warranty_forecast.lifecore.life_model import LifeData
+from warranty_forecast.lifecore.data import LifeData
 
 logger = logging.getLogger(__name__)
 

@@ -14,7 +14,7 @@ import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
-from warranty_forecast.lifecore.life_model import WeibullFit
+from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.outputs.safe_text import chart_text
 
 _PER_THOUSAND = 1000.0
@@ -64,7 +64,7 @@ def return_rate_heatmap(age_in_service: pd.DataFrame) -> Figure:
 
 def weibull_probability_plot(
     life_table: pd.DataFrame,
-    fits: Mapping[str, WeibullFit | None],
+    fits: Mapping[str, FitResult | None],
     alternatives: Mapping[str, LifeCurve | None] | None = None,
 ) -> Figure:
     """Life-table fraction failed (with Greenwood bounds) and the fitted Weibull line with its Wald band.
@@ -96,7 +96,7 @@ def weibull_probability_plot(
         fit = fits.get(product)
         if fit is not None and len(months):
             grid = np.geomspace(max(months.min() * 0.5, 0.25), months.max() * 1.5, 120)
-            lower, upper = fit.cdf_bounds(grid)
+            lower, upper = fit.bounds("cdf", t=grid)
             axis.plot(grid, _weibull_scale(fit.cdf(grid)), color="#c0392b", label=(
                 f"Weibull shape {fit.shape:.3g}, scale {fit.scale:.4g} mo"
             ))

@@ -19,7 +19,9 @@ import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, fit_weibull
-from warranty_forecast.lifecore.life_model import LifeData, LikelihoodRatioBounds, WeibullFit
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.profile import LikelihoodRatioBounds
+from warranty_forecast.lifecore.result import FitResult
 
 OTHER = "other"
 
@@ -59,7 +61,7 @@ class ModeFit:
     returns: float
     status: str
     message: str
-    fit: WeibullFit | None
+    fit: FitResult | None
     lr_bounds: LikelihoodRatioBounds | None
 
 
@@ -116,7 +118,7 @@ def fit_failure_modes(
     return result
 
 
-def complete_mode_models(mode_fits: Mapping[str, tuple[ModeFit, ...]]) -> dict[str, dict[str, WeibullFit]]:
+def complete_mode_models(mode_fits: Mapping[str, tuple[ModeFit, ...]]) -> dict[str, dict[str, FitResult]]:
     """Per product, every mode's fit, for products where every mode has a published fit."""
     return {
         product: {mode.failure_mode: mode.fit for mode in modes}
@@ -147,10 +149,10 @@ def life_model_by_mode_table(
                 is_shape_fixed=False,
             )
             if mode.fit is not None:
-                row.update(is_shape_fixed=bool(mode.fit.shape_fixed), shape=mode.fit.shape, scale=mode.fit.scale,
+                row.update(is_shape_fixed="shape" in mode.fit.fixed, shape=mode.fit.shape, scale=mode.fit.scale,
                            b10=mode.fit.b10)
-                row["shape_lower"], row["shape_upper"] = mode.fit.shape_bounds()
-                row["scale_lower"], row["scale_upper"] = mode.fit.scale_bounds()
+                row["shape_lower"], row["shape_upper"] = mode.fit.bounds("shape")
+                row["scale_lower"], row["scale_upper"] = mode.fit.bounds("scale")
             if mode.lr_bounds is not None:
                 row["shape_lr_lower"], row["shape_lr_upper"] = mode.lr_bounds.shape
                 row["scale_lr_lower"], row["scale_lr_upper"] = mode.lr_bounds.scale

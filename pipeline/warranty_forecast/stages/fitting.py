@@ -9,7 +9,8 @@ Turns the fit_returns / fit_suspensions tables into `LifeData` (returns interval
    fit, and a status that says why (never a crash, never a silent garbage fit);
 2. Wald and likelihood-ratio bounds for shape, scale, B1, B10 and F at the warranty end;
 3. a goodness-of-fit test of observed against expected returns by month in service;
-4. a lognormal fitted to the same data, with both AICs, as a check on the Weibull family.
+4. a lognormal fitted to the same data, with both AICs and its own likelihood-ratio bounds (mu, sigma,
+   B10), as a check on the Weibull family.
 """
 
 from __future__ import annotations
@@ -24,16 +25,13 @@ import pandas as pd
 from warranty_forecast.config import LifeModelSettings
 from warranty_forecast.errors import FitError
 from warranty_forecast.lifecore.goodness_of_fit import GoodnessOfFit, goodness_of_fit
-from warranty_forecast.lifecore.life_model import (
-    InsufficientDataError,
-    LifeData,
-    LikelihoodRatioBounds,
-    UnidentifiableError,
-    WeibullFit,
-    WeibullFitter,
-    likelihood_ratio_bounds,
-)
-from warranty_forecast.lifecore.lognormal_model import FamilyComparison, LognormalFit, LognormalFitter, compare_families
+from warranty_forecast.lifecore.comparison import FamilyComparison, compare_families
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.errors import InsufficientDataError, UnidentifiableError
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.profile import LikelihoodRatioBounds, likelihood_ratio_bounds
+from warranty_forecast.lifecore.result import FitResult
+from warranty_forecast.lifecore.families.weibull import rate_from_scale
 
 FITTED = "fitted"
 FIXED_SHAPE = "fixed_shape"
@@ -101,6 +99,13 @@ LIFE_MODEL_COLUMNS = (
     "delta_aic_weibull_minus_lognormal",
     "prefers_lognormal",
     "family_message",
+    "lognormal_mu_lr_lower",
+    "lognormal_mu_lr_upper",
+    "lognormal_sigma_lr_lower",
+    "lognormal_sigma_lr_upper",
+    "lognormal_b10",
+    "lognormal_b10_lr_lower",
+    "lognormal_b10_lr_upper",
 )
 
 
@@ -110,7 +115,7 @@ class WeibullOutcome:
 
     status: str
     message: str
-    fit: WeibullFit | None
+    fit: FitResult | None
     lr_bounds: LikelihoodRatioBounds | None = None
 
 
@@ -123,11 +128,12 @@ class ProductFit:
     message: str
     data: LifeData
     warranty_months: int
-    fit: WeibullFit | None
+    fit: FitResult | None
     lr_bounds: LikelihoodRatioBounds | None
     goodness: GoodnessOfFit | None
-    lognormal: LognormalFit | None
+    lognormal: FitResult | None
     comparison: FamilyComparison | None
+    lognormal_lr_bounds: LikelihoodRatioBounds | None = None
 
 
 def life_data_by_product(fit_returns: pd.DataFrame, fit_suspensions: pd.DataFrame) -> dict[str, LifeData]:
@@ -165,7 +171,7 @@ def fit_weibull(
     likelihood stays within the interval's threshold out to 0 or infinity): such estimates are never
     published as a two-parameter fit.
     """
-    fitter = WeibullFitter(confidence_level=settings.confidence_level, min_returns=settings.min_returns)
+    fitter = Fitter("weibull", confidence_level=settings.confidence_level, min_returns=settings.min_returns)
     try:
         fit = fitter.fit(data)
     except InsufficientDataError as error:
@@ -187,7 +193,7 @@ def fit_weibull(
     if fixed_shape is None:
         return WeibullOutcome(status, f"{reason}; no fixed shape configured (life_model.fixed_shape)", None)
     try:
-        fit = fitter.fit_fixed_shape(data, fixed_shape)
+        fit = fitter.fit(data, fixed={"shape": fixed_shape})
     except FitError as error:
         return WeibullOutcome(status, f"{reason}; fixed-shape fit also failed: {error}", None)
     lr_bounds, note = _lr_bounds(fit, data, settings, b_life_fractions, cdf_ages)
@@ -196,7 +202,7 @@ def fit_weibull(
 
 
 def _lr_bounds(
-    fit: WeibullFit,
+    fit: FitResult,
     data: LifeData,
     settings: LifeModelSettings,
     b_life_fractions: tuple[float, ...],
@@ -204,7 +210,7 @@ def _lr_bounds(
 ) -> tuple[LikelihoodRatioBounds | None, str]:
     try:
         bounds = likelihood_ratio_bounds(
-            fit, data, b_life_fractions=b_life_fractions, cdf_ages=cdf_ages, confidence_level=settings.confidence_level
+            fit, b_life_fractions=b_life_fractions, cdf_ages=cdf_ages, confidence_level=settings.confidence_level
         )
     except FitError as error:
         return None, f"likelihood-ratio bounds failed: {error}"
@@ -223,26 +229,30 @@ def fit_products(
         outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), cdf_ages=(float(warranty),))
         message = outcome.message
         goodness = _goodness(data, outcome.fit) if outcome.fit is not None else None
-        lognormal = comparison = None
+        lognormal = comparison = lognormal_lr = None
         try:
-            lognormal = LognormalFitter(
-                confidence_level=settings.confidence_level, min_returns=settings.min_returns
+            lognormal = Fitter(
+                "lognormal", confidence_level=settings.confidence_level, min_returns=settings.min_returns
             ).fit(data)
         except FitError as error:
             if outcome.fit is not None:
                 message = _join(message, f"lognormal alternative not fitted: {error}")
-        if lognormal is not None and outcome.fit is not None and not outcome.fit.shape_fixed:
+        if lognormal is not None:
+            lognormal_lr, note = _lr_bounds(lognormal, data, settings, (0.10,), ())
+            if outcome.fit is not None and note:
+                message = _join(message, f"lognormal {note}")
+        if lognormal is not None and outcome.fit is not None and not outcome.fit.fixed:
             comparison = compare_families(outcome.fit.log_likelihood, lognormal.log_likelihood, settings.aic_threshold)
         fits[product] = ProductFit(
             product, outcome.status, message, data, warranty, outcome.fit, outcome.lr_bounds, goodness, lognormal,
-            comparison,
+            comparison, lognormal_lr,
         )
     return fits
 
 
-def _goodness(data: LifeData, fit: WeibullFit) -> GoodnessOfFit | None:
+def _goodness(data: LifeData, fit: FitResult) -> GoodnessOfFit | None:
     try:
-        return goodness_of_fit(data, fit.log_survival, n_parameters=1 if fit.shape_fixed else 2)
+        return goodness_of_fit(data, fit.log_survival, n_parameters=fit.n_parameters)
     except ValueError:
         return None
 
@@ -283,12 +293,12 @@ def _life_model_row(outcome: ProductFit, units: float) -> dict[str, object]:
     fit = outcome.fit
     if fit is not None:
         warranty = float(outcome.warranty_months)
-        cdf_lower, cdf_upper = fit.cdf_bounds(np.array([warranty]))
+        cdf_lower, cdf_upper = fit.bounds("cdf", t=np.array([warranty]))
         row.update(
-            is_shape_fixed=bool(fit.shape_fixed),
+            is_shape_fixed="shape" in fit.fixed,
             shape=fit.shape,
             scale=fit.scale,
-            rate=fit.rate,
+            rate=rate_from_scale(fit.shape, fit.scale),
             b1=float(fit.b_life(0.01)),
             b10=fit.b10,
             fraction_failed_at_warranty_end=float(fit.cdf(np.array([warranty]))[0]),
@@ -297,17 +307,17 @@ def _life_model_row(outcome: ProductFit, units: float) -> dict[str, object]:
             mean_life=fit.mean,
             variance_life=fit.variance,
             log_likelihood=fit.log_likelihood,
-            aic=2.0 * (1 if fit.shape_fixed else 2) - 2.0 * fit.log_likelihood,
+            aic=fit.aic,
             converged=bool(fit.converged),
             iterations=int(fit.iterations),
             gradient_norm=fit.gradient_norm,
             confidence_level=fit.confidence_level,
             bound_method="wald-log and likelihood-ratio",
         )
-        row["shape_lower"], row["shape_upper"] = fit.shape_bounds()
-        row["scale_lower"], row["scale_upper"] = fit.scale_bounds()
-        row["b1_lower"], row["b1_upper"] = fit.b_life_bounds(0.01)
-        row["b10_lower"], row["b10_upper"] = fit.b_life_bounds(0.10)
+        row["shape_lower"], row["shape_upper"] = fit.bounds("shape")
+        row["scale_lower"], row["scale_upper"] = fit.bounds("scale")
+        row["b1_lower"], row["b1_upper"] = fit.bounds("b_life", p=0.01)
+        row["b10_lower"], row["b10_upper"] = fit.bounds("b_life", p=0.10)
     lr = outcome.lr_bounds
     if lr is not None:
         row["shape_lr_lower"], row["shape_lr_upper"] = lr.shape
@@ -335,7 +345,13 @@ def _life_model_row(outcome: ProductFit, units: float) -> dict[str, object]:
             lognormal_sigma=outcome.lognormal.sigma,
             lognormal_log_likelihood=outcome.lognormal.log_likelihood,
             lognormal_aic=outcome.lognormal.aic,
+            lognormal_b10=outcome.lognormal.b10,
         )
+    lognormal_lr = outcome.lognormal_lr_bounds
+    if lognormal_lr is not None:
+        row["lognormal_mu_lr_lower"], row["lognormal_mu_lr_upper"] = lognormal_lr.mu
+        row["lognormal_sigma_lr_lower"], row["lognormal_sigma_lr_upper"] = lognormal_lr.sigma
+        row["lognormal_b10_lr_lower"], row["lognormal_b10_lr_upper"] = lognormal_lr.b_life[0.10]
     if outcome.comparison is not None:
         row.update(
             delta_aic_weibull_minus_lognormal=outcome.comparison.delta_aic,

@@ -15,7 +15,7 @@ For each number of units N:
    (right-censored) at its observed age.
 2. Aggregate the per-unit arrays into grouped cells (timed separately): returns by month in service,
    suspensions by distinct observed age (one cell per day of age, plus one at the warranty end).
-3. Time `WeibullFitter().fit(LifeData.from_monthly_returns(...))` on the cells: median of several
+3. Time `Fitter("weibull").fit(LifeData.from_monthly_returns(...))` on the cells: median of several
    repeats (after one warm-up run), in milliseconds.
 4. Time one per-unit fit (one row per unit) with `scipy.stats.weibull_min.fit` on
    `scipy.stats.CensoredData(interval=..., right=...)`, floc=0.
@@ -59,7 +59,9 @@ import numpy as np
 import numpy.typing as npt
 from scipy import optimize, stats
 
-from warranty_forecast.lifecore.life_model import LifeData, WeibullFit, WeibullFitter
+from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.result import FitResult
 
 DAYS_PER_MONTH = 365.25 / 12
 DEFAULT_SIZES = (10_000, 100_000, 1_000_000)
@@ -156,7 +158,7 @@ class SizeResult:
     cells: int
     aggregation_ms: float
     grouped_fit_ms: float
-    grouped: WeibullFit
+    grouped: FitResult
     scipy: Estimate | str  # an estimate, or why there is none
     lifelines: Estimate | str
 
@@ -218,13 +220,13 @@ def per_unit_rows(units: Units, sim: Simulation) -> PerUnit:
 # ---------------------------------------------------------------------------------------------
 
 
-def time_grouped_fit(cells: Cells, repeats: int) -> tuple[float, WeibullFit]:
-    """Median wall time in ms of LifeData construction plus WeibullFitter().fit, after a warm-up."""
-    fit = WeibullFitter().fit(cells.life_data())
+def time_grouped_fit(cells: Cells, repeats: int) -> tuple[float, FitResult]:
+    """Median wall time in ms of LifeData construction plus Fitter("weibull").fit, after a warm-up."""
+    fit = Fitter("weibull").fit(cells.life_data())
     times = []
     for _ in range(repeats):
         start = time.perf_counter()
-        fit = WeibullFitter().fit(cells.life_data())
+        fit = Fitter("weibull").fit(cells.life_data())
         times.append(time.perf_counter() - start)
     return 1e3 * statistics.median(times), fit
 
@@ -352,7 +354,7 @@ def run_size(
     )
 
 
-def relative_difference(grouped: WeibullFit, other: Estimate) -> float:
+def relative_difference(grouped: FitResult, other: Estimate) -> float:
     """Largest relative difference in (shape, scale) from the grouped estimates."""
     return max(abs(other.shape - grouped.shape) / grouped.shape, abs(other.scale - grouped.scale) / grouped.scale)
 
