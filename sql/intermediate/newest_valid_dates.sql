@@ -1,5 +1,6 @@
 -- newest_valid_dates: how far each extract reaches, to default the as-of date and judge its freshness.
--- Grain: one row. Parameters: none (runs before the as-of date is known).
+-- Grain: one row.
+-- Parameters: none (runs before the as-of date is known).
 -- Reads: stg_shipments, stg_claims.
 -- newest_claim_date / newest_ship_date: the latest date among the rows that passed every staging check
 -- (so never after the run date); NULL when an extract has no valid row.

@@ -1,7 +1,9 @@
 -- age_in_service: the age-in-service matrix (returns by build month and months in service, with the
 -- units at risk in each cell), as a long table.
 -- Grain: one row per product x build_month x months_in_service with units at risk or returns.
--- Parameters: none. Reads: fit_suspensions, fit_returns.
+-- Parameters: none.
+-- Reads: suspensions_shared_by_start_date, returns_counted_by_group_and_month.
+-- Sort: product, build_month, months_in_service
 -- units_at_risk: units observed into month k (observed age above k-1) less their share of the
 -- returns their group had before month k. units_withdrawn: survivors whose observation ended inside
 -- month k (age at the as-of date between k-1 and k). return_rate = returns / units_at_risk.
@@ -9,7 +11,7 @@ with suspension_rows as (
     select
         product, build_month, sale_month, warranty_months, warranty_start_date, observed_age_months, units,
         suspensions
-    from fit_suspensions
+    from suspensions_shared_by_start_date
 ),
 
 group_units as (
@@ -25,7 +27,7 @@ months_in_service as (
 
 group_returns_by_month as (
     select product, build_month, sale_month, warranty_months, months_in_service, returns, return_cost
-    from fit_returns
+    from returns_counted_by_group_and_month
 ),
 
 group_returns_before_month as (

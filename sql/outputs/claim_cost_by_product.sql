@@ -1,12 +1,13 @@
 -- claim_cost_by_product: the observed cost of a counted return, per product.
 -- Grain: one row per product with at least one counted in-coverage return.
 -- Parameters: $as_of_date, $cost_window_months.
--- Reads: claims_matched_to_units.
+-- Reads: claims_assigned_to_sale_month_groups.
+-- Sort: product
 -- window_mean_cost: mean cost (currency units) of returns filed in the trailing window ending at the
 -- as-of date; all_time_mean_cost: over every return filed by the as-of date.
 with counted_returns as (
     select product, claim_date, cost
-    from claims_matched_to_units
+    from claims_assigned_to_sale_month_groups
     where is_return
 ),
 

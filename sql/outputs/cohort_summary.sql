@@ -1,6 +1,8 @@
 -- cohort_summary: what is known to date about each build month: units, returns and their cost.
 -- Grain: one row per product x build_month with units shipped by the as-of date.
--- Parameters: none. Reads: units_aged_to_as_of, claims_matched_to_units.
+-- Parameters: none.
+-- Reads: units_aged_to_as_of, claims_assigned_to_sale_month_groups.
+-- Sort: product, build_month
 -- returns_to_date / cost_to_date: counted in-coverage returns and their cost (currency units).
 with units_per_cohort as (
     select
@@ -23,7 +25,7 @@ claims_per_cohort as (
         coalesce(sum(cost) filter (where is_return), 0)::double as cost_to_date,
         count(*) filter (where is_counted_status and not is_in_coverage) as claims_out_of_coverage,
         count(*) filter (where not is_counted_status) as claims_not_counted
-    from claims_matched_to_units
+    from claims_assigned_to_sale_month_groups
     where not is_quarantined
     group by product, build_month
 )

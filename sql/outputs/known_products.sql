@@ -2,7 +2,9 @@
 -- configuration are checked (a key naming another product is a typo).
 -- Grain: one row per product with at least one valid shipments row, whatever its ship date (a product
 -- shipped only after the as-of date is still known).
--- Parameters: none. Reads: stg_shipments.
+-- Parameters: none.
+-- Reads: stg_shipments.
+-- Sort: product
 with valid_shipments as (
     select product
     from stg_shipments

@@ -1,35 +1,44 @@
 -- reconciliation: what became of every row read from each extract.
 -- Grain: one row per extract (shipments, claims).
--- Parameters: $shipments_file, $claims_file (the absolute paths, as in quarantine), $as_of_date.
--- Reads: raw_*, raw_*_malformed, stg_shipments, stg_claims, units_aged_to_as_of, claims_matched_to_units.
--- rows_read = rows_used + rows_quarantined + rows_after_as_of must hold; Python checks it.
-with shipment_counts as (
-    select
-        'shipments' as extract,
-        $shipments_file as source_file,
-        (select count(*) from raw_shipments) + (select count(*) from raw_shipments_malformed) as rows_read,
-        (select count(*) from units_aged_to_as_of) as rows_used,
-        (select count(*) from stg_shipments where is_quarantined)
-            + (select count(*) from raw_shipments_malformed) as rows_quarantined,
-        (select count(*) from stg_shipments where not is_quarantined and ship_date > $as_of_date)
-            as rows_after_as_of
+-- Parameters: $as_of_date.
+-- Reads: extracts_read, units_aged_to_as_of, claims_assigned_to_sale_month_groups,
+--   rows_quarantined_with_reason, stg_shipments, stg_claims.
+-- Sort: extract
+-- rows_read = rows_used + rows_quarantined + rows_after_as_of must hold; Python checks it. Each count
+-- comes from another table, so a row lost or counted twice between the layers is seen.
+with rows_used as (
+    select 'shipments' as extract, count(*) as rows_used
+    from units_aged_to_as_of
+    union all
+    select 'claims' as extract, count(*) as rows_used
+    from claims_assigned_to_sale_month_groups
+    where not is_quarantined
 ),
 
-claim_counts as (
-    select
-        'claims' as extract,
-        $claims_file as source_file,
-        (select count(*) from raw_claims) + (select count(*) from raw_claims_malformed) as rows_read,
-        (select count(*) from claims_matched_to_units where not is_quarantined) as rows_used,
-        (select count(*) from stg_claims where is_quarantined)
-            + (select count(*) from raw_claims_malformed)
-            + (select count(*) from claims_matched_to_units where is_quarantined) as rows_quarantined,
-        (select count(*) from stg_claims where not is_quarantined and claim_date > $as_of_date)
-            as rows_after_as_of
+rows_quarantined as (
+    select extract, count(*) as rows_quarantined
+    from rows_quarantined_with_reason
+    group by extract
+),
+
+rows_after_as_of as (
+    select 'shipments' as extract, count(*) as rows_after_as_of
+    from stg_shipments
+    where not is_quarantined and ship_date > $as_of_date
+    union all
+    select 'claims' as extract, count(*) as rows_after_as_of
+    from stg_claims
+    where not is_quarantined and claim_date > $as_of_date
 )
 
-select extract, source_file, rows_read, rows_used, rows_quarantined, rows_after_as_of
-from shipment_counts
-union all
-select extract, source_file, rows_read, rows_used, rows_quarantined, rows_after_as_of
-from claim_counts
+select
+    extracts_read.extract,
+    extracts_read.source_file,
+    extracts_read.rows_read,
+    rows_used.rows_used,
+    coalesce(rows_quarantined.rows_quarantined, 0) as rows_quarantined,
+    rows_after_as_of.rows_after_as_of
+from extracts_read
+join rows_used on extracts_read.extract = rows_used.extract
+join rows_after_as_of on extracts_read.extract = rows_after_as_of.extract
+left join rows_quarantined on extracts_read.extract = rows_quarantined.extract

@@ -1,6 +1,8 @@
 -- run_facts: counts that explain how the data was read, for the manifest and the run report.
--- Grain: one row per fact. Parameters: none.
--- Reads: units_aged_to_as_of, claims_matched_to_units, sale_month_groups, fit_returns.
+-- Grain: one row per fact.
+-- Parameters: none.
+-- Reads: units_aged_to_as_of, claims_assigned_to_sale_month_groups, sale_month_group_survivors.
+-- Sort: fact
 with unit_facts as (
     select
         sum(units) as units_total,
@@ -21,21 +23,14 @@ claim_facts as (
         count(*) filter (where is_sale_date_imputed) as claims_sale_date_imputed,
         count(*) filter (where is_group_reassigned) as claims_assigned_to_nearest_sale_month,
         count(*) filter (where is_serial_unknown) as claims_with_unknown_serial
-    from claims_matched_to_units
+    from claims_assigned_to_sale_month_groups
     where not is_quarantined
-),
-
-returns_per_group as (
-    select product, build_month, sale_month, warranty_months, sum(returns) as returns
-    from fit_returns
-    group by product, build_month, sale_month, warranty_months
 ),
 
 overfull_groups as (
     select count(*) as groups_with_more_returns_than_units
-    from sale_month_groups
-    join returns_per_group using (product, build_month, sale_month, warranty_months)
-    where returns_per_group.returns > sale_month_groups.units
+    from sale_month_group_survivors
+    where group_returns > group_units
 )
 
 unpivot (

@@ -1,7 +1,7 @@
 -- csv_extract: a CSV extract's contract columns read as text, exactly as the file holds them.
 -- Grain: one row per data line that DuckDB could split into the header's columns.
 -- Parameters: $path (the file); $columns (every column of the file in order, name -> 'VARCHAR', named by
---   shaping.py from the header it parsed itself: a contract column by its name, any other column
+--   extracts.py from the header it parsed itself: a contract column by its name, any other column
 --   ignored_column_<position>, so that no name in the file can clash with a name DuckDB adds);
 --   $contract_columns (the contract columns the header holds); $rejects_table and $rejects_scan (DuckDB
 --   writes the lines it could not split there; csv_malformed_lines.sql reads them).

@@ -1,8 +1,10 @@
 -- stg_claims: the claims extract typed and checked, row by row (checks that need the shipments are in
--- intermediate/claims_matched_to_units.sql).
+-- intermediate/claims_checked_against_shipments.sql).
 -- Grain: one row per data row of the claims file (one claim).
 -- Parameters: $run_date (no date may be later).
--- Reads: raw_claims (every contract column as text, plus source_row_number). Uses macros/validation.
+-- Reads: raw_claims.
+-- raw_claims holds every contract column as text, plus source_row_number; the checks are the macros
+-- of macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
 -- status is case-insensitive and defaults to approved when empty.

@@ -2,7 +2,9 @@
 -- Grain: one row per data row of the shipments file (a unit, or a lot of identical units).
 -- Parameters: $run_date (no date may be later), $max_units_per_row, $max_warranty_months (the limits
 --   from the configuration; the as-of date and defaults apply in intermediate models).
--- Reads: raw_shipments (every contract column as text, plus source_row_number). Uses macros/validation.
+-- Reads: raw_shipments.
+-- raw_shipments holds every contract column as text, plus source_row_number; the checks are the macros
+-- of macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
 -- Numbers are parsed as double (text of any size gives a number, inf or NaN, never an error) and cast to

@@ -1,22 +1,24 @@
-"""The DuckDB stage: load the two extracts, run the `sql/` models in layer order, return aggregates.
+"""The DuckDB stage: load the two extracts, run the `sql/` models, check what they found, return aggregates.
 
-This is the only module that talks to DuckDB. Every row-level operation (typing, validation,
-quarantine, ageing, matching claims to units, grouping) happens in the SQL models under `sql/`;
-Python receives aggregated tables only.
+This is the only stage that talks to DuckDB (through `extracts` and `sql_runner`). Every row-level
+operation (typing, validation, quarantine, ageing, matching claims to units, grouping) happens in the SQL
+models under `sql/`; Python receives aggregated tables only.
 
-Layers, in the order they run (each model is one file; its table is named after the file):
+Layers (each model is one file; its table is named after the file):
   macros/        DuckDB macros the models share (run first, as statements)
-  raw/           the extracts as text with their 1-based data row numbers (CSV or Parquet)
+  raw/           the extracts as text with their 1-based data row numbers (`extracts.load_extract`)
   staging/       typed, checked rows; the first failed check per row
-  intermediate/  units on their warranty clock, sale-month groups, claims matched to units
-  outputs/       fit input, the age-in-service matrix, summaries, quarantine, reconciliation
+  intermediate/  units on their warranty clock, claims checked, clocked and grouped, the cells of the fit
+  outputs/       the tables Python reads: one `ShapedData` field each (run_facts and known_products as a
+                 dict and a tuple); they read only staging and intermediate tables
+The order of staging, intermediate and outputs comes from each model's `-- Reads:` header
+(`sql_runner.plan_models`); `newest_valid_dates` and what it reads run first, as the as-of date comes
+from it.
 """
 
 from __future__ import annotations
 
-import csv
 import datetime as dt
-import io
 import logging
 import os
 import re
@@ -24,70 +26,29 @@ import shutil
 import tempfile
 import time
 from dataclasses import dataclass
-from importlib import resources
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any
 
 import duckdb
 import pandas as pd
 
 from warranty_forecast.config import RunConfig
-from warranty_forecast.errors import ConfigError, ContractError, InputUnreadableError, QuarantineCeilingError
+from warranty_forecast.errors import ConfigError, ContractError, QuarantineCeilingError
+from warranty_forecast.stages.extracts import CLAIMS, SHIPMENTS, load_extract, raw_tables
+from warranty_forecast.stages.sql_runner import (
+    MACRO_FILES,
+    plan_models,
+    read_row,
+    read_table,
+    run_models,
+    run_statements,
+    upstream_of,
+)
 
 log = logging.getLogger(__name__)
 
-# The SQL models ship inside the package (`warranty_forecast.sql`, mapped from the top-level sql/ folder
-# that people edit); an editable install reads that folder itself.
-SQL_PACKAGE = "warranty_forecast.sql"
+NEWEST_DATES_MODEL = "newest_valid_dates"  # runs (with what it reads) before the as-of date is chosen
 
-
-@dataclass(frozen=True)
-class ExtractContract:
-    """Column names an extract must (required) or may (optional) carry."""
-
-    name: str
-    required: tuple[str, ...]
-    optional: tuple[str, ...]
-
-    @property
-    def columns(self) -> tuple[str, ...]:
-        return self.required + self.optional
-
-
-SHIPMENTS = ExtractContract(
-    name="shipments",
-    required=("product", "build_month", "ship_date"),
-    optional=("sale_date", "units", "warranty_months", "serial"),
-)
-CLAIMS = ExtractContract(
-    name="claims",
-    required=("claim_id", "product", "build_month", "failure_date", "claim_date", "cost"),
-    optional=("sale_date", "status", "failure_code", "serial"),
-)
-
-MACRO_FILES: tuple[str, ...] = ("macros/validation",)
-STAGING_MODELS: tuple[str, ...] = ("staging/stg_shipments", "staging/stg_claims")
-NEWEST_DATES_MODEL = "intermediate/newest_valid_dates"  # runs before the as-of date is chosen
-INTERMEDIATE_MODELS: tuple[str, ...] = (
-    "intermediate/units_aged_to_as_of",
-    "intermediate/sale_month_groups",
-    "intermediate/claims_matched_to_units",
-)
-OUTPUT_MODELS: tuple[str, ...] = (
-    "outputs/fit_returns",
-    "outputs/returns_by_failure_mode",
-    "outputs/fit_suspensions",
-    "outputs/age_in_service",
-    "outputs/cohort_summary",
-    "outputs/claim_cost_by_product",
-    "outputs/quarantine",
-    "outputs/reconciliation",
-    "outputs/run_facts",
-    "outputs/known_products",
-)
-
-_PARAMETER = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
-_SUPPORTED_SUFFIXES = (".csv", ".parquet")
 
 
 @dataclass(frozen=True)
@@ -179,236 +140,6 @@ class ShapedData:
     seconds_by_layer: dict[str, float]
 
 
-def read_model_sql(model: str) -> str:
-    """The text of one SQL model, e.g. ``read_model_sql("staging/stg_claims")``."""
-    return resources.files(SQL_PACKAGE).joinpath(f"{model}.sql").read_text(encoding="utf-8")
-
-
-def run_model(
-    con: duckdb.DuckDBPyConnection, model: str, parameters: Mapping[str, Any], table: str | None = None
-) -> None:
-    """Materialise one SQL model as a table named after its file, binding only the parameters it uses."""
-    sql = read_model_sql(model)
-    used = set(_PARAMETER.findall(_without_comments(sql)))
-    missing = used - set(parameters)
-    if missing:
-        raise KeyError(f"SQL model {model} needs parameters {sorted(missing)}")
-    name = table or model.rsplit("/", 1)[-1]
-    con.execute(f"create or replace table {name} as {sql}", {key: parameters[key] for key in used})
-
-
-def _without_comments(sql: str) -> str:
-    return "\n".join(line.split("--", 1)[0] for line in sql.splitlines())
-
-
-# ---------------------------------------------------------------------------------------------- headers
-
-_HEADER_BYTES = 1 << 20  # a header line longer than this is not a header
-_BINARY_PROBE_BYTES = 8000
-_DELIMITER_LOOKALIKES = (";", "\t", "|")
-
-
-def read_csv_header(path: Path, contract: ExtractContract) -> list[str]:
-    """The column names of a CSV extract's header line, parsed with Python's csv module.
-
-    A byte-order mark is dropped; CRLF and quoted line breaks are read as CSV reads them. Raises
-    InputUnreadableError for a file that cannot be opened or holds binary data (a NUL byte in its first
-    8,000 bytes), ContractError for an empty file, a header that is not UTF-8 or cannot be split.
-    """
-    where = f"{contract.name} extract {path}"
-    try:
-        with open(path, "rb") as handle:
-            head = handle.read(_HEADER_BYTES)
-            is_whole_file = not handle.read(1)
-    except OSError as error:
-        raise InputUnreadableError(f"{where} cannot be read: {error.strerror or error}") from None
-    if head.startswith(b"\xef\xbb\xbf"):
-        head = head[3:]
-    if b"\x00" in head[:_BINARY_PROBE_BYTES]:  # the test git uses to tell binary files from text
-        raise InputUnreadableError(
-            f"{where} holds binary data (a NUL byte in its first {_BINARY_PROBE_BYTES:,} bytes): it is not a CSV"
-            " text file"
-        )
-    if not head.strip(b"\r\n"):
-        raise ContractError(f"{where} has no header line: the file is empty (a CSV extract needs its header)")
-    text = head.decode("utf-8", errors="surrogateescape")
-    buffer = io.StringIO(text, newline="")
-    try:
-        names = next(csv.reader(buffer, strict=True), [])
-    except csv.Error as error:
-        reason = "an unterminated quote" if "unexpected end of data" in str(error) else str(error)
-        raise ContractError(f"{where}: the header line (line 1) cannot be split into columns: {reason}") from None
-    if not is_whole_file and buffer.tell() >= len(text):
-        raise ContractError(
-            f"{where}: no line end in the first {_HEADER_BYTES:,} bytes, so no header line: is it a CSV file?"
-        )
-    header = "".join(names)
-    if any("\udc80" <= character <= "\udcff" for character in header):
-        position = next(i for i, c in enumerate(header) if "\udc80" <= c <= "\udcff")
-        raise ContractError(
-            f"{where}: the header line is not UTF-8 text (byte 0x{ord(header[position]) - 0xDC00:02x});"
-            " save the extract as UTF-8 (is it a CSV file?)"
-        )
-    if not names or names == [""]:
-        raise ContractError(f"{where} has no header line: its first line is empty")
-    return names
-
-
-def read_parquet_header(con: duckdb.DuckDBPyConnection, path: Path, contract: ExtractContract) -> list[str]:
-    """The top-level column names of a Parquet extract, as its schema holds them (duplicates included)."""
-    try:
-        schema = con.execute("select name, num_children from parquet_schema($path)", {"path": str(path)}).fetchall()
-    except duckdb.Error as error:
-        raise InputUnreadableError(
-            f"{contract.name} extract {path} is not a readable Parquet file (truncated, damaged or another"
-            f" format): {_first_line(error)}"
-        ) from None
-    names: list[str] = []
-    position = 1
-
-    def skip_element(index: int) -> int:  # the index after an element and its nested children
-        children = schema[index][1] or 0
-        index += 1
-        for _ in range(children):
-            index = skip_element(index)
-        return index
-
-    root_children = (schema[0][1] or 0) if schema else 0
-    for _ in range(root_children):
-        names.append(schema[position][0])
-        position = skip_element(position)
-    return names
-
-
-@dataclass(frozen=True)
-class HeaderCheck:
-    """What an extract's header holds: the contract columns present and the columns ignored."""
-
-    contract_columns: tuple[str, ...]
-    ignored: tuple[str, ...]
-    duckdb_names: tuple[str, ...]  # one per file column: its contract name, else ignored_column_<position>
-
-
-def check_header(names: Sequence[str], path: Path, contract: ExtractContract) -> HeaderCheck:
-    """Hold a header to the contract: exact, unique names; every required column.
-
-    Raises ContractError naming the file and the column for a repeated name, a name that is a contract
-    column written with other case or spaces (`" product"`, `"Product"`), or a missing required column
-    (with a hint when the header looks split by another delimiter). Other names are ignored, whatever
-    they are.
-    """
-    where = f"{contract.name} extract {path}"
-    first_position: dict[str, int] = {}
-    for position, name in enumerate(names, start=1):
-        if name and name in first_position:
-            raise ContractError(
-                f"{where}: column {name!r} appears twice in the header (columns {first_position[name]} and"
-                f" {position}); header names must be unique"
-            )
-        first_position.setdefault(name, position)
-    for name in names:
-        if name in contract.columns:
-            continue
-        for column in contract.columns:
-            if "".join(name.split()).lower() == column:
-                kind = "required" if column in contract.required else "optional"
-                raise ContractError(
-                    f"{where}: {kind} column {column!r} is written {name!r} in the header; header names must"
-                    " match the contract exactly (lower case, no spaces)"
-                )
-    missing = [column for column in contract.required if column not in first_position]
-    if missing:
-        hint = ""
-        if len(names) == 1 and any(mark in names[0] for mark in _DELIMITER_LOOKALIKES):
-            hint = "; the header holds one column only: the delimiter must be a comma"
-        raise ContractError(
-            f"{where}: the header does not hold the required column(s) {missing}; it holds {list(names)}{hint}"
-        )
-    return HeaderCheck(
-        contract_columns=tuple(column for column in contract.columns if column in first_position),
-        ignored=tuple(
-            name if name else f"(unnamed column {position})"
-            for position, name in enumerate(names, start=1)
-            if name not in contract.columns
-        ),
-        duckdb_names=tuple(
-            name if name in contract.columns else f"ignored_column_{position}"
-            for position, name in enumerate(names, start=1)
-        ),
-    )
-
-
-def load_extract(con: duckdb.DuckDBPyConnection, path: Path, contract: ExtractContract) -> list[str]:
-    """Load one extract into ``raw_<name>`` and ``raw_<name>_malformed``; return its ignored columns.
-
-    The header is read and checked first (`read_csv_header` / `read_parquet_header`, `check_header`); the
-    file is then read with those names, every column as text, with no dialect sniffing. Raises
-    InputUnreadableError for a missing/unreadable file or an unsupported type, and ContractError naming
-    the file (and the column or line) when the file breaks the contract as a whole.
-    """
-    suffix = path.suffix.lower()
-    if not path.is_file():
-        raise InputUnreadableError(f"{contract.name} extract {path} does not exist or is not a file")
-    if suffix not in _SUPPORTED_SUFFIXES:
-        raise InputUnreadableError(
-            f"{contract.name} extract {path}: unsupported file type {suffix!r}; use .csv or .parquet"
-        )
-    raw = f"raw_{contract.name}"
-    malformed = f"{raw}_malformed"
-    if suffix == ".csv":
-        header = check_header(read_csv_header(path, contract), path, contract)
-        accepted = f"{raw}_accepted"
-        rejects = f"{raw}_rejects"
-        try:
-            run_model(
-                con,
-                "raw/csv_extract",
-                {
-                    "path": str(path),
-                    "columns": {name: "VARCHAR" for name in header.duckdb_names},
-                    "contract_columns": list(header.contract_columns),
-                    "rejects_table": rejects,
-                    "rejects_scan": f"{rejects}_scan",
-                },
-                table=accepted,
-            )
-        except duckdb.Error as error:
-            line = re.search(r"[Ll]ine:? (\d+)", str(error))
-            at = f" at line {line.group(1)}" if line else ""
-            raise ContractError(
-                f"{contract.name} extract {path} cannot be read as CSV{at}: {_first_line(error)}"
-            ) from None
-        run_model(con, "raw/csv_malformed_lines", {"rejects_table": rejects}, table=malformed)
-        run_model(
-            con, "raw/csv_numbered_rows", {"accepted_table": accepted, "malformed_table": malformed}, table=raw
-        )
-    else:
-        header = check_header(read_parquet_header(con, path, contract), path, contract)
-        try:
-            run_model(
-                con, "raw/parquet_extract", {"path": str(path), "contract_columns": list(header.contract_columns)},
-                table=raw,
-            )
-        except duckdb.Error as error:
-            raise InputUnreadableError(
-                f"{contract.name} extract {path} cannot be read as Parquet: {_first_line(error)}"
-            ) from None
-        con.execute(
-            f"create or replace table {malformed} as select 0::bigint as source_row_number,"
-            " ''::varchar as problem_column, ''::varchar as problem_reason,"
-            " ''::varchar as problem_detail, ''::varchar as raw_values where false"
-        )
-    for column in contract.optional:
-        if column not in header.contract_columns:
-            con.execute(f"alter table {raw} add column {column} varchar")
-    return list(header.ignored)
-
-
-def _first_line(error: BaseException) -> str:
-    lines = str(error).strip().splitlines()
-    return lines[0] if lines else type(error).__name__
-
-
 # ------------------------------------------------------------------------------------- spill folders
 
 _SPILL_PREFIX = "warranty-forecast-duckdb-"
@@ -472,7 +203,7 @@ def shape_extracts(config: RunConfig) -> ShapedData:
 def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
     seconds: dict[str, float] = {}
     for macros in MACRO_FILES:
-        con.execute(read_model_sql(macros))
+        run_statements(con, macros)
     started = time.perf_counter()
     ignored = {
         "shipments": load_extract(con, config.shipments_path, SHIPMENTS),
@@ -480,36 +211,27 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
     }
     seconds["raw"] = time.perf_counter() - started
 
-    started = time.perf_counter()
-    staging_parameters = {
+    plan = plan_models(con, [table for contract in (SHIPMENTS, CLAIMS) for table in raw_tables(contract)])
+    parameters: dict[str, Any] = {
         "run_date": config.run_date,
         "max_units_per_row": config.shipments.max_units_per_row,
         "max_warranty_months": config.warranty.max_months,
     }
-    for model in STAGING_MODELS:
-        run_model(con, model, staging_parameters)
-    seconds["staging"] = time.perf_counter() - started
-
-    run_model(con, NEWEST_DATES_MODEL, {})
-    newest_claim_date, newest_ship_date = con.execute(
-        "select newest_claim_date, newest_ship_date from newest_valid_dates"
-    ).fetchone()
+    before_as_of = upstream_of(plan, NEWEST_DATES_MODEL)
+    run_models(con, before_as_of, parameters, seconds)
+    newest = read_row(con, NEWEST_DATES_MODEL)
+    newest_claim_date, newest_ship_date = newest["newest_claim_date"], newest["newest_ship_date"]
     as_of_date, as_of_source = choose_as_of(config.as_of_date, newest_claim_date, newest_ship_date, config.run_date)
-    parameters = {
+    parameters.update({
         "as_of_date": as_of_date,
         "default_warranty_months": config.warranty.default_months,
         "counted_statuses": list(config.claims.counted_statuses),
         "cost_window_months": config.reserve.cost_window_months,
         "shipments_file": os.path.abspath(config.shipments_path),
         "claims_file": os.path.abspath(config.claims_path),
-    }
-    for layer, models in (("intermediate", INTERMEDIATE_MODELS), ("outputs", OUTPUT_MODELS)):
-        started = time.perf_counter()
-        for model in models:
-            run_model(con, model, parameters)
-        seconds[layer] = time.perf_counter() - started
-
-    tables = {name: _table(con, name) for name in _OUTPUT_COLUMNS}
+    })
+    run_models(con, [model for model in plan if model not in before_as_of], parameters, seconds)
+    tables = {model.name: read_table(con, model) for model in plan if model.layer == "outputs"}
 
     reconciliation = tables["reconciliation"]
     check_reconciliation(reconciliation)
@@ -621,55 +343,3 @@ def check_reconciliation(reconciliation: pd.DataFrame) -> None:
                 f"(used {row.rows_used}, quarantined {row.rows_quarantined}, after as-of {row.rows_after_as_of})"
             )
 
-
-# The columns Python reads from each output table, in order (the SQL files own their meaning).
-_OUTPUT_COLUMNS: dict[str, tuple[str, ...]] = {
-    "fit_returns": (
-        "product", "build_month", "sale_month", "warranty_months", "months_in_service", "returns", "return_cost",
-    ),
-    "returns_by_failure_mode": ("product", "failure_mode", "months_in_service", "returns"),
-    "fit_suspensions": (
-        "product", "build_month", "sale_month", "warranty_months", "warranty_start_date",
-        "observed_age_months", "is_in_channel", "units", "suspensions",
-    ),
-    "age_in_service": (
-        "product", "build_month", "months_in_service", "units_at_risk", "returns", "return_cost",
-        "units_withdrawn", "return_rate",
-    ),
-    "cohort_summary": (
-        "product", "build_month", "units", "units_in_channel", "units_sale_date_imputed", "min_warranty_months",
-        "max_warranty_months", "returns_to_date", "cost_to_date", "claims_out_of_coverage", "claims_not_counted",
-    ),
-    "claim_cost_by_product": (
-        "product", "window_returns", "window_mean_cost", "all_time_returns", "all_time_mean_cost",
-    ),
-    "quarantine": ("extract", "source_file", "row_number", "column", "reason", "detail", "raw_values"),
-    "reconciliation": (
-        "extract", "source_file", "rows_read", "rows_used", "rows_quarantined", "rows_after_as_of",
-    ),
-    "run_facts": ("fact", "count"),
-    "known_products": ("product",),
-}
-
-_SORT_KEYS: dict[str, tuple[str, ...]] = {
-    "fit_returns": ("product", "build_month", "sale_month", "warranty_months", "months_in_service"),
-    "returns_by_failure_mode": ("product", "failure_mode", "months_in_service"),
-    "fit_suspensions": ("product", "build_month", "sale_month", "warranty_months", "warranty_start_date"),
-    "age_in_service": ("product", "build_month", "months_in_service"),
-    "cohort_summary": ("product", "build_month"),
-    "claim_cost_by_product": ("product",),
-    "quarantine": ("extract", "row_number"),
-    "reconciliation": ("extract",),
-    "run_facts": ("fact",),
-    "known_products": ("product",),
-}
-
-
-def _table(con: duckdb.DuckDBPyConnection, name: str) -> pd.DataFrame:
-    columns = ", ".join(f'"{c}"' for c in _OUTPUT_COLUMNS[name])
-    order = ", ".join(f'"{c}"' for c in _SORT_KEYS[name])
-    frame = con.execute(f"select {columns} from {name} order by {order}").df()
-    for column in frame.columns:
-        if pd.api.types.is_datetime64_any_dtype(frame[column]):
-            frame[column] = frame[column].dt.date
-    return frame

@@ -1,0 +1,101 @@
+-- claims_assigned_to_sale_month_groups: each claim on its warranty clock, assigned to the sale-month group
+-- the life model counts it in, with whether it counts as a return.
+-- Grain: one row per valid staged claim with claim_date on or before the as-of date (quarantined ones
+-- included, flagged is_quarantined).
+-- Parameters: $counted_statuses (list of statuses that count as returns).
+-- Reads: claims_on_warranty_clock, sale_month_groups.
+-- Group: the unit's group when joined on serial; else the product x build month group with the same
+-- sale month (most units first, then the shorter warranty), else the nearest sale month (earlier first),
+-- among groups with units in service. A claim with MIS beyond the group's warranty_months is out of
+-- coverage; a return is a claim that passed every check, has a counted status and is in coverage.
+with clocked_claims as (
+    select
+        source_row_number,
+        claim_id,
+        product,
+        build_month,
+        failure_date,
+        claim_date,
+        cost,
+        status,
+        failure_code,
+        serial,
+        is_unit_found,
+        unit_sale_month,
+        unit_warranty_months,
+        warranty_start_date,
+        is_sale_date_imputed,
+        claim_sale_month,
+        age_months,
+        months_in_service,
+        is_quarantined,
+        problem_column,
+        problem_reason,
+        problem_detail
+    from claims_on_warranty_clock
+),
+
+groups_in_service as (
+    select product, build_month, sale_month, warranty_months, units
+    from sale_month_groups
+    where units > units_in_channel
+),
+
+candidate_groups as (
+    select
+        claim.source_row_number,
+        sale_group.sale_month,
+        sale_group.warranty_months,
+        row_number() over (
+            partition by claim.source_row_number
+            order by
+                abs(date_diff('month', sale_group.sale_month, claim.claim_sale_month)),
+                sale_group.sale_month,
+                sale_group.units desc,
+                sale_group.warranty_months
+        ) as preference
+    from clocked_claims as claim
+    join groups_in_service as sale_group
+        on claim.product = sale_group.product and claim.build_month = sale_group.build_month
+    where not claim.is_quarantined and not claim.is_unit_found
+),
+
+assigned_claims as (
+    select
+        claim.*,
+        case when claim.is_unit_found then claim.unit_sale_month else candidate.sale_month end as sale_month,
+        case when claim.is_unit_found then claim.unit_warranty_months else candidate.warranty_months end
+            as warranty_months
+    from clocked_claims as claim
+    left join candidate_groups as candidate
+        on claim.source_row_number = candidate.source_row_number and candidate.preference = 1
+)
+
+select
+    source_row_number,
+    claim_id,
+    product,
+    build_month,
+    sale_month,
+    warranty_months,
+    warranty_start_date,
+    is_sale_date_imputed,
+    not is_quarantined and sale_month <> claim_sale_month as is_group_reassigned,
+    serial is not null and not is_unit_found as is_serial_unknown,
+    failure_date,
+    claim_date,
+    cost,
+    status,
+    failure_code,
+    serial,
+    age_months,
+    months_in_service,
+    list_contains($counted_statuses, status) as is_counted_status,
+    months_in_service <= warranty_months as is_in_coverage,
+    not is_quarantined and list_contains($counted_statuses, status) and months_in_service <= warranty_months
+        as is_return,
+    is_quarantined,
+    problem_column,
+    problem_reason,
+    problem_detail
+from assigned_claims
