@@ -21,7 +21,7 @@ import pytest
 
 from warranty_forecast.stages import shaping
 from warranty_forecast.config import RunSettings, ShipmentSettings, WarrantySettings, load_config
-from warranty_forecast.errors import ConfigError, ContractError, InputUnreadableError, QuarantineCeilingError
+from warranty_forecast.errors import ContractError, InputUnreadableError, QuarantineCeilingError
 from warranty_forecast.run import run_nightly
 from warranty_forecast.stages.shaping import shape_extracts
 
