@@ -21,7 +21,6 @@ from warranty_forecast.lifecore.families import WEIBULL
 from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.likelihood import log_likelihood
 from warranty_forecast.lifecore.profile import LikelihoodRatioBounds, likelihood_ratio_bounds, profile_bounds, profile_log_likelihood
-from warranty_forecast.lifecore.result import FitResult
 from closed_forms import weibull_b_life, weibull_cdf  # tests/closed_forms.py
 from closed_forms import summary_table  # tests/closed_forms.py
 import reference_values as ref  # tests/reference_values.py (tests/ is on sys.path under pytest)

@@ -91,3 +91,11 @@ def test_book_reserve_prices_the_forecast_and_totals_what_it_books():
     assert booked.forecast["expected_cost"].sum() == booked.by_build_month["reserve"].sum(min_count=1)
     assert booked.by_product.set_index("product").loc["A", "reserve"] == 100.0
     assert booked.total == 100.0  # B has no forecast: it adds nothing (and the run warns about it)
+    assert booked.warnings == ()  # both products have a cost per claim
+    unpriced = book_reserve(
+        summary, claim_costs().iloc[1:], forecast, {"A": "forecast (weibull)"}, {"A"}, ReserveSettings()
+    )
+    assert unpriced.warnings == (
+        "product A: no cost per claim (none: no counted return to price; set reserve.cost_per_claim);"
+        " its reserve is empty",
+    )

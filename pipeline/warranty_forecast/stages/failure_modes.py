@@ -166,3 +166,13 @@ def life_model_by_mode_table(
     table = pd.DataFrame(rows, columns=list(MODE_COLUMNS))
     table["is_shape_fixed"] = table["is_shape_fixed"].astype(bool)
     return table
+
+
+def mode_warnings(mode_fits: Mapping[str, tuple[ModeFit, ...]]) -> list[str]:
+    """One sentence per failure mode without a published fit (often a defect confined to some build months)."""
+    return [
+        f"product {product}, failure mode {mode.failure_mode}: no fit ({mode.status}): {mode.message}"
+        for product, modes in sorted(mode_fits.items())
+        for mode in modes
+        if mode.status not in PUBLISHED_STATUSES
+    ]

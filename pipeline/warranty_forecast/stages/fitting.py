@@ -359,3 +359,31 @@ def _life_model_row(outcome: ProductFit, units: float) -> dict[str, object]:
             family_message=outcome.comparison.message,
         )
     return row
+
+
+def product_warnings(fits: Mapping[str, ProductFit], settings: LifeModelSettings) -> list[str]:
+    """What engineers must hear about each product's fit: no model, a fixed shape, open bounds, a better
+    lognormal, returns that depart from the Weibull (p below `goodness_of_fit_warning_p_value`)."""
+    texts = []
+    for product, outcome in sorted(fits.items()):
+        if outcome.status == FIXED_SHAPE:
+            texts.append(f"product {product}: {outcome.message}")
+        elif outcome.status != FITTED:
+            texts.append(
+                f"product {product}: no life model, no forecast and no reserve ({outcome.status}): {outcome.message}"
+            )
+        if outcome.status in PUBLISHED_STATUSES and not (outcome.lr_bounds is not None and outcome.lr_bounds.is_bounded):
+            texts.append(
+                f"product {product}: the data do not bound every likelihood-ratio interval (an end is 0 or"
+                " infinite); treat its estimates as very uncertain"
+            )
+        if outcome.comparison is not None and outcome.comparison.prefers_lognormal:
+            texts.append(f"product {product}: {outcome.comparison.message}")
+        goodness = outcome.goodness
+        if goodness is not None and goodness.chi_square_p_value < settings.goodness_of_fit_warning_p_value:
+            texts.append(
+                f"product {product}: returns by month in service depart from the Weibull (chi-square"
+                f" {goodness.chi_square:.1f} on {goodness.chi_square_df:.0f} df, p = {goodness.chi_square_p_value:.1e};"
+                f" largest residual in month {goodness.largest_residual_month:.0f}); check the probability plot"
+            )
+    return texts

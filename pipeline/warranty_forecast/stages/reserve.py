@@ -141,6 +141,15 @@ class ReserveResult:
     by_product: pd.DataFrame  # totals of by_build_month
 
     @property
+    def warnings(self) -> tuple[str, ...]:
+        """One sentence per product whose reserve is empty for want of a cost per claim."""
+        return tuple(
+            f"product {row.product}: no cost per claim ({row.cost_basis}); its reserve is empty"
+            for row in self.costs.itertuples(index=False)
+            if math.isnan(row.cost_per_claim)
+        )
+
+    @property
     def total(self) -> float:
         """The reserve summed over the products that have one (products without a forecast or a cost per
         claim add nothing and are named in the warnings); NaN when no product has one."""

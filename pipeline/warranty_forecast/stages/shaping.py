@@ -139,6 +139,27 @@ class ShapedData:
     ignored_columns: dict[str, list[str]]
     seconds_by_layer: dict[str, float]
 
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        """Stale extracts (see DataFreshness) and sale-month groups with more returns than units."""
+        texts = list(self.freshness.warnings())
+        overfull = self.run_facts.get("groups_with_more_returns_than_units", 0)
+        if overfull:
+            texts.append(
+                f"{overfull} sale-month group(s) have more returns than units: check the shipments extract for"
+                " missing rows"
+            )
+        return tuple(texts)
+
+    @property
+    def summary(self) -> str:
+        """One line for the run log: what became of each extract's rows, and the dates."""
+        return "; ".join(
+            f"{row.extract}: {row.rows_read} rows read, {row.rows_used} used, {row.rows_quarantined} quarantined,"
+            f" {row.rows_after_as_of} after as-of"
+            for row in self.reconciliation.itertuples(index=False)
+        ) + f"; as-of {self.as_of_date} ({self.as_of_source}), run date {self.freshness.run_date}"
+
 
 # ------------------------------------------------------------------------------------- spill folders
 

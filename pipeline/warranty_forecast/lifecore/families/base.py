@@ -17,7 +17,6 @@ its closed forms (mean, variance, hazard at age 0). Everything else is written o
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
 from typing import ClassVar
 
 import numpy as np
