@@ -40,6 +40,15 @@ create or replace macro check_not_after_run_date(column_name, text_value, parsed
         column_name || ' ' || text_value || ' is after the run date ' || strftime(run_date, '%Y-%m-%d')
     );
 
+-- Every check a date column gets, in order: it parses (as `expected` says), it lies in the range above,
+-- and it is not after the run date. A required date adds check_present before it.
+create or replace macro check_date(column_name, text_value, parsed_value, expected, run_date) as
+    coalesce(
+        check_parsed(column_name, text_value, parsed_value, expected),
+        check_date_in_range(column_name, text_value, parsed_value),
+        check_not_after_run_date(column_name, text_value, parsed_value, run_date)
+    );
+
 -- A whole number above the configured limit for its column (units per row, warranty months).
 create or replace macro check_not_above(column_name, text_value, number_value, limit_value, reason) as
     check_that(

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
-from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, fit_weibull
+from warranty_forecast.stages.fitting import FIT_STATUS_AND_PARAMETER_COLUMNS, PUBLISHED_STATUSES, fit_weibull
 from warranty_forecast.lifecore.data import LifeData
 from warranty_forecast.lifecore.profile import LikelihoodRatioBounds
 from warranty_forecast.lifecore.result import FitResult
@@ -30,19 +30,7 @@ MODE_COLUMNS = (
     "failure_mode",
     "failure_codes",
     "returns",
-    "status",
-    "message",
-    "is_shape_fixed",
-    "shape",
-    "shape_lower",
-    "shape_upper",
-    "shape_lr_lower",
-    "shape_lr_upper",
-    "scale",
-    "scale_lower",
-    "scale_upper",
-    "scale_lr_lower",
-    "scale_lr_upper",
+    *FIT_STATUS_AND_PARAMETER_COLUMNS,
     "b10",
     "b10_lr_lower",
     "b10_lr_upper",

@@ -40,21 +40,18 @@ UNIDENTIFIABLE = "unidentifiable"
 NOT_CONVERGED = "not_converged"
 PUBLISHED_STATUSES = (FITTED, FIXED_SHAPE)
 
-LIFE_MODEL_COLUMNS = (
-    "product",
+# A Weibull's status and its shape and scale with Wald and likelihood-ratio bounds: the columns every
+# fitted table (products, failure modes) opens with.
+FIT_STATUS_AND_PARAMETER_COLUMNS = (
     "status",
     "message",
     "is_shape_fixed",
-    "shape",
-    "shape_lower",
-    "shape_upper",
-    "shape_lr_lower",
-    "shape_lr_upper",
-    "scale",
-    "scale_lower",
-    "scale_upper",
-    "scale_lr_lower",
-    "scale_lr_upper",
+    *(f"{name}{bound}" for name in ("shape", "scale") for bound in ("", "_lower", "_upper", "_lr_lower", "_lr_upper")),
+)
+
+LIFE_MODEL_COLUMNS = (
+    "product",
+    *FIT_STATUS_AND_PARAMETER_COLUMNS,
     "rate",
     "b1",
     "b1_lower",
