@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from warranty_forecast.tools import bench
+from warranty_forecast.tools import bench, bench_fits
 
 TINY = ["--sizes", "2000", "--seed", "7", "--repeats", "1"]
 
@@ -72,10 +72,10 @@ def test_skip_per_unit_above(capsys: pytest.CaptureFixture[str]) -> None:
 
 def test_aggregation_keeps_every_unit_and_matches_the_per_unit_rows() -> None:
     # Source: common practice, no source (grouping must neither lose nor move units).
-    sim = bench.Simulation()
-    units = bench.simulate_units(5000, np.random.default_rng(3), sim)
-    cells = bench.aggregate(units, sim)
-    rows = bench.per_unit_rows(units, sim)
+    sim = bench_fits.Simulation()
+    units = bench_fits.simulate_units(5000, np.random.default_rng(3), sim)
+    cells = bench_fits.aggregate(units, sim)
+    rows = bench_fits.per_unit_rows(units, sim)
     assert cells.return_counts.sum() + cells.suspension_counts.sum() == 5000
     assert cells.n_returns == len(rows.upper)
     months, counts = np.unique(rows.upper, return_counts=True)
