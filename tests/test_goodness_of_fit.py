@@ -1,4 +1,4 @@
-"""Tests of observed-vs-expected goodness of fit by month in service (warranty_forecast.lifecore.goodness_of_fit).
+"""Tests of observed-vs-expected goodness of fit by month in service (warranty_forecast.stages.goodness_of_fit).
 
 Every external check names its source beside it. All simulations are seeded. Every test in this
 module turns warnings into errors, so any RuntimeWarning (overflow, log(0), ...) fails it.
@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from warranty_forecast.lifecore.goodness_of_fit import (
+from warranty_forecast.stages.goodness_of_fit import (
     CELL_COLUMNS,
     GoodnessOfFit,
     goodness_of_fit,

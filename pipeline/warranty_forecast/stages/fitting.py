@@ -24,7 +24,7 @@ import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
 from warranty_forecast.errors import FitError
-from warranty_forecast.lifecore.goodness_of_fit import GoodnessOfFit, goodness_of_fit
+from warranty_forecast.stages.goodness_of_fit import GoodnessOfFit, goodness_of_fit
 from warranty_forecast.lifecore.comparison import FamilyComparison, compare_families
 from warranty_forecast.lifecore.data import LifeData
 from warranty_forecast.lifecore.errors import InsufficientDataError, UnidentifiableError
