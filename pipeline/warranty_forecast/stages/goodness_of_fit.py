@@ -299,14 +299,11 @@ def goodness_of_fit(
         chi_square = math.inf if float(pooled_d.sum()) > 0 else 0.0
         notes.append("no expected returns at all under the model")
     chi_df = n_cells - n_parameters
-    if chi_df < 1:
-        chi_p = math.nan
-        notes.append(
-            f"Pearson test not available: {n_cells} cell(s) with expected >= {min_expected:g} "
-            f"leave {chi_df} df for {n_parameters} fitted parameters"
-        )
-    else:
-        chi_p = float(stats.chi2.sf(chi_square, chi_df))
+    chi_p = _chi_square_p_value(
+        chi_square, chi_df, notes,
+        f"Pearson test not available: {n_cells} cell(s) with expected >= {min_expected:g} "
+        f"leave {chi_df} df for {n_parameters} fitted parameters",
+    )
 
     # -- deviance against the saturated life-table model ---------------------------------------
     _, saturated_terms = _saturated_terms(risk)
@@ -321,14 +318,11 @@ def goodness_of_fit(
         notes.append(f"deviance {raw_deviance:.2e} clamped at 0 (suspensions inside months)")
     exposed_months = int(np.count_nonzero((risk.whole > 0) | (risk.partial_sum(risk.partial_count) > 0)))
     dev_df = exposed_months - n_parameters
-    if dev_df < 1:
-        dev_p = math.nan
-        notes.append(
-            f"deviance test not available: {exposed_months} month(s) with exposure leave {dev_df} df "
-            f"for {n_parameters} fitted parameters"
-        )
-    else:
-        dev_p = float(stats.chi2.sf(deviance, dev_df))
+    dev_p = _chi_square_p_value(
+        deviance, dev_df, notes,
+        f"deviance test not available: {exposed_months} month(s) with exposure leave {dev_df} df "
+        f"for {n_parameters} fitted parameters",
+    )
 
     cells = pd.DataFrame(
         {
@@ -356,3 +350,11 @@ def goodness_of_fit(
     )
     logger.debug("%s", result.summary_line())
     return result
+
+
+def _chi_square_p_value(statistic: float, df: int, notes: list[str], unavailable: str) -> float:
+    """Upper-tail chi-square p-value on `df` degrees of freedom; NaN and a note when df < 1."""
+    if df < 1:
+        notes.append(unavailable)
+        return math.nan
+    return float(stats.chi2.sf(statistic, df))
