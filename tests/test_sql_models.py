@@ -266,6 +266,130 @@ def test_claims_assigned_to_sale_month_groups(con):
     ]
 
 
+# ---------------------------------------------------------------------------- units on the warranty clock
+
+STG_SHIPMENTS = {
+    "source_row_number": "bigint", "product": "varchar", "build_month": "date", "ship_date": "date",
+    "sale_date": "date", "units": "bigint", "warranty_months": "integer", "serial": "varchar",
+    "is_quarantined": "boolean",
+}
+
+
+def test_newest_valid_dates(con):
+    table(con, "stg_claims", {"claim_date": "date", "is_quarantined": "boolean"}, [
+        {"claim_date": d("2024-03-01"), "is_quarantined": False},
+        {"claim_date": d("2024-05-01"), "is_quarantined": False},
+        {"claim_date": d("2024-09-01"), "is_quarantined": True},  # later, but failed a check
+        {"is_quarantined": True},  # no date at all
+    ])
+    table(con, "stg_shipments", {"ship_date": "date", "is_quarantined": "boolean"}, [
+        {"ship_date": d("2024-06-30"), "is_quarantined": False},
+        {"ship_date": d("2024-07-01"), "is_quarantined": True},
+    ])
+    assert run(con, "intermediate/newest_valid_dates", "newest_claim_date, newest_ship_date") == [
+        (d("2024-05-01"), d("2024-06-30")),
+    ]
+    con.execute("delete from stg_claims where not is_quarantined")  # no valid claim left: NULL, still one row
+    assert run(con, "intermediate/newest_valid_dates", "newest_claim_date, newest_ship_date") == [
+        (None, d("2024-06-30")),
+    ]
+
+
+def test_units_aged_to_as_of(con):
+    row = {"product": "A", "build_month": d("2024-01"), "units": 1, "warranty_months": 12, "is_quarantined": False}
+    table(con, "stg_shipments", STG_SHIPMENTS, [
+        # A's lags known by the as-of date: 10, 20 and 60 days; median 20 (the mean would be 30)
+        {**row, "source_row_number": 1, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-11"), "units": 5,
+         "warranty_months": 24, "serial": "S1"},
+        {**row, "source_row_number": 2, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-21"),
+         "warranty_months": None},  # the default warranty
+        {**row, "source_row_number": 3, "ship_date": d("2024-01-01"), "sale_date": d("2024-03-01")},
+        {**row, "source_row_number": 4, "ship_date": d("2024-06-01"), "units": 10},  # unsold: A's median lag
+        # sold after the as-of date: counts as unsold (its 45-day lag is not known), in service on A's clock
+        {**row, "source_row_number": 5, "ship_date": d("2024-12-01"), "sale_date": d("2025-01-15")},
+        {**row, "source_row_number": 6, "ship_date": d("2024-12-31")},  # imputed clock after the as-of: channel
+        {**row, "source_row_number": 7, "ship_date": d("2025-01-02")},  # shipped after the as-of date
+        {**row, "source_row_number": 8, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-02"),
+         "is_quarantined": True},  # failed a staging check: neither a unit nor a lag
+        # B has no known sale date: all products' lags 10, 20, 60, 90, 90; median 60
+        {**row, "source_row_number": 9, "product": "B", "ship_date": d("2024-03-01"), "units": 3,
+         "warranty_months": 6},  # 245 days = 8.05 months: observed age capped at the 6-month warranty
+        {**row, "source_row_number": 10, "product": "C", "ship_date": d("2023-01-01"), "sale_date": d("2023-04-01"),
+         "units": 2},  # 640 days = 21.03 months: capped at 12
+        {**row, "source_row_number": 11, "product": "C", "ship_date": d("2024-10-02"), "sale_date": d("2024-12-31"),
+         "units": 4},  # sold on the as-of date: known, age 0, in service
+    ])
+    parameters = {"as_of_date": AS_OF, "default_warranty_months": 12}
+    got = run(
+        con, "intermediate/units_aged_to_as_of",
+        "source_row_number, known_sale_date, is_sold_after_as_of, is_sale_date_imputed, warranty_start_date,"
+        " sale_month, warranty_months, units, serial, is_in_channel",
+        parameters,
+    )
+    assert got == [
+        (1, d("2024-01-11"), False, False, d("2024-01-11"), d("2024-01"), 24, 5, "S1", False),
+        (2, d("2024-01-21"), False, False, d("2024-01-21"), d("2024-01"), 12, 1, None, False),
+        (3, d("2024-03-01"), False, False, d("2024-03-01"), d("2024-03"), 12, 1, None, False),
+        (4, None, False, True, d("2024-06-21"), d("2024-06"), 12, 10, None, False),
+        (5, None, True, True, d("2024-12-21"), d("2024-12"), 12, 1, None, False),
+        (6, None, False, True, d("2025-01-20"), d("2025-01"), 12, 1, None, True),
+        (9, None, False, True, d("2024-04-30"), d("2024-04"), 6, 3, None, False),
+        (10, d("2023-04-01"), False, False, d("2023-04-01"), d("2023-04"), 12, 2, None, False),
+        (11, d("2024-12-31"), False, False, d("2024-12-31"), d("2024-12"), 12, 4, None, False),
+    ]
+    days = {1: 355, 2: 345, 3: 305, 4: 193, 5: 10, 6: 0, 9: 245, 10: 640, 11: 0}  # start to 2024-12-31
+    ages = run(
+        con, "intermediate/units_aged_to_as_of", "source_row_number, age_months, observed_age_months", parameters
+    )
+    warranty = {1: 24, 9: 6}  # 12 months for the others
+    assert ages == [
+        pytest.approx((number, days[number] / MONTH, min(days[number] / MONTH, warranty.get(number, 12))), rel=1e-12)
+        for number in sorted(days)
+    ]
+
+
+def test_units_aged_to_as_of_start_at_the_ship_date_when_no_sale_date_is_known(con):
+    row = {"product": "A", "build_month": d("2024-10"), "units": 1, "warranty_months": 12, "is_quarantined": False}
+    table(con, "stg_shipments", STG_SHIPMENTS, [
+        {**row, "source_row_number": 1, "ship_date": d("2024-11-01")},
+        {**row, "source_row_number": 2, "product": "B", "ship_date": d("2024-12-01"),
+         "sale_date": d("2025-02-01")},  # sold after the as-of date: no lag known by then
+        {**row, "source_row_number": 3, "ship_date": d("2024-11-01"), "sale_date": d("2024-11-06"),
+         "is_quarantined": True},  # a 5-day lag, but on a row that failed a check
+    ])
+    got = run(
+        con, "intermediate/units_aged_to_as_of",
+        "source_row_number, is_sale_date_imputed, warranty_start_date, is_in_channel, observed_age_months",
+        {"as_of_date": AS_OF, "default_warranty_months": 12},
+    )
+    assert got == [
+        pytest.approx((1, True, d("2024-11-01"), False, 60 / MONTH)),  # lag 0 days
+        pytest.approx((2, True, d("2024-12-01"), False, 30 / MONTH)),
+    ]
+
+
+def test_sale_month_groups(con):
+    unit = {"product": "A", "build_month": d("2024-01"), "sale_month": d("2024-12"), "warranty_months": 12,
+            "is_in_channel": False}
+    table(con, "units_aged_to_as_of", UNITS_AGED, [
+        {**unit, "units": 10},
+        {**unit, "units": 5, "is_in_channel": True},  # same group; clock starts after a mid-month as-of date
+        {**unit, "units": 7, "warranty_months": 24},  # another warranty length
+        {**unit, "units": 2, "sale_month": d("2024-11")},  # another sale month
+        {**unit, "units": 4, "build_month": d("2024-02")},  # another build month
+        {**unit, "units": 1, "product": "B"},  # another product
+    ])
+    got = run(con, "intermediate/sale_month_groups",
+              "product, build_month, sale_month, warranty_months, units, units_in_channel")
+    assert got == [
+        ("A", d("2024-01"), d("2024-11"), 12, 2, 0),
+        ("A", d("2024-01"), d("2024-12"), 12, 15, 5),
+        ("A", d("2024-01"), d("2024-12"), 24, 7, 0),
+        ("A", d("2024-02"), d("2024-12"), 12, 4, 0),
+        ("B", d("2024-01"), d("2024-12"), 12, 1, 0),
+    ]
+
+
 # ------------------------------------------------------------------------------------- cells of the fit
 
 GROUP = {"product": "A", "build_month": d("2024-01"), "sale_month": d("2024-02"), "warranty_months": 12}
@@ -391,3 +515,172 @@ def test_reconciliation_accounts_for_every_row_read(con):
     assert got == [("claims", "/data/c.csv", 4, 1, 2, 1), ("shipments", "/data/s.csv", 3, 1, 2, 0)]
     quarantine = run(con, "outputs/quarantine", 'extract, source_file, row_number, "column", reason')
     assert quarantine[0] == ("claims", "/data/c.csv", 1, "claim_id", "missing_value") and len(quarantine) == 4
+
+
+# ------------------------------------------------------------------------------------------------ outputs
+
+ASSIGNED_CLAIMS = {
+    "product": "varchar", "build_month": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
+    "is_sale_date_imputed": "boolean", "is_group_reassigned": "boolean", "is_serial_unknown": "boolean",
+    "is_counted_status": "boolean", "is_in_coverage": "boolean", "is_return": "boolean", "is_quarantined": "boolean",
+}
+RETURN = {"status": "approved", "is_sale_date_imputed": False, "is_group_reassigned": False,
+          "is_serial_unknown": False, "is_counted_status": True, "is_in_coverage": True, "is_return": True,
+          "is_quarantined": False}
+
+
+def test_cohort_summary(con):
+    unit = {"product": "A", "build_month": d("2024-01"), "warranty_months": 12, "is_sale_date_imputed": False,
+            "is_in_channel": False}
+    table(con, "units_aged_to_as_of", UNITS_AGED, [
+        {**unit, "units": 100},
+        {**unit, "units": 20, "warranty_months": 24, "is_sale_date_imputed": True},  # imputed, in service
+        {**unit, "units": 5, "is_sale_date_imputed": True, "is_in_channel": True},
+        {**unit, "units": 10, "build_month": d("2024-02")},  # a cohort without claims
+        {**unit, "units": 3, "product": "B", "warranty_months": 6},
+    ])
+    claim = {**RETURN, "product": "A", "build_month": d("2024-01")}
+    table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
+        {**claim, "cost": 50},
+        {**claim, "cost": 20.5},
+        {**claim, "cost": 99, "is_in_coverage": False, "is_return": False},  # counted status, out of coverage
+        {**claim, "cost": 40, "status": "rejected", "is_counted_status": False, "is_return": False},
+        {**claim, "cost": 30, "status": "rejected", "is_counted_status": False, "is_in_coverage": False,
+         "is_return": False},  # not counted, so not out of coverage either
+        {**claim, "cost": 70, "status": "rejected", "is_counted_status": False, "is_in_coverage": None,
+         "is_return": False, "is_quarantined": True},  # failed a check: in no count
+        {**claim, "product": "B", "cost": 10},
+        {**claim, "product": "C", "cost": 5, "is_in_coverage": None, "is_return": False,
+         "is_quarantined": True},  # C shipped nothing: no cohort row
+    ])
+    got = run(
+        con, "outputs/cohort_summary",
+        "product, build_month, units, units_in_channel, units_sale_date_imputed, min_warranty_months,"
+        " max_warranty_months, returns_to_date, cost_to_date, claims_out_of_coverage, claims_not_counted",
+    )
+    assert got == [
+        ("A", d("2024-01"), 125, 5, 25, 12, 24, 2, 70.5, 1, 2),
+        ("A", d("2024-02"), 10, 0, 0, 12, 12, 0, 0.0, 0, 0),
+        ("B", d("2024-01"), 3, 0, 0, 6, 6, 1, 10.0, 0, 0),
+    ]
+
+
+def test_age_in_service(con):
+    table(con, "suspensions_shared_by_start_date", {
+        **{column: kind for column, kind in SALE_MONTH_GROUPS.items() if not column.startswith("units")},
+        "warranty_start_date": "date", "observed_age_months": "double", "units": "bigint", "suspensions": "double",
+    }, [
+        # A, sale month 02, 3-month warranty: 100 units, 15 returns, 85 survivors shared 60 : 40
+        {**GROUP, "product": "A", "warranty_months": 3, "warranty_start_date": d("2024-02-01"),
+         "observed_age_months": 3.0, "units": 60, "suspensions": 51},  # saw the whole warranty: never withdrawn
+        {**GROUP, "product": "A", "warranty_months": 3, "warranty_start_date": d("2024-02-20"),
+         "observed_age_months": 1.5, "units": 40, "suspensions": 34},  # into month 2 in part: withdrawn there
+        # A, sale month 03, 4-month warranty: 20 units, 6 returns (one in month 4, on the claim's own clock)
+        {**GROUP, "product": "A", "sale_month": d("2024-03"), "warranty_months": 4,
+         "warranty_start_date": d("2024-03-10"), "observed_age_months": 2.25, "units": 20, "suspensions": 14},
+        # A, still in the channel: at risk in no month
+        {**GROUP, "product": "A", "sale_month": d("2025-01"), "warranty_months": 4,
+         "warranty_start_date": d("2025-01-10"), "observed_age_months": 0.0, "units": 30, "suspensions": 30},
+        # B: a group with more returns than units gives no negative units at risk
+        {**GROUP, "product": "B", "warranty_months": 3, "warranty_start_date": d("2024-02-01"),
+         "observed_age_months": 3.0, "units": 2, "suspensions": 0},
+        {**GROUP, "product": "B", "sale_month": d("2024-03"), "warranty_months": 3,
+         "warranty_start_date": d("2024-03-01"), "observed_age_months": 3.0, "units": 4, "suspensions": 4},
+    ])
+    table(con, "returns_counted_by_group_and_month", {
+        **{column: kind for column, kind in SALE_MONTH_GROUPS.items() if not column.startswith("units")},
+        "months_in_service": "integer", "returns": "bigint", "return_cost": "decimal(38, 2)",
+    }, [
+        {**GROUP, "warranty_months": 3, "months_in_service": 1, "returns": 10, "return_cost": 100},
+        {**GROUP, "warranty_months": 3, "months_in_service": 2, "returns": 5, "return_cost": 60},
+        {**GROUP, "sale_month": d("2024-03"), "warranty_months": 4, "months_in_service": 1, "returns": 5,
+         "return_cost": 25},
+        {**GROUP, "sale_month": d("2024-03"), "warranty_months": 4, "months_in_service": 4, "returns": 1,
+         "return_cost": 30},
+        {**GROUP, "product": "B", "warranty_months": 3, "months_in_service": 1, "returns": 3, "return_cost": 30},
+    ])
+    got = run(
+        con, "outputs/age_in_service",
+        "product, build_month, months_in_service, units_at_risk, returns, return_cost, units_withdrawn, return_rate",
+    )
+    assert got == [
+        # month 1: every unit in service (60 + 40 + 20)
+        pytest.approx(("A", d("2024-01"), 1, 120.0, 15, 125.0, 0.0, 15 / 120)),
+        # month 2: 60 and 40 less 10/100 of them, 20 less 5/20 of it; the 1.5-month row withdrawn (34)
+        pytest.approx(("A", d("2024-01"), 2, 54.0 + 36.0 + 15.0, 5, 60.0, 34.0, 5 / 105)),
+        # month 3: 60 less 15/100, 20 less 5/20; the 2.25-month row withdrawn (14)
+        pytest.approx(("A", d("2024-01"), 3, 51.0 + 15.0, 0, 0.0, 14.0, 0.0)),
+        # month 4: a return, no unit observed into month 4: no rate
+        pytest.approx(("A", d("2024-01"), 4, 0.0, 1, 30.0, 0.0, None)),
+        pytest.approx(("B", d("2024-01"), 1, 6.0, 3, 30.0, 0.0, 0.5)),
+        # 3 returns before month 2 of a 2-unit group: its share is capped at its units (0, not -1)
+        pytest.approx(("B", d("2024-01"), 2, 4.0, 0, 0.0, 0.0, 0.0)),
+        pytest.approx(("B", d("2024-01"), 3, 4.0, 0, 0.0, 0.0, 0.0)),
+    ]
+
+
+def test_run_facts(con):
+    unit = {"is_sale_date_imputed": False, "is_in_channel": False, "is_sold_after_as_of": False}
+    table(con, "units_aged_to_as_of", {**UNITS_AGED, "is_sold_after_as_of": "boolean"}, [
+        {**unit, "units": 100},
+        {**unit, "units": 20, "is_sale_date_imputed": True},
+        {**unit, "units": 5, "is_sale_date_imputed": True, "is_in_channel": True},
+        {**unit, "units": 3, "is_sale_date_imputed": True, "is_sold_after_as_of": True},  # in service, imputed
+        {**unit, "units": 2, "is_sale_date_imputed": True, "is_sold_after_as_of": True, "is_in_channel": True},
+    ])
+    table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
+        {**RETURN, "is_sale_date_imputed": True},
+        {**RETURN, "is_group_reassigned": True},
+        {**RETURN, "is_serial_unknown": True},
+        {**RETURN, "is_in_coverage": False, "is_return": False},  # out of coverage
+        {**RETURN, "status": "rejected", "is_counted_status": False, "is_return": False},
+        {**RETURN, "status": "no_fault_found", "is_counted_status": False, "is_return": False},
+        {**RETURN, "status": "rejected", "is_counted_status": False, "is_in_coverage": False, "is_return": False},
+        {**RETURN, "status": "rejected", "is_sale_date_imputed": True, "is_in_coverage": None, "is_return": False,
+         "is_quarantined": True},  # left out of every count
+    ])
+    survivors = {"group_units": "bigint", "group_returns": "hugeint"}
+    table(con, "sale_month_group_survivors", survivors, [
+        {"group_units": 150, "group_returns": 2},
+        {"group_units": 1, "group_returns": 2},  # more returns than units
+        {"group_units": 5, "group_returns": 5},  # as many: not more
+    ])
+    assert dict(run(con, "outputs/run_facts", "fact, count")) == {
+        "units_total": 130,
+        "units_in_channel": 7,
+        "units_in_service_sale_date_imputed": 23,
+        "units_sold_after_as_of_counted_unsold": 5,
+        "returns_counted": 3,
+        "claims_out_of_coverage": 1,
+        "claims_rejected": 2,
+        "claims_no_fault_found": 1,
+        "claims_status_not_counted": 3,
+        "claims_sale_date_imputed": 1,
+        "claims_assigned_to_nearest_sale_month": 1,
+        "claims_with_unknown_serial": 1,
+        "groups_with_more_returns_than_units": 1,
+    }
+    for name in ("units_aged_to_as_of", "claims_assigned_to_sale_month_groups", "sale_month_group_survivors"):
+        con.execute(f"delete from {name}")
+    facts = run(con, "outputs/run_facts", "fact, count")  # nothing read: every fact is there, as 0
+    assert len(facts) == 13 and {count for _, count in facts} == {0}
+
+
+def test_claim_cost_by_product(con):
+    table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
+        # 12 months to 2024-12-31: the window runs from 2024-01-01 to the as-of date
+        {**RETURN, "product": "A", "claim_date": d("2024-12-31"), "cost": 50},
+        {**RETURN, "product": "A", "claim_date": d("2024-01-01"), "cost": 100},  # the window's first day
+        {**RETURN, "product": "A", "claim_date": d("2023-12-31"), "cost": 30},  # the day before: all time only
+        {**RETURN, "product": "A", "claim_date": d("2024-06-01"), "cost": 1000, "is_in_coverage": False,
+         "is_return": False},  # not a return
+        {**RETURN, "product": "B", "claim_date": d("2023-06-01"), "cost": 20},  # no return in the window
+        {**RETURN, "product": "C", "claim_date": d("2024-06-01"), "cost": 10, "status": "rejected",
+         "is_counted_status": False, "is_return": False},  # no return at all: no row
+    ])
+    got = run(
+        con, "outputs/claim_cost_by_product",
+        "product, window_returns, window_mean_cost, all_time_returns, all_time_mean_cost",
+        {"as_of_date": AS_OF, "cost_window_months": 12},
+    )
+    assert got == [("A", 2, 75.0, 3, 60.0), ("B", 0, None, 1, 20.0)]
