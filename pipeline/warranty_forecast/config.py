@@ -171,6 +171,15 @@ class LifeModelSettings:
 
 
 @dataclass(frozen=True)
+class AlertSettings:
+    """[alerts]: when a build month's returns are flagged against its product's baseline life model."""
+
+    early_life_months: int = _key(3, _integer(1, MAX_WARRANTY_MONTHS_LIMIT))  # the early-life view: MIS 1..K
+    false_discovery_rate: float = _key(0.05, _number_in(0.0, 1.0, high_included=False))  # BH q at or below: significant
+    min_ratio: float = _key(1.5, _number_in(1.0, math.inf, high_included=False))  # observed / expected at least this
+
+
+@dataclass(frozen=True)
 class RunConfig:
     """Everything one nightly run needs; passed down to every stage."""
 
@@ -186,6 +195,7 @@ class RunConfig:
     claims: ClaimSettings = field(default_factory=ClaimSettings)
     reserve: ReserveSettings = field(default_factory=ReserveSettings)
     life_model: LifeModelSettings = field(default_factory=LifeModelSettings)
+    alerts: AlertSettings = field(default_factory=AlertSettings)
 
 
 def parse_date(text: str, what: str) -> dt.date:
@@ -273,6 +283,7 @@ SECTIONS: dict[str, type] = {
     "claims": ClaimSettings,
     "reserve": ReserveSettings,
     "life_model": LifeModelSettings,
+    "alerts": AlertSettings,
 }
 
 

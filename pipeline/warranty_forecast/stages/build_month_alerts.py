@@ -1,0 +1,329 @@
+"""The build-month alert stage: build months whose returns run above what their product's baseline life
+model expects (a supplier lot, a process change), found early.
+
+For each product x build month, from the shaped tables fit_suspensions (one row per group of `units`
+that were all observed to `observed_age_months`, 0 for units still in the channel) and fit_returns
+(counted returns by `months_in_service`):
+
+    observed  O   = sum of returns
+    expected  E   = sum over rows of units x F(observed_age)
+    early     O_K = sum of returns with months_in_service <= K
+              E_K = sum over rows of units x F(min(observed_age, K))
+
+F is the cdf of the product's baseline model (any family, used only through `cdf`). units x F(a) is
+the expected number of the row's units that fail within their observation window (0, a]: a unit that
+fails is a return, one that does not is a suspension at a, so E counts the same events O counts.
+K is `early_life_months`: a defect of a lot usually shows as infant failures, long before it moves the
+whole-window count of a large cohort.
+
+Each view is tested separately: the one-sided exact Poisson p-value P(X >= O | mean E) (1 when O = 0),
+the exact (Garwood) interval for the ratio O / E with E taken as known,
+
+    lower = chi2.ppf(alpha/2, 2 O) / (2 E)     (0 when O = 0),
+    upper = chi2.ppf(1 - alpha/2, 2 O + 2) / (2 E),    alpha = 1 - confidence_level,
+
+and Benjamini-Hochberg q-values over the build months of each product. A month is flagged when, in
+either view, q <= `false_discovery_rate` and O / E >= `min_ratio` (the ratio floor keeps huge cohorts
+from flagging harmless 3% excesses).
+
+The baseline must not learn from the months it judges: it starts as the product's published fit, is
+refitted (two-parameter Weibull, or the same fixed shape if the published fit fixed it) on the data
+without the flagged months, and the months are judged again, until the flagged set stops changing (at
+most `MAX_ROUNDS` rounds). If a refit fails, the previous baseline is kept and a warning says so.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Mapping, Protocol
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from warranty_forecast.config import AlertSettings, LifeModelSettings
+from warranty_forecast.errors import FitError
+from warranty_forecast.lifecore.fitter import Fitter
+from warranty_forecast.lifecore.result import FitResult
+from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_product
+from warranty_forecast.stages.life_models import FittedLives
+
+MAX_ROUNDS = 5
+
+VIEWS = ("early", "window")  # column prefixes: the early-life view and the whole observation window
+
+BUILD_MONTH_ALERT_COLUMNS = (
+    "product",
+    "build_month",
+    "units",
+    *(
+        f"{view}_{name}"
+        for view in VIEWS
+        for name in ("observed_returns", "expected_returns", "ratio", "ratio_lower", "ratio_upper", "p_value", "q_value")
+    ),
+    "early_life_months",
+    "is_flagged",
+    "reason",
+)
+
+
+class Baseline(Protocol):
+    """A life distribution in months: F(t) for t >= 0."""
+
+    def cdf(self, t: np.ndarray) -> np.ndarray: ...
+
+
+@dataclass(frozen=True)
+class ProductBaseline:
+    """The baseline a product's months were judged against: the fit, the build months left out of it,
+    the rounds it took, and a note when it is not what it should be (a failed refit, no settling)."""
+
+    product: str
+    fit: FitResult
+    excluded_build_months: tuple[object, ...]
+    rounds: int
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class BuildMonthAlerts:
+    """The stage's result: one row per product x build month (BUILD_MONTH_ALERT_COLUMNS), the baselines,
+    and one warning per flagged month (plus any note on a baseline)."""
+
+    table: pd.DataFrame
+    baselines: Mapping[str, ProductBaseline]
+    warnings: tuple[str, ...]
+
+    @property
+    def flagged(self) -> pd.DataFrame:
+        """The flagged rows of the table."""
+        return self.table[self.table["is_flagged"]]
+
+    @property
+    def summary(self) -> str:
+        """One line for the run log."""
+        return f"{len(self.table)} build months of {len(self.baselines)} products, {len(self.flagged)} flagged"
+
+
+# -- the statistics ----------------------------------------------------------------------------------
+
+
+def poisson_excess_p_value(observed: np.ndarray, expected: np.ndarray) -> np.ndarray:
+    """One-sided exact Poisson p-value P(X >= O) for X ~ Poisson(E); 1 when O = 0 (also when E = 0)."""
+    observed = np.asarray(observed, dtype=float)
+    expected = np.asarray(expected, dtype=float)
+    p = np.ones_like(observed)
+    tested = (observed > 0) & (expected > 0)
+    # P(X >= O) = P(X > O - 1), the survival function at O - 1
+    p[tested] = stats.poisson.sf(observed[tested] - 1, expected[tested])
+    p[(observed > 0) & (expected <= 0)] = 0.0  # returns where none can occur
+    return p
+
+
+def garwood_ratio_interval(
+    observed: np.ndarray, expected: np.ndarray, confidence_level: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Exact (Garwood 1936) two-sided interval for O / E, E known: chi-square quantiles of the Poisson mean
+    divided by E. Lower 0 when O = 0; both NaN when E = 0."""
+    observed = np.asarray(observed, dtype=float)
+    expected = np.asarray(expected, dtype=float)
+    alpha = 1.0 - confidence_level
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lower_mean = np.where(observed > 0, stats.chi2.ppf(alpha / 2, 2 * observed) / 2, 0.0)
+        upper_mean = stats.chi2.ppf(1 - alpha / 2, 2 * observed + 2) / 2
+        positive = expected > 0
+        lower = np.where(positive, lower_mean / np.where(positive, expected, 1.0), np.nan)
+        upper = np.where(positive, upper_mean / np.where(positive, expected, 1.0), np.nan)
+    return lower, upper
+
+
+def benjamini_hochberg(p_values: np.ndarray) -> np.ndarray:
+    """Benjamini-Hochberg (1995) q-values: q_(i) = min over j >= i of p_(j) m / j, at most 1, for the
+    p-values sorted ascending; returned in the input's order."""
+    p = np.asarray(p_values, dtype=float)
+    m = len(p)
+    if m == 0:
+        return p.copy()
+    order = np.argsort(p, kind="stable")
+    scaled = p[order] * m / np.arange(1, m + 1)
+    q_sorted = np.minimum(np.minimum.accumulate(scaled[::-1])[::-1], 1.0)
+    q = np.empty(m)
+    q[order] = q_sorted
+    return q
+
+
+# -- one product's months against one baseline ------------------------------------------------------
+
+
+def score_build_months(
+    returns: pd.DataFrame,
+    suspensions: pd.DataFrame,
+    baseline: Baseline,
+    settings: AlertSettings,
+    confidence_level: float,
+) -> pd.DataFrame:
+    """One product's build months judged against `baseline`: both views' O, E, ratio with Garwood bounds,
+    p, BH q, the flag and its reason (columns BUILD_MONTH_ALERT_COLUMNS without `product`)."""
+    k = float(settings.early_life_months)
+    ages = suspensions["observed_age_months"].to_numpy(dtype=float)
+    units = suspensions["units"].to_numpy(dtype=float)
+    exposure = pd.DataFrame(
+        {
+            "build_month": suspensions["build_month"].to_numpy(),
+            "units": units,
+            "window_expected_returns": units * baseline.cdf(ages),
+            "early_expected_returns": units * baseline.cdf(np.minimum(ages, k)),
+        }
+    ).groupby("build_month", as_index=False).sum()
+    early = returns["months_in_service"].to_numpy() <= k
+    counted = pd.DataFrame(
+        {
+            "build_month": returns["build_month"].to_numpy(),
+            "window_observed_returns": returns["returns"].to_numpy(dtype=float),
+            "early_observed_returns": np.where(early, returns["returns"].to_numpy(dtype=float), 0.0),
+        }
+    ).groupby("build_month", as_index=False).sum()
+    table = exposure.merge(counted, on="build_month", how="outer").sort_values("build_month", ignore_index=True)
+    table = table.fillna(0.0)
+    flags = np.zeros(len(table), dtype=bool)
+    reasons: list[list[str]] = [[] for _ in range(len(table))]
+    for view, words in (("early", f"returns in the first {settings.early_life_months} months in service"),
+                        ("window", "returns over the whole observation window")):
+        observed = table[f"{view}_observed_returns"].to_numpy(dtype=float)
+        expected = table[f"{view}_expected_returns"].to_numpy(dtype=float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(expected > 0, observed / np.where(expected > 0, expected, 1.0), np.nan)
+        lower, upper = garwood_ratio_interval(observed, expected, confidence_level)
+        p = poisson_excess_p_value(observed, expected)
+        tested = expected > 0
+        q = np.ones(len(table))
+        q[tested] = benjamini_hochberg(p[tested])  # months with no exposure are not tested
+        table[f"{view}_ratio"] = ratio
+        table[f"{view}_ratio_lower"] = lower
+        table[f"{view}_ratio_upper"] = upper
+        table[f"{view}_p_value"] = p
+        table[f"{view}_q_value"] = q
+        view_flags = tested & (q <= settings.false_discovery_rate) & (ratio >= settings.min_ratio)
+        flags |= view_flags
+        for i in np.flatnonzero(view_flags):
+            reasons[i].append(f"{words} {ratio[i]:.2f} times the expected")
+    table["early_life_months"] = int(settings.early_life_months)
+    table["is_flagged"] = flags
+    table["reason"] = ["; ".join(r) for r in reasons]
+    return table
+
+
+# -- the stage -----------------------------------------------------------------------------------------
+
+
+def find_bad_build_months(
+    fit_returns: pd.DataFrame,
+    fit_suspensions: pd.DataFrame,
+    published: Mapping[str, FitResult],
+    settings: AlertSettings,
+    life_model: LifeModelSettings,
+) -> BuildMonthAlerts:
+    """Judge every build month of every product that has a published fit in `published` (products
+    without one are not judged). Never raises for one product's data."""
+    frames, baselines, notes = [], {}, []
+    for product, fit in sorted(published.items()):
+        returns = fit_returns[fit_returns["product"] == product]
+        suspensions = fit_suspensions[fit_suspensions["product"] == product]
+        table, baseline = _judge_product(product, returns, suspensions, fit, settings, life_model)
+        frames.append(table.assign(product=product))
+        baselines[product] = baseline
+        if baseline.note:
+            notes.append(f"product {product}: {baseline.note}")
+    table = (
+        pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=list(BUILD_MONTH_ALERT_COLUMNS))
+    )[list(BUILD_MONTH_ALERT_COLUMNS)]
+    table["is_flagged"] = table["is_flagged"].astype(bool)
+    table["early_life_months"] = table["early_life_months"].astype(np.int64)
+    table["units"] = table["units"].astype(np.int64)
+    warnings = [_warning(row, life_model.confidence_level) for row in table[table["is_flagged"]].itertuples(index=False)]
+    return BuildMonthAlerts(table=table, baselines=baselines, warnings=(*warnings, *notes))
+
+
+def alert_build_months(
+    shaped_fit_returns: pd.DataFrame,
+    shaped_fit_suspensions: pd.DataFrame,
+    lives: FittedLives,
+    settings: AlertSettings,
+    life_model: LifeModelSettings,
+) -> BuildMonthAlerts:
+    """The stage as the run calls it: every product with a published fit, starting from that fit."""
+    published = {
+        product: outcome.fit
+        for product, outcome in lives.products.items()
+        if outcome.status in PUBLISHED_STATUSES and outcome.fit is not None
+    }
+    return find_bad_build_months(shaped_fit_returns, shaped_fit_suspensions, published, settings, life_model)
+
+
+def _judge_product(
+    product: str,
+    returns: pd.DataFrame,
+    suspensions: pd.DataFrame,
+    published: FitResult,
+    settings: AlertSettings,
+    life_model: LifeModelSettings,
+) -> tuple[pd.DataFrame, ProductBaseline]:
+    baseline, excluded, note = published, frozenset(), ""
+    fitter = Fitter("weibull", confidence_level=life_model.confidence_level, min_returns=life_model.min_returns)
+    fixed = {"shape": published.shape} if "shape" in published.fixed else None
+    rounds = 0
+    while True:
+        rounds += 1
+        table = score_build_months(returns, suspensions, baseline, settings, life_model.confidence_level)
+        flagged = frozenset(table.loc[table["is_flagged"], "build_month"])
+        if flagged == excluded:
+            break
+        if rounds == MAX_ROUNDS:
+            note = (
+                f"the set of flagged build months did not settle within {MAX_ROUNDS} rounds of refitting the"
+                " baseline; the last round's flags are shown"
+            )
+            break
+        kept_returns = returns[~returns["build_month"].isin(flagged)]
+        kept_suspensions = suspensions[~suspensions["build_month"].isin(flagged)]
+        data = life_data_by_product(kept_returns, kept_suspensions).get(product)
+        try:
+            if data is None:
+                raise FitError("no data left once the flagged build months are set aside")
+            refit = fitter.fit(data, fixed=fixed)
+        except FitError as error:
+            note = (
+                "the baseline could not be refitted without the flagged build months"
+                f" ({', '.join(_month(m) for m in sorted(flagged))}): {error}; the months were judged against the"
+                " previous baseline"
+            )
+            break
+        baseline, excluded = refit, flagged
+    return table, ProductBaseline(product, baseline, tuple(sorted(excluded)), rounds, note)
+
+
+def _month(value: object) -> str:
+    return value.strftime("%Y-%m") if hasattr(value, "strftime") else str(value)
+
+
+def _warning(row, confidence_level: float) -> str:  # type: ignore[no-untyped-def]
+    """One sentence for engineers about one flagged build month."""
+    parts = []
+    for view, words in (("early", f"in the first {row.early_life_months} months in service"),
+                        ("window", "over the whole observation window")):
+        observed = getattr(row, f"{view}_observed_returns")
+        expected = getattr(row, f"{view}_expected_returns")
+        ratio = getattr(row, f"{view}_ratio")
+        if not math.isfinite(ratio):
+            continue
+        parts.append(
+            f"{observed:,.0f} returns {words} against {expected:,.1f} expected (ratio {ratio:.2f},"
+            f" {confidence_level:.0%} interval {getattr(row, f'{view}_ratio_lower'):.2f} to"
+            f" {getattr(row, f'{view}_ratio_upper'):.2f}, q = {getattr(row, f'{view}_q_value'):.2g})"
+        )
+    return (
+        f"product {row.product} build month {_month(row.build_month)} flagged ({row.reason}): "
+        + " and ".join(parts)
+        + "; a statistical signal for engineers to review, not a finding"
+    )
