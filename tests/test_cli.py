@@ -30,7 +30,7 @@ EXPECTED_FILES = {
     "reserve.parquet", "reserve_by_product.parquet", "quarantine.parquet", "fit_returns.parquet",
     "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
     "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
-    "failure_mode_pareto.png",
+    "failure_mode_pareto.png", "build_month_alerts.parquet",
 }
 
 
@@ -60,6 +60,10 @@ def test_demo_run_writes_every_output(demo_out):
     assert manifest["versions"]["duckdb"] != "not installed"
     report = (demo_out / "report.md").read_text()
     assert "## Cautions" in report and "qualified engineers" in report
+    assert "## Build-month alerts" in report and "| QCP-140 | 2025-02 |" in report
+    alerts = pd.read_parquet(demo_out / "build_month_alerts.parquet")
+    assert set(alerts.loc[alerts["is_flagged"], "product"]) == {"QCP-140"}
+    assert "alerts" in manifest["seconds_by_stage"]
 
 
 def test_quarantine_is_exactly_the_planted_rows(demo_out):

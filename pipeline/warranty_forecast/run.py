@@ -1,6 +1,6 @@
 """The nightly run, as a straight line of typed stage results:
 
-extracts -> shaped (DuckDB) -> lives (fits) -> forecast -> reserve -> diagnostics and charts -> report,
+extracts -> shaped (DuckDB) -> lives (fits) -> build-month alerts -> forecast -> reserve -> diagnostics and charts -> report,
 manifest -> publish (atomic)
 
 Every decision sits in the stage that owns it (which model forecasts: `stages.forecasting`; pricing:
@@ -22,6 +22,7 @@ from warranty_forecast.outputs import charts
 from warranty_forecast.outputs.manifest import RunManifest, run_manifest
 from warranty_forecast.outputs.publish import publish_outputs
 from warranty_forecast.outputs.report import render_report
+from warranty_forecast.stages.build_month_alerts import alert_build_months
 from warranty_forecast.stages.forecasting import forecast_returns
 from warranty_forecast.stages.life_models import fit_lives
 from warranty_forecast.stages.life_table import life_table
@@ -71,6 +72,11 @@ def run_nightly(config: RunConfig) -> RunResult:
     shaped = clock.run("shaping", lambda: shape_extracts(config), lambda s: s.summary)
     check_products_in_data(config, shaped.known_products)
     lives = clock.run("fit", lambda: fit_lives(shaped, config.life_model), lambda f: f.summary)
+    alerts = clock.run(
+        "alerts",
+        lambda: alert_build_months(shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model),
+        lambda a: a.summary,
+    )
     forecast = clock.run("forecast", lambda: forecast_returns(shaped, lives, config.life_model), lambda f: f.summary)
     reserve = clock.run(
         "reserve",
@@ -100,7 +106,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         lambda f: f"{len(f)} figures",
     )
 
-    warnings = (*shaped.warnings, *lives.warnings, *forecast.warnings, *reserve.warnings)
+    warnings = (*shaped.warnings, *lives.warnings, *alerts.warnings, *forecast.warnings, *reserve.warnings)
     for text in warnings:
         log.warning("%s", text)
 
@@ -110,6 +116,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "life_table": life_table_by_month,
         "life_model": lives.table,
         "life_model_by_mode": forecast.by_mode,
+        "build_month_alerts": alerts.table,
         "forecast": reserve.forecast,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,
@@ -130,6 +137,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         manifest=manifest,
         life_model=lives.table,
         life_model_by_mode=forecast.by_mode,
+        build_month_alerts=alerts.table,
         reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,

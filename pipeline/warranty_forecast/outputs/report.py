@@ -71,6 +71,7 @@ def render_report(
     manifest: RunManifest,
     life_model: pd.DataFrame,
     life_model_by_mode: pd.DataFrame,
+    build_month_alerts: pd.DataFrame,
     reserve_totals: pd.DataFrame,
     reconciliation: pd.DataFrame,
     quarantine: pd.DataFrame,
@@ -78,8 +79,9 @@ def render_report(
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
-    life_model, life_model_by_mode, reserve_totals, reconciliation, quarantine = (
-        _text_escaped(frame) for frame in (life_model, life_model_by_mode, reserve_totals, reconciliation, quarantine)
+    life_model, life_model_by_mode, build_month_alerts, reserve_totals, reconciliation, quarantine = (
+        _text_escaped(frame)
+        for frame in (life_model, life_model_by_mode, build_month_alerts, reserve_totals, reconciliation, quarantine)
     )
     warnings = [markdown_text(text) for text in warnings]
     lines = [
@@ -180,6 +182,7 @@ def render_report(
             _table(modes),
             "",
         ]
+    lines += ["", *_alert_lines(build_month_alerts)]
     lines += ["", "## Data read", ""]
     lines += [_table(reconciliation), ""]
     facts = manifest.facts
@@ -199,6 +202,48 @@ def render_report(
         "",
     ]
     return "\n".join(lines)
+
+
+def _alert_lines(alerts: pd.DataFrame) -> list[str]:
+    """The flagged build months, each with both views' observed and expected returns (already escaped)."""
+    lines = ["## Build-month alerts", ""]
+    if not len(alerts):
+        return lines + ["No build month was checked (no product has a published life model).", ""]
+    flagged = alerts[alerts["is_flagged"]]
+    months = int(alerts["early_life_months"].iloc[0])
+    lines.append(
+        f"{len(alerts):,} build months checked against their product's baseline life model (fitted without the"
+        f" flagged months); {len(flagged):,} flagged. A statistical signal for qualified engineers to review,"
+        " not a finding. Observed / expected returns with bounds in brackets, in the first"
+        f" {months} months in service (early) and over the whole observation window; details in"
+        " `build_month_alerts.parquet`."
+    )
+    lines.append("")
+    if not len(flagged):
+        return lines
+    shown = pd.DataFrame(
+        {
+            "product": flagged["product"],
+            "build_month": flagged["build_month"].map(lambda d: d.strftime("%Y-%m") if hasattr(d, "strftime") else d),
+            "early": [_observed_expected(r, "early") for r in flagged.itertuples(index=False)],
+            "early_q": flagged["early_q_value"].map(lambda v: f"{v:.2g}"),
+            "whole_window": [_observed_expected(r, "window") for r in flagged.itertuples(index=False)],
+            "whole_window_q": flagged["window_q_value"].map(lambda v: f"{v:.2g}"),
+            "reason": flagged["reason"],
+        }
+    )
+    return lines + [_table(shown), ""]
+
+
+def _observed_expected(row: Any, view: str) -> str:
+    observed, expected = getattr(row, f"{view}_observed_returns"), getattr(row, f"{view}_expected_returns")
+    ratio = getattr(row, f"{view}_ratio")
+    if not math.isfinite(ratio):
+        return f"{observed:,.0f} / {expected:,.1f}"
+    return (
+        f"{observed:,.0f} / {expected:,.1f} = {ratio:.2f}"
+        f" [{getattr(row, f'{view}_ratio_lower'):.2f}, {getattr(row, f'{view}_ratio_upper'):.2f}]"
+    )
 
 
 def _bounded_percent(estimate: float, lower: float, upper: float) -> str:
