@@ -684,3 +684,25 @@ def test_claim_cost_by_product(con):
         {"as_of_date": AS_OF, "cost_window_months": 12},
     )
     assert got == [("A", 2, 75.0, 3, 60.0), ("B", 0, None, 1, 20.0)]
+
+
+def test_returns_by_build_month_and_code(con):
+    table(con, "claims_assigned_to_sale_month_groups", {
+        "product": "varchar", "build_month": "date", "failure_code": "varchar", "is_return": "boolean",
+    }, [
+        {"product": "A", "build_month": d("2024-01"), "failure_code": "SEAL", "is_return": True},
+        {"product": "A", "build_month": d("2024-01"), "failure_code": "SEAL", "is_return": True},
+        {"product": "A", "build_month": d("2024-01"), "failure_code": "SEAL", "is_return": False},  # not a return
+        {"product": "A", "build_month": d("2024-01"), "is_return": True},  # no code (staging made '' NULL)
+        {"product": "A", "build_month": d("2024-02"), "failure_code": "SEAL", "is_return": True},  # another month
+        {"product": "B", "build_month": d("2024-01"), "failure_code": "FAN", "is_return": True},
+        {"product": "B", "build_month": d("2024-01"), "failure_code": "FAN", "is_return": False},
+        {"product": "C", "build_month": d("2024-01"), "failure_code": "FAN", "is_return": False},  # none: no row
+    ])
+    got = run(con, "outputs/returns_by_build_month_and_code", "product, build_month, failure_code, returns")
+    assert got == [
+        ("A", d("2024-01"), "(no code)", 1),
+        ("A", d("2024-01"), "SEAL", 2),
+        ("A", d("2024-02"), "SEAL", 1),
+        ("B", d("2024-01"), "FAN", 1),
+    ]

@@ -128,6 +128,7 @@ class ShapedData:
     freshness: DataFreshness
     fit_returns: pd.DataFrame
     returns_by_failure_mode: pd.DataFrame
+    returns_by_build_month_and_code: pd.DataFrame
     fit_suspensions: pd.DataFrame
     age_in_service: pd.DataFrame
     cohort_summary: pd.DataFrame
