@@ -176,7 +176,10 @@ def demo_alerts(tmp_path_factory):
     )
     shaped = shape_extracts(config)
     lives = fit_lives(shaped, config.life_model)
-    return shaped, alert_build_months(shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model)
+    return shaped, alert_build_months(
+        shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model,
+        shaped.returns_by_build_month_and_code,
+    )
 
 
 def test_the_demo_flags_the_planted_bad_month_of_qcp_140(demo_alerts):
@@ -214,3 +217,49 @@ def test_the_demo_against_the_generators_true_model_flags_only_the_planted_month
     suspensions = shaped.fit_suspensions[shaped.fit_suspensions["product"] == "QCP-140"]
     table = score_build_months(returns, suspensions, TrueQcp140(), AlertSettings(), 0.95)
     assert list(table.loc[table["is_flagged"], "build_month"]) == [dt.date(2025, 2, 1)]
+
+
+def test_the_demo_points_each_flagged_month_at_its_failure_codes(demo_alerts):
+    _, alerts = demo_alerts
+    causes = alerts.causes
+    assert set(zip(causes["product"], causes["build_month"])) == {
+        ("QCP-140", dt.date(2024, 4, 1)), ("QCP-140", dt.date(2025, 2, 1))
+    }
+    planted = causes[causes["build_month"] == dt.date(2025, 2, 1)]
+    top = planted.iloc[0]
+    # the planted defect's code: 266 returns, none in the unflagged months, so none expected; 95% of the
+    # month's excess (the rest: BEARING_NOISE, 62 returns against 48.1 expected)
+    assert top["failure_code"] == "START_CAP_SHORT"
+    assert (top["observed_returns"], top["expected_returns"]) == (266.0, 0.0)
+    assert top["share_of_excess"] == pytest.approx(0.950, abs=1e-3)
+    # each month's codes account for its observed returns; the expected ones for its expected returns
+    # (every code of QCP-140 has baseline returns but START_CAP_SHORT, which has none)
+    flagged = alerts.flagged.set_index("build_month")
+    assert planted["observed_returns"].sum() == flagged.loc[dt.date(2025, 2, 1), "window_observed_returns"]
+    april = causes[causes["build_month"] == dt.date(2024, 4, 1)]
+    assert april["expected_returns"].sum() == pytest.approx(flagged.loc[dt.date(2024, 4, 1), "window_expected_returns"])
+    flagged_warning = next(w for w in alerts.warnings if "build month 2025-02 flagged" in w)
+    assert "top failure code START_CAP_SHORT: 266 returns where none were expected" in flagged_warning
+    # START_CAP_SHORT is concentrated in the flagged month, and said so; no other code is
+    sentence = "failure code START_CAP_SHORT: 266 of its 266 returns are in flagged build month(s) 2025-02"
+    assert alerts.concentrated_codes == {("QCP-140", "START_CAP_SHORT"): sentence}
+    assert any(w.startswith(f"product QCP-140, {sentence}") for w in alerts.warnings)
+
+
+def test_the_demo_mode_warning_of_the_planted_code_reads_as_a_confined_defect(demo_alerts, tmp_path):
+    from warranty_forecast.stages.life_models import fit_lives
+
+    shaped, alerts = demo_alerts
+    config = load_config(
+        shipments_path=ROOT / "data_demo" / "shipments.parquet", claims_path=ROOT / "data_demo" / "claims.csv",
+        out_dir=tmp_path / "out", run_date=dt.date(2026, 12, 2),
+    )
+    lives = fit_lives(shaped, config.life_model)
+    plain = [w for w in lives.warnings if "failure mode START_CAP_SHORT" in w]
+    explained = [w for w in lives.warnings_given(alerts.concentrated_codes) if "failure mode START_CAP_SHORT" in w]
+    assert len(plain) == len(explained) == 1
+    assert plain[0].startswith("product QCP-140, failure mode START_CAP_SHORT: no fit (unidentifiable)")
+    assert explained[0].startswith(
+        "product QCP-140, failure mode START_CAP_SHORT: no life fit (unidentifiable), as expected of a defect"
+        " confined to flagged build months (failure code START_CAP_SHORT: 266 of its 266 returns"
+    )

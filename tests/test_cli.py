@@ -30,7 +30,7 @@ EXPECTED_FILES = {
     "reserve.parquet", "reserve_by_product.parquet", "quarantine.parquet", "fit_returns.parquet",
     "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
     "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
-    "failure_mode_pareto.png", "build_month_alerts.parquet",
+    "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
 }
 
 
@@ -61,6 +61,10 @@ def test_demo_run_writes_every_output(demo_out):
     report = (demo_out / "report.md").read_text()
     assert "## Cautions" in report and "qualified engineers" in report
     assert "## Build-month alerts" in report and "| QCP-140 | 2025-02 |" in report
+    assert "| QCP-140 | 2025-02 | START_CAP_SHORT | 266 / 0.0 |" in report  # the top cause of the planted month
+    causes = pd.read_parquet(demo_out / "build_month_causes.parquet")
+    planted = causes[causes["build_month"].astype(str).str.startswith("2025-02")]
+    assert planted.iloc[0]["failure_code"] == "START_CAP_SHORT"  # sorted by excess within the month
     alerts = pd.read_parquet(demo_out / "build_month_alerts.parquet")
     assert set(alerts.loc[alerts["is_flagged"], "product"]) == {"QCP-140"}
     assert "alerts" in manifest["seconds_by_stage"]

@@ -74,7 +74,10 @@ def run_nightly(config: RunConfig) -> RunResult:
     lives = clock.run("fit", lambda: fit_lives(shaped, config.life_model), lambda f: f.summary)
     alerts = clock.run(
         "alerts",
-        lambda: alert_build_months(shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model),
+        lambda: alert_build_months(
+            shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model,
+            shaped.returns_by_build_month_and_code,
+        ),
         lambda a: a.summary,
     )
     forecast = clock.run("forecast", lambda: forecast_returns(shaped, lives, config.life_model), lambda f: f.summary)
@@ -106,7 +109,10 @@ def run_nightly(config: RunConfig) -> RunResult:
         lambda f: f"{len(f)} figures",
     )
 
-    warnings = (*shaped.warnings, *lives.warnings, *alerts.warnings, *forecast.warnings, *reserve.warnings)
+    warnings = (
+        *shaped.warnings, *lives.warnings_given(alerts.concentrated_codes), *alerts.warnings, *forecast.warnings,
+        *reserve.warnings,
+    )
     for text in warnings:
         log.warning("%s", text)
 
@@ -117,6 +123,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "life_model": lives.table,
         "life_model_by_mode": forecast.by_mode,
         "build_month_alerts": alerts.table,
+        "build_month_causes": alerts.causes,
         "forecast": reserve.forecast,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,
@@ -138,6 +145,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         life_model=lives.table,
         life_model_by_mode=forecast.by_mode,
         build_month_alerts=alerts.table,
+        build_month_causes=alerts.causes,
         reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,

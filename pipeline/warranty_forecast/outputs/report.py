@@ -76,12 +76,16 @@ def render_report(
     reconciliation: pd.DataFrame,
     quarantine: pd.DataFrame,
     warnings: list[str],
+    build_month_causes: pd.DataFrame | None = None,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
-    life_model, life_model_by_mode, build_month_alerts, reserve_totals, reconciliation, quarantine = (
+    causes = build_month_causes if build_month_causes is not None else pd.DataFrame(columns=["product"])
+    life_model, life_model_by_mode, build_month_alerts, causes, reserve_totals, reconciliation, quarantine = (
         _text_escaped(frame)
-        for frame in (life_model, life_model_by_mode, build_month_alerts, reserve_totals, reconciliation, quarantine)
+        for frame in (
+            life_model, life_model_by_mode, build_month_alerts, causes, reserve_totals, reconciliation, quarantine
+        )
     )
     warnings = [markdown_text(text) for text in warnings]
     lines = [
@@ -182,7 +186,7 @@ def render_report(
             _table(modes),
             "",
         ]
-    lines += ["", *_alert_lines(build_month_alerts)]
+    lines += ["", *_alert_lines(build_month_alerts), *_cause_lines(causes)]
     lines += ["", "## Data read", ""]
     lines += [_table(reconciliation), ""]
     facts = manifest.facts
@@ -233,6 +237,38 @@ def _alert_lines(alerts: pd.DataFrame) -> list[str]:
         }
     )
     return lines + [_table(shown), ""]
+
+
+TOP_CAUSES_SHOWN = 3  # failure codes per flagged month in the report
+
+
+def _cause_lines(causes: pd.DataFrame) -> list[str]:
+    """The top failure codes of each flagged month by excess returns (already escaped)."""
+    if not len(causes):
+        return []
+    top = causes.groupby(["product", "build_month"], sort=False).head(TOP_CAUSES_SHOWN)
+    shown = pd.DataFrame(
+        {
+            "product": top["product"],
+            "build_month": top["build_month"].map(lambda d: d.strftime("%Y-%m") if hasattr(d, "strftime") else d),
+            "failure_code": top["failure_code"],
+            "observed / expected": [
+                f"{r.observed_returns:,.0f} / {r.expected_returns:,.1f}"
+                + (f" = {r.ratio:.2f}" if math.isfinite(r.ratio) else "")
+                for r in top.itertuples(index=False)
+            ],
+            "p_value": top["p_value"].map(lambda v: f"{v:.2g}"),
+            "share_of_excess": top["share_of_excess"].map(lambda v: "n/a" if v != v else f"{v:.0%}"),
+        }
+    )
+    return [
+        f"Top failure codes of each flagged month (at most {TOP_CAUSES_SHOWN}), by returns above their"
+        " expected share: expected = the month's whole-window expected returns x the code's share of the"
+        " product's returns in the unflagged build months; all codes in `build_month_causes.parquet`.",
+        "",
+        _table(shown),
+        "",
+    ]
 
 
 def _observed_expected(row: Any, view: str) -> str:

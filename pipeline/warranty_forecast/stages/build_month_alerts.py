@@ -30,12 +30,25 @@ The baseline must not learn from the months it judges: it starts as the product'
 refitted (two-parameter Weibull, or the same fixed shape if the published fit fixed it) on the data
 without the flagged months, and the months are judged again, until the flagged set stops changing (at
 most `MAX_ROUNDS` rounds). If a refit fails, the previous baseline is kept and a warning says so.
+
+Pointing at the cause (when the run passes returns_by_build_month_and_code): for each flagged month and
+each failure code with returns in it, over the whole observation window,
+
+    observed  O_c = the code's returns in the month
+    expected  E_c = E (the month's whole-window expected returns) x s_c,
+    s_c           = the code's share of the product's returns in the unflagged build months,
+
+with the ratio O_c / E_c, the one-sided exact Poisson p-value and the code's share of the month's excess,
+max(O_c - E_c, 0) over the sum of those excesses over the month's codes (so the shares add up to 1).
+A failure code with at least `CONCENTRATED_SHARE` of its returns (and at least
+`MIN_CONCENTRATED_RETURNS` of them) in flagged months is reported as concentrated there: its life is
+then a defect of those months rather than a wear-out of the product, and its failure-mode fit says so.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Mapping, Protocol
 
 import numpy as np
@@ -50,6 +63,8 @@ from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_pr
 from warranty_forecast.stages.life_models import FittedLives
 
 MAX_ROUNDS = 5
+CONCENTRATED_SHARE = 0.5  # a failure code with this share of its returns in flagged months is concentrated there
+MIN_CONCENTRATED_RETURNS = 5  # ... if at least this many (common practice, no source: fewer says nothing)
 
 VIEWS = ("early", "window")  # column prefixes: the early-life view and the whole observation window
 
@@ -65,6 +80,19 @@ BUILD_MONTH_ALERT_COLUMNS = (
     "early_life_months",
     "is_flagged",
     "reason",
+)
+
+BUILD_MONTH_CAUSE_COLUMNS = (
+    "product",
+    "build_month",
+    "failure_code",
+    "observed_returns",
+    "expected_returns",
+    "ratio",
+    "p_value",
+    "excess_returns",
+    "share_of_excess",
+    "baseline_share",
 )
 
 
@@ -94,6 +122,8 @@ class BuildMonthAlerts:
     table: pd.DataFrame
     baselines: Mapping[str, ProductBaseline]
     warnings: tuple[str, ...]
+    causes: pd.DataFrame = field(default_factory=lambda: _empty_causes())
+    concentrated_codes: Mapping[tuple[str, str], str] = field(default_factory=dict)  # (product, code) -> sentence
 
     @property
     def flagged(self) -> pd.DataFrame:
@@ -214,6 +244,77 @@ def score_build_months(
     return table
 
 
+# -- pointing at the cause ----------------------------------------------------------------------------
+
+
+def _empty_causes() -> pd.DataFrame:
+    return pd.DataFrame({column: pd.Series(dtype=object) for column in BUILD_MONTH_CAUSE_COLUMNS})
+
+
+def cause_table(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> pd.DataFrame:
+    """Per flagged product x build month of `alerts` (the alert table), one row per failure code with
+    returns in that month (BUILD_MONTH_CAUSE_COLUMNS), largest excess first within each month.
+
+    `returns_by_code` has columns product, build_month, failure_code, returns (returns_by_build_month_and_code).
+    """
+    frames = []
+    for product, months in alerts.groupby("product", sort=True):
+        flagged = months[months["is_flagged"]]
+        if not len(flagged):
+            continue
+        rows = returns_by_code[returns_by_code["product"] == product]
+        in_baseline = rows[~rows["build_month"].isin(set(flagged["build_month"]))]
+        by_code = in_baseline.groupby("failure_code")["returns"].sum()
+        total = float(by_code.sum())
+        share = (by_code / total) if total > 0 else by_code * 0.0
+        for month in flagged.itertuples(index=False):
+            observed = rows[rows["build_month"] == month.build_month].groupby("failure_code")["returns"].sum()
+            if not len(observed):
+                continue
+            o = observed.to_numpy(dtype=float)
+            s = share.reindex(observed.index, fill_value=0.0).to_numpy(dtype=float)
+            e = float(month.window_expected_returns) * s
+            excess = np.clip(o - e, 0.0, None)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ratio = np.where(e > 0, o / np.where(e > 0, e, 1.0), np.nan)
+            frames.append(pd.DataFrame({
+                "product": product,
+                "build_month": month.build_month,
+                "failure_code": observed.index.astype(str),
+                "observed_returns": o,
+                "expected_returns": e,
+                "ratio": ratio,
+                "p_value": poisson_excess_p_value(o, e),
+                "excess_returns": excess,
+                "share_of_excess": excess / excess.sum() if excess.sum() > 0 else np.full(len(o), np.nan),
+                "baseline_share": s,
+            }))
+    if not frames:
+        return _empty_causes()
+    table = pd.concat(frames, ignore_index=True)
+    return table.sort_values(
+        ["product", "build_month", "excess_returns", "failure_code"], ascending=[True, True, False, True],
+        kind="stable", ignore_index=True,
+    )[list(BUILD_MONTH_CAUSE_COLUMNS)]
+
+
+def concentrated_codes(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> dict[tuple[str, str], str]:
+    """(product, failure code) -> "failure code X: N of its M returns are in flagged build month(s) ...", for each code with at least CONCENTRATED_SHARE of its returns
+    (and at least MIN_CONCENTRATED_RETURNS) in its product's flagged build months."""
+    flagged = alerts[alerts["is_flagged"]]
+    found = {}
+    for (product, code), rows in returns_by_code.groupby(["product", "failure_code"], sort=True):
+        months = set(flagged.loc[flagged["product"] == product, "build_month"])
+        in_flagged = rows[rows["build_month"].isin(months)]
+        n, m = int(in_flagged["returns"].sum()), int(rows["returns"].sum())
+        if n >= MIN_CONCENTRATED_RETURNS and n >= CONCENTRATED_SHARE * m:
+            where = ", ".join(_month(b) for b in sorted(set(in_flagged["build_month"])))
+            found[(str(product), str(code))] = (
+                f"failure code {code}: {n:,} of its {m:,} returns are in flagged build month(s) {where}"
+            )
+    return found
+
+
 # -- the stage -----------------------------------------------------------------------------------------
 
 
@@ -223,9 +324,11 @@ def find_bad_build_months(
     published: Mapping[str, FitResult],
     settings: AlertSettings,
     life_model: LifeModelSettings,
+    returns_by_code: pd.DataFrame | None = None,
 ) -> BuildMonthAlerts:
     """Judge every build month of every product that has a published fit in `published` (products
-    without one are not judged). Never raises for one product's data."""
+    without one are not judged); with `returns_by_code` (returns_by_build_month_and_code) also point each
+    flagged month at its failure codes. Never raises for one product's data."""
     frames, baselines, notes = [], {}, []
     for product, fit in sorted(published.items()):
         returns = fit_returns[fit_returns["product"] == product]
@@ -241,8 +344,25 @@ def find_bad_build_months(
     table["is_flagged"] = table["is_flagged"].astype(bool)
     table["early_life_months"] = table["early_life_months"].astype(np.int64)
     table["units"] = table["units"].astype(np.int64)
-    warnings = [_warning(row, life_model.confidence_level) for row in table[table["is_flagged"]].itertuples(index=False)]
-    return BuildMonthAlerts(table=table, baselines=baselines, warnings=(*warnings, *notes))
+    causes, concentrated = _empty_causes(), {}
+    if returns_by_code is not None:
+        causes, concentrated = cause_table(table, returns_by_code), concentrated_codes(table, returns_by_code)
+    top = causes.drop_duplicates(["product", "build_month"])  # sorted by excess: the first row is the top code
+    top_by_month = {(row.product, row.build_month): row for row in top.itertuples(index=False)}
+    warnings = [
+        _warning(row, life_model.confidence_level, top_by_month.get((row.product, row.build_month)))
+        for row in table[table["is_flagged"]].itertuples(index=False)
+    ]
+    return BuildMonthAlerts(
+        table=table, baselines=baselines,
+        warnings=(*warnings, *(f"product {product}, {text}{_CONCENTRATED_SUFFIX}" for (product, _), text in concentrated.items()), *notes),
+        causes=causes, concentrated_codes=concentrated,
+    )
+
+
+_CONCENTRATED_SUFFIX = (
+    ": a defect confined to those months rather than a life of the whole product (see build_month_causes.parquet)"
+)
 
 
 def alert_build_months(
@@ -251,14 +371,18 @@ def alert_build_months(
     lives: FittedLives,
     settings: AlertSettings,
     life_model: LifeModelSettings,
+    returns_by_code: pd.DataFrame | None = None,
 ) -> BuildMonthAlerts:
-    """The stage as the run calls it: every product with a published fit, starting from that fit."""
+    """The stage as the run calls it: every product with a published fit, starting from that fit; flagged
+    months pointed at their failure codes when `returns_by_code` is given."""
     published = {
         product: outcome.fit
         for product, outcome in lives.products.items()
         if outcome.status in PUBLISHED_STATUSES and outcome.fit is not None
     }
-    return find_bad_build_months(shaped_fit_returns, shaped_fit_suspensions, published, settings, life_model)
+    return find_bad_build_months(
+        shaped_fit_returns, shaped_fit_suspensions, published, settings, life_model, returns_by_code
+    )
 
 
 def _judge_product(
@@ -307,8 +431,8 @@ def _month(value: object) -> str:
     return value.strftime("%Y-%m") if hasattr(value, "strftime") else str(value)
 
 
-def _warning(row, confidence_level: float) -> str:  # type: ignore[no-untyped-def]
-    """One sentence for engineers about one flagged build month."""
+def _warning(row, confidence_level: float, top=None) -> str:  # type: ignore[no-untyped-def]
+    """One sentence for engineers about one flagged build month (with its top failure code when known)."""
     parts = []
     for view, words in (("early", f"in the first {row.early_life_months} months in service"),
                         ("window", "over the whole observation window")):
@@ -325,5 +449,20 @@ def _warning(row, confidence_level: float) -> str:  # type: ignore[no-untyped-de
     return (
         f"product {row.product} build month {_month(row.build_month)} flagged ({row.reason}): "
         + " and ".join(parts)
+        + _top_cause(top)
         + "; a statistical signal for engineers to review, not a finding"
+    )
+
+
+def _top_cause(top) -> str:  # type: ignore[no-untyped-def]
+    """The clause naming a flagged month's top failure code (empty when no code returns above its share)."""
+    if top is None or not math.isfinite(top.share_of_excess):
+        return ""
+    expected = (
+        f"against {top.expected_returns:,.1f} expected from its baseline share" if top.expected_returns > 0
+        else "where none were expected (no return of the code in the unflagged build months)"
+    )
+    return (
+        f"; top failure code {top.failure_code}: {top.observed_returns:,.0f} returns {expected},"
+        f" {top.share_of_excess:.0%} of the month's excess"
     )

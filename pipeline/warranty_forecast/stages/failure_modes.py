@@ -156,11 +156,27 @@ def life_model_by_mode_table(
     return table
 
 
-def mode_warnings(mode_fits: Mapping[str, tuple[ModeFit, ...]]) -> list[str]:
-    """One sentence per failure mode without a published fit (often a defect confined to some build months)."""
-    return [
-        f"product {product}, failure mode {mode.failure_mode}: no fit ({mode.status}): {mode.message}"
-        for product, modes in sorted(mode_fits.items())
-        for mode in modes
-        if mode.status not in PUBLISHED_STATUSES
-    ]
+def mode_warnings(
+    mode_fits: Mapping[str, tuple[ModeFit, ...]], concentrated: Mapping[tuple[str, str], str] | None = None
+) -> list[str]:
+    """One sentence per failure mode without a published fit (often a defect confined to some build months).
+
+    `concentrated` maps (product, failure code) to a sentence saying the code's returns sit in flagged build
+    months (the build-month alerts' `concentrated_codes`); such a mode's warning says so first, as its
+    failed fit is then what a confined defect looks like, not a plain fitting failure."""
+    concentrated = concentrated or {}
+    texts = []
+    for product, modes in sorted(mode_fits.items()):
+        for mode in modes:
+            if mode.status in PUBLISHED_STATUSES:
+                continue
+            notes = [concentrated[(product, code)] for code in mode.failure_codes if (product, code) in concentrated]
+            if notes:
+                texts.append(
+                    f"product {product}, failure mode {mode.failure_mode}: no life fit ({mode.status}), as expected"
+                    f" of a defect confined to flagged build months ({'; '.join(notes)}), not a wear-out life;"
+                    f" see build_month_causes; the fitter said: {mode.message}"
+                )
+            else:
+                texts.append(f"product {product}, failure mode {mode.failure_mode}: no fit ({mode.status}): {mode.message}")
+    return texts

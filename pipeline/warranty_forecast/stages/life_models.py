@@ -30,13 +30,24 @@ if TYPE_CHECKING:
 
 @dataclass(frozen=True)
 class FittedLives:
-    """The stage's result: fits by product and by failure mode, the life_model table, the warnings."""
+    """The stage's result: fits by product and by failure mode, the life_model table, the warnings (the
+    failure modes' warnings are made on demand, so that the build-month alerts can explain some)."""
 
     data_by_product: Mapping[str, LifeData]
     products: Mapping[str, ProductFit]
     modes: Mapping[str, tuple[ModeFit, ...]]
     table: pd.DataFrame
-    warnings: tuple[str, ...]
+    product_warnings: tuple[str, ...]
+
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        """The products' warnings, then one per failure mode without a published fit."""
+        return self.warnings_given({})
+
+    def warnings_given(self, concentrated: Mapping[tuple[str, str], str]) -> tuple[str, ...]:
+        """The warnings, each failure mode whose codes are concentrated in flagged build months
+        ((product, code) -> sentence, from the build-month alerts) saying so."""
+        return (*self.product_warnings, *mode_warnings(self.modes, concentrated))
 
     @property
     def summary(self) -> str:
@@ -57,5 +68,5 @@ def fit_lives(shaped: ShapedData, settings: LifeModelSettings) -> FittedLives:
         products=products,
         modes=modes,
         table=life_model_table(products, by_product["units"].sum().to_dict()),
-        warnings=(*product_warnings(products, settings), *mode_warnings(modes)),
+        product_warnings=tuple(product_warnings(products, settings)),
     )
