@@ -53,9 +53,8 @@ def _number_in(low: float, high: float, *, high_included: bool, unit: str = "") 
     interval = f"[{low:g}, {high:g}{']' if high_included else ')'}"
 
     def rule(value: Any) -> float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            raise ValueError(f"must be a number in {interval}{unit}")
-        if not (low <= value <= high if high_included else low <= value < high):
+        is_number = not isinstance(value, bool) and isinstance(value, (int, float)) and math.isfinite(value)
+        if not (is_number and (low <= value <= high if high_included else low <= value < high)):
             raise ValueError(f"must be a number in {interval}{unit}")
         return float(value)
     return rule
@@ -260,11 +259,8 @@ def check_products_in_data(config: RunConfig, known_products: Sequence[str]) -> 
     """
     known = sorted(set(known_products))
     source = str(config.config_path) if config.config_path else "defaults"
-    for table, names in (
-        ("reserve.cost_per_claim_by_product", [name for name, _ in config.reserve.cost_per_claim_by_product]),
-        ("life_model.fixed_shape_by_product", [name for name, _ in config.life_model.fixed_shape_by_product]),
-    ):
-        for name in names:
+    for table, pairs in _by_product_settings(config):
+        for name, _ in pairs:
             if name in known:
                 continue
             closest = difflib.get_close_matches(name, known, n=1, cutoff=0.0)
@@ -291,6 +287,16 @@ def settings_from_document(document: Mapping[str, Any], source: str) -> dict[str
     """Validate a parsed TOML document; return the settings objects keyed as RunConfig fields."""
     _reject_unknown(document, set(SECTIONS), source, "")
     return {name: _section(settings, _table(document, name, source), source, name) for name, settings in SECTIONS.items()}
+
+
+def _by_product_settings(config: RunConfig) -> list[tuple[str, tuple[tuple[str, Any], ...]]]:
+    """Every per-product table in force, as (dotted key, (product, value) pairs), found from the fields' rules."""
+    return [
+        (f"{name}.{item.name}", getattr(getattr(config, name), item.name))
+        for name, settings in SECTIONS.items()
+        for item in dataclasses.fields(settings)
+        if getattr(item.metadata.get("rule"), "is_table", False)
+    ]
 
 
 def settings_as_document(config: RunConfig) -> dict[str, dict[str, Any]]:
