@@ -228,7 +228,7 @@ def _alert_lines(alerts: pd.DataFrame) -> list[str]:
     shown = pd.DataFrame(
         {
             "product": flagged["product"],
-            "build_month": flagged["build_month"].map(lambda d: d.strftime("%Y-%m") if hasattr(d, "strftime") else d),
+            "build_month": flagged["build_month"].map(_month_text),
             "early": [_observed_expected(r, "early") for r in flagged.itertuples(index=False)],
             "early_q": flagged["early_q_value"].map(lambda v: f"{v:.2g}"),
             "whole_window": [_observed_expected(r, "window") for r in flagged.itertuples(index=False)],
@@ -250,7 +250,7 @@ def _cause_lines(causes: pd.DataFrame) -> list[str]:
     shown = pd.DataFrame(
         {
             "product": top["product"],
-            "build_month": top["build_month"].map(lambda d: d.strftime("%Y-%m") if hasattr(d, "strftime") else d),
+            "build_month": top["build_month"].map(_month_text),
             "failure_code": top["failure_code"],
             "observed / expected": [
                 f"{r.observed_returns:,.0f} / {r.expected_returns:,.1f}"
@@ -269,6 +269,11 @@ def _cause_lines(causes: pd.DataFrame) -> list[str]:
         _table(shown),
         "",
     ]
+
+
+def _month_text(value: Any) -> Any:
+    """A build month as YYYY-MM (text from the data passes as it is)."""
+    return value.strftime("%Y-%m") if hasattr(value, "strftime") else value
 
 
 def _observed_expected(row: Any, view: str) -> str:
