@@ -61,6 +61,7 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_product
 from warranty_forecast.stages.life_models import FittedLives
+from warranty_forecast.stages.month_life import MonthData, hazard_ratio_test
 
 MAX_ROUNDS = 5
 CONCENTRATED_SHARE = 0.5  # a failure code with this share of its returns in flagged months is concentrated there
@@ -78,6 +79,12 @@ BUILD_MONTH_ALERT_COLUMNS = (
         for name in ("observed_returns", "expected_returns", "ratio", "ratio_lower", "ratio_upper", "p_value", "q_value")
     ),
     "early_life_months",
+    "hazard_ratio",
+    "hazard_ratio_lower",
+    "hazard_ratio_upper",
+    "scale_test_p_value",
+    "month_p_value",
+    "month_q_value",
     "is_flagged",
     "reason",
 )
@@ -100,6 +107,8 @@ class Baseline(Protocol):
     """A life distribution in months: F(t) for t >= 0."""
 
     def cdf(self, t: np.ndarray) -> np.ndarray: ...
+
+    def log_survival(self, t: np.ndarray) -> np.ndarray: ...
 
 
 @dataclass(frozen=True)
@@ -216,10 +225,8 @@ def score_build_months(
     ).groupby("build_month", as_index=False).sum()
     table = exposure.merge(counted, on="build_month", how="outer").sort_values("build_month", ignore_index=True)
     table = table.fillna(0.0)
-    flags = np.zeros(len(table), dtype=bool)
     reasons: list[list[str]] = [[] for _ in range(len(table))]
-    for view, words in (("early", f"returns in the first {settings.early_life_months} months in service"),
-                        ("window", "returns over the whole observation window")):
+    for view in VIEWS:
         observed = table[f"{view}_observed_returns"].to_numpy(dtype=float)
         expected = table[f"{view}_expected_returns"].to_numpy(dtype=float)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -234,14 +241,74 @@ def score_build_months(
         table[f"{view}_ratio_upper"] = upper
         table[f"{view}_p_value"] = p
         table[f"{view}_q_value"] = q
-        view_flags = tested & (q <= settings.false_discovery_rate) & (ratio >= settings.min_ratio)
-        flags |= view_flags
-        for i in np.flatnonzero(view_flags):
-            reasons[i].append(f"{words} {ratio[i]:.2f} times the expected")
     table["early_life_months"] = int(settings.early_life_months)
+    tests = _hazard_ratio_tests(returns, suspensions, baseline, table["build_month"], confidence_level)
+    table = pd.concat([table, tests], axis=1)
+    # one test per month: the smaller p of its two views (early life, own scale), doubled (Bonferroni)
+    tested = table["units"].to_numpy(dtype=float) > 0
+    view_p = {
+        "early": table["early_p_value"].to_numpy(dtype=float),
+        "scale": table["scale_test_p_value"].to_numpy(dtype=float),
+    }
+    view_ratio = {"early": table["early_ratio"].to_numpy(dtype=float), "scale": table["hazard_ratio"].to_numpy(dtype=float)}
+    month_p = np.minimum(1.0, 2.0 * np.minimum(view_p["early"], view_p["scale"]))
+    q = np.ones(len(table))
+    q[tested] = benjamini_hochberg(month_p[tested])
+    table["month_p_value"] = month_p
+    table["month_q_value"] = q
+    rejected = tested & (q <= settings.false_discovery_rate)
+    # BH rejects every month p at or below k* alpha / m (k* months rejected of m tested): a view carries the
+    # flag when its own doubled p is under that line
+    cutoff = rejected.sum() * settings.false_discovery_rate / max(int(tested.sum()), 1) if rejected.any() else -1.0
+    flags = np.zeros(len(table), dtype=bool)
+    for view, words in (("early", f"returns in its first {settings.early_life_months} months in service {{:.2f}}"
+                                  " times the expected"),
+                        ("scale", "its own Weibull scale {:.2f} times the product's hazard (likelihood-ratio test)")):
+        with np.errstate(invalid="ignore"):
+            carries = rejected & (2.0 * view_p[view] <= cutoff) & (view_ratio[view] >= settings.min_ratio)
+        flags |= carries
+        for i in np.flatnonzero(carries):
+            reasons[i].append(words.format(view_ratio[view][i]))
     table["is_flagged"] = flags
     table["reason"] = ["; ".join(r) for r in reasons]
     return table
+
+
+def month_data_by_build_month(returns: pd.DataFrame, suspensions: pd.DataFrame) -> dict[object, MonthData]:
+    """One product's rows (fit_returns, fit_suspensions) as life data per build month."""
+    counted = {month: rows.groupby("months_in_service")["returns"].sum() for month, rows in returns.groupby("build_month")}
+    survived = {
+        month: rows.groupby("observed_age_months")["suspensions"].sum()
+        for month, rows in suspensions.groupby("build_month")
+    }
+    empty = pd.Series(dtype=float)
+    return {
+        month: MonthData.of(
+            counted.get(month, empty).index.to_numpy(dtype=float), counted.get(month, empty).to_numpy(dtype=float),
+            survived.get(month, empty).index.to_numpy(dtype=float), survived.get(month, empty).to_numpy(dtype=float),
+        )
+        for month in sorted(set(counted) | set(survived))
+    }
+
+
+def _hazard_ratio_tests(
+    returns: pd.DataFrame, suspensions: pd.DataFrame, baseline: Baseline, months: pd.Series, confidence_level: float
+) -> pd.DataFrame:
+    """Per build month (in the order of `months`): the month's own-scale hazard ratio against `baseline`
+    with its likelihood-ratio interval and one-sided p-value (`month_life.hazard_ratio_test`)."""
+    data = month_data_by_build_month(returns, suspensions)
+    rows = []
+    for month in months:
+        month_data = data.get(month)
+        if month_data is None or month_data.units == 0:
+            rows.append((math.nan, math.nan, math.nan, 1.0))
+            continue
+        test = hazard_ratio_test(baseline, month_data, confidence_level)
+        rows.append((test.hazard_ratio, test.lower, test.upper, test.p_value))
+    return pd.DataFrame(
+        rows, columns=["hazard_ratio", "hazard_ratio_lower", "hazard_ratio_upper", "scale_test_p_value"],
+        index=months.index,
+    )
 
 
 # -- pointing at the cause ----------------------------------------------------------------------------
@@ -444,11 +511,16 @@ def _warning(row, confidence_level: float, top=None) -> str:  # type: ignore[no-
         parts.append(
             f"{observed:,.0f} returns {words} against {expected:,.1f} expected (ratio {ratio:.2f},"
             f" {confidence_level:.0%} interval {getattr(row, f'{view}_ratio_lower'):.2f} to"
-            f" {getattr(row, f'{view}_ratio_upper'):.2f}, q = {getattr(row, f'{view}_q_value'):.2g})"
+            f" {getattr(row, f'{view}_ratio_upper'):.2f})"
+        )
+    if math.isfinite(row.hazard_ratio):
+        parts.append(
+            f"its own scale gives {row.hazard_ratio:.2f} times the product's hazard ({confidence_level:.0%}"
+            f" interval {row.hazard_ratio_lower:.2f} to {row.hazard_ratio_upper:.2f})"
         )
     return (
-        f"product {row.product} build month {_month(row.build_month)} flagged ({row.reason}): "
-        + " and ".join(parts)
+        f"product {row.product} build month {_month(row.build_month)} flagged ({row.reason}; q = {row.month_q_value:.2g}): "
+        + ", ".join(parts)
         + _top_cause(top)
         + "; a statistical signal for engineers to review, not a finding"
     )
