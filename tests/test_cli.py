@@ -31,6 +31,7 @@ EXPECTED_FILES = {
     "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
     "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
+    "safety_term_claims.parquet",
 }
 
 
@@ -68,6 +69,12 @@ def test_demo_run_writes_every_output(demo_out):
     alerts = pd.read_parquet(demo_out / "build_month_alerts.parquet")
     assert set(alerts.loc[alerts["is_flagged"], "product"]) == {"QCP-140"}
     assert "alerts" in manifest["seconds_by_stage"]
+    # the demo's failure codes hold no safety term (its ten codes read by hand): the section says so
+    assert pd.read_parquet(demo_out / "safety_term_claims.parquet").empty
+    assert "## Claims mentioning safety-relevant terms" in report
+    assert "Terms searched in failure_code: overheat, smok, fire, burn, shock" in report
+    assert "No claim's failure code matched any of these terms." in report
+    assert not any("safety-relevant" in text for text in manifest["warnings"])
 
 
 def test_quarantine_is_exactly_the_planted_rows(demo_out):

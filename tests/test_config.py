@@ -181,3 +181,27 @@ def test_settings_round_trip_through_their_document(tmp_path):
     )
     assert all(parsed[name] == getattr(config, name) for name in SECTIONS)
     assert config.life_model.goodness_of_fit_warning_p_value == 0.01
+
+
+def test_safety_terms_default_custom_and_off(tmp_path):
+    # the default holds the five words as word beginnings (common practice, no source)
+    assert config_from(tmp_path, None).alerts.safety_terms == ("overheat", "smok", "fire", "burn", "shock")
+    custom = config_from(tmp_path, "[alerts]\nsafety_terms = ['Fire', 'SPARK', 'fire', 'Überhitz']\n")
+    assert custom.alerts.safety_terms == ("fire", "spark", "überhitz")  # lower case, each once, order kept
+    assert config_from(tmp_path, "[alerts]\nsafety_terms = []\n").alerts.safety_terms == ()  # the listing off
+
+
+@pytest.mark.parametrize(
+    "value",
+    [
+        "'fire'",  # not a list
+        "['fire', 3]",  # not text
+        "['']", "['ab']",  # too short: would match half the codes
+        "['" + "a" * 41 + "']",  # too long
+        "['over heat']", "['burn_mark']", "['fire1']",  # a separator or digit could never match a word
+        "[" + ", ".join(f"'term{chr(97 + i // 26)}{chr(97 + i % 26)}'" for i in range(51)) + "]",  # 51 terms
+    ],
+)
+def test_invalid_safety_terms_raise_config_error(tmp_path, value):
+    with pytest.raises(ConfigError, match=r"alerts\.safety_terms must be a list of at most 50 terms, each 3 to 40"):
+        config_from(tmp_path, f"[alerts]\nsafety_terms = {value}\n")

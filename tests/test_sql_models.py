@@ -706,3 +706,53 @@ def test_returns_by_build_month_and_code(con):
         ("A", d("2024-02"), "SEAL", 1),
         ("B", d("2024-01"), "FAN", 1),
     ]
+
+
+SAFETY_CLAIMS = {
+    "source_row_number": "bigint", "claim_id": "varchar", "product": "varchar", "build_month": "date",
+    "failure_date": "date", "claim_date": "date", "months_in_service": "integer", "failure_code": "varchar",
+    "status": "varchar", "is_return": "boolean", "cost": "decimal(18, 2)", "is_quarantined": "boolean",
+}
+SAFETY_TERMS = ["overheat", "smok", "fire", "burn", "shock"]  # the default of alerts.safety_terms
+
+
+def test_safety_term_claims(con):
+    claim = {"product": "A", "build_month": d("2024-01"), "status": "approved", "is_return": True,
+             "is_quarantined": False}
+    codes = {
+        1: "OVERHEATING", 2: "overheated", 3: "BURNT", 4: "BURN_MARK", 5: "SMOKE_SMELL", 6: "ELECTRIC_SHOCK",
+        7: "FIRMWARE_BUG",  # 'fire' is not where a word begins: FIRM...
+        8: "MISFIRE",  # ... nor inside a word
+        9: "Over-Heat",  # read from the word OVER with the '-' skipped: overheat
+        10: "SHOCK_THEN_FIRE",  # two terms, in the terms' order
+        11: None,  # no code
+        14: "SEAL_LEAK",
+        15: "2FIRE",  # digits separate words too
+        16: "MotorOverheat",  # one word (no separator): 'overheat' does not begin a word
+    }
+    table(con, "claims_assigned_to_sale_month_groups", SAFETY_CLAIMS, [
+        *({**claim, "source_row_number": row, "failure_code": code} for row, code in codes.items()),
+        {**claim, "source_row_number": 12, "failure_code": "FIRE", "is_quarantined": True},  # failed a check
+        {**claim, "source_row_number": 13, "failure_code": "FIRE_DAMAGE", "status": "rejected",
+         "is_return": False},  # listed whatever its status
+    ])
+    columns = "source_row_number, failure_code, status, is_return, matched_terms"
+    got = run(con, "outputs/safety_term_claims", columns, {"safety_terms": SAFETY_TERMS})
+    # expected rows: hand computation from the rule in the model's header
+    assert got == [
+        (1, "OVERHEATING", "approved", True, ["overheat"]),
+        (2, "overheated", "approved", True, ["overheat"]),
+        (3, "BURNT", "approved", True, ["burn"]),
+        (4, "BURN_MARK", "approved", True, ["burn"]),
+        (5, "SMOKE_SMELL", "approved", True, ["smok"]),
+        (6, "ELECTRIC_SHOCK", "approved", True, ["shock"]),
+        (9, "Over-Heat", "approved", True, ["overheat"]),
+        (10, "SHOCK_THEN_FIRE", "approved", True, ["fire", "shock"]),
+        (13, "FIRE_DAMAGE", "rejected", False, ["fire"]),
+        (15, "2FIRE", "approved", True, ["fire"]),
+    ]
+    # terms in any case are matched in lower case; an empty list lists nothing (hand computation)
+    assert run(con, "outputs/safety_term_claims", "source_row_number, matched_terms", {"safety_terms": ["Smok"]}) == [
+        (5, ["smok"]),
+    ]
+    assert run(con, "outputs/safety_term_claims", "source_row_number", {"safety_terms": []}) == []

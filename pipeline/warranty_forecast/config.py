@@ -88,6 +88,26 @@ def _statuses(value: Any) -> tuple[str, ...]:
     return tuple(dict.fromkeys(value))
 
 
+MAX_SAFETY_TERMS = 50
+SAFETY_TERM_LETTERS = (3, 40)  # a term's length in letters: shorter ones would match half the codes
+
+
+def _safety_terms(value: Any) -> tuple[str, ...]:
+    """Terms to look for in failure codes, kept lower case, each once. A code is split into words at every
+    character that is not a letter, so a term is letters only (a space, digit or '_' in it could never
+    match); an empty list turns the listing off."""
+    low, high = SAFETY_TERM_LETTERS
+    if (
+        not isinstance(value, list) or len(value) > MAX_SAFETY_TERMS
+        or any(not isinstance(t, str) or not low <= len(t) <= high or not t.lower().isalpha() for t in value)
+    ):
+        raise ValueError(
+            f"must be a list of at most {MAX_SAFETY_TERMS} terms, each {low} to {high} letters (no spaces,"
+            " digits or punctuation: codes are split into words at those); [] turns the listing off"
+        )
+    return tuple(dict.fromkeys(t.lower() for t in value))
+
+
 def _by_product(rule: Rule) -> Rule:
     """A table of product -> value, each value held to `rule`; kept as sorted (product, value) pairs."""
     def table_rule(value: Any) -> tuple[tuple[str, Any], ...]:
@@ -171,11 +191,16 @@ class LifeModelSettings:
 
 @dataclass(frozen=True)
 class AlertSettings:
-    """[alerts]: when a build month's returns are flagged against its product's baseline life model."""
+    """[alerts]: when a build month's returns are flagged against its product's baseline life model; which
+    failure codes are listed apart as mentioning safety-relevant terms."""
 
     early_life_months: int = _key(3, _integer(1, MAX_WARRANTY_MONTHS_LIMIT))  # the early-life view: MIS 1..K
     false_discovery_rate: float = _key(0.05, _number_in(0.0, 1.0, high_included=False))  # BH q at or below: significant
     min_ratio: float = _key(1.5, _number_in(1.0, math.inf, high_included=False))  # observed / expected at least this
+    # claims whose failure_code holds a term (any case), starting where one of the code's words starts
+    # (words: runs of letters; the separators between them skipped) are listed apart (safety_term_claims):
+    # "overheat" matches OVERHEATING, OVER_HEAT; "fire" matches FIRE, FIRED, NO_FIRE, not FIRMWARE or MISFIRE
+    safety_terms: tuple[str, ...] = _key(("overheat", "smok", "fire", "burn", "shock"), _safety_terms)
 
 
 @dataclass(frozen=True)

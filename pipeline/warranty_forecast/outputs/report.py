@@ -77,6 +77,7 @@ def render_report(
     quarantine: pd.DataFrame,
     warnings: list[str],
     build_month_causes: pd.DataFrame | None = None,
+    safety_term_claims: pd.DataFrame | None = None,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -187,6 +188,7 @@ def render_report(
             "",
         ]
     lines += ["", *_alert_lines(build_month_alerts), *_cause_lines(causes)]
+    lines += _safety_term_lines(safety_term_claims, manifest.settings.get("alerts", {}).get("safety_terms"))
     lines += ["", "## Data read", ""]
     lines += [_table(reconciliation), ""]
     facts = manifest.facts
@@ -267,6 +269,60 @@ def _cause_lines(causes: pd.DataFrame) -> list[str]:
         " product's returns in the unflagged build months; all codes in `build_month_causes.parquet`.",
         "",
         _table(shown),
+        "",
+    ]
+
+
+SAFETY_CLAIMS_SHOWN = 20  # newest claims listed in the report; all of them in safety_term_claims.parquet
+SAFETY_CAUTION = (
+    "A signal for qualified engineers, which may carry reporting duties under local product-safety"
+    " regulations; the pipeline does not assess safety. A match is a word in a failure code, not a finding,"
+    " and a hazard coded in other words is not caught."
+)
+
+
+def _safety_term_lines(claims: pd.DataFrame | None, terms: Any) -> list[str]:
+    """Claims whose failure code mentions a safety-relevant term: the caution, the terms searched, counts
+    per product and term, the newest claims (text from the data escaped here). No frame: no section."""
+    if claims is None:
+        return []
+    lines = ["## Claims mentioning safety-relevant terms", "", SAFETY_CAUTION, ""]
+    if terms is not None and not len(terms):
+        return lines + ["The listing is turned off (`alerts.safety_terms` is empty): no failure code was searched.", ""]
+    searched = "not recorded" if terms is None else ", ".join(markdown_text(term) for term in terms)
+    lines.append(
+        f"Terms searched in failure_code: {searched} (any case; a term matches from the start of one of the"
+        " code's words, separators skipped: 'fire' matches FIRE_DAMAGE, not FIRMWARE). Valid claims filed by the"
+        " as-of date, of every status and in or out of coverage; quarantined claims are not searched."
+    )
+    lines.append("")
+    if not len(claims):
+        return lines + ["No claim's failure code matched any of these terms.", ""]
+    by_term = claims[["product", "matched_terms"]].explode("matched_terms").rename(columns={"matched_terms": "term"})
+    counts = by_term.groupby(["product", "term"], sort=True).size().reset_index(name="claims")
+    newest = claims.sort_values(["claim_date", "source_row_number"], ascending=False, kind="stable")
+    shown = newest.head(SAFETY_CLAIMS_SHOWN)
+    listed = pd.DataFrame(
+        {
+            "claim_date": shown["claim_date"].astype(str),
+            "product": shown["product"],
+            "build_month": shown["build_month"].map(_month_text),
+            "claim_id": shown["claim_id"],
+            "failure_code": shown["failure_code"],
+            "status": shown["status"],
+            "counted_return": shown["is_return"].map(lambda v: "n/a" if pd.isna(v) else "yes" if v else "no"),
+            "matched_terms": shown["matched_terms"].map(lambda terms: ", ".join(str(t) for t in terms)),
+        }
+    )
+    return lines + [
+        f"{len(claims):,} claim{'s' if len(claims) != 1 else ''} matched; by product and term (a claim may"
+        " match several terms):",
+        "",
+        _table(_text_escaped(counts.assign(claims=counts["claims"].map(lambda v: f"{v:,}")))),
+        "",
+        f"Newest first, {len(shown):,} of {len(claims):,} (every one in `safety_term_claims.parquet`):",
+        "",
+        _table(_text_escaped(listed)),
         "",
     ]
 

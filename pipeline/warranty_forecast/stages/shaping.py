@@ -129,6 +129,7 @@ class ShapedData:
     fit_returns: pd.DataFrame
     returns_by_failure_mode: pd.DataFrame
     returns_by_build_month_and_code: pd.DataFrame
+    safety_term_claims: pd.DataFrame  # valid claims whose failure code mentions an alerts.safety_terms term
     fit_suspensions: pd.DataFrame
     age_in_service: pd.DataFrame
     cohort_summary: pd.DataFrame
@@ -142,13 +143,21 @@ class ShapedData:
 
     @property
     def warnings(self) -> tuple[str, ...]:
-        """Stale extracts (see DataFreshness) and sale-month groups with more returns than units."""
+        """Stale extracts (see DataFreshness), sale-month groups with more returns than units, and per product
+        the claims that mention safety-relevant terms."""
         texts = list(self.freshness.warnings())
         overfull = self.run_facts.get("groups_with_more_returns_than_units", 0)
         if overfull:
             texts.append(
                 f"{overfull} sale-month group(s) have more returns than units: check the shipments extract for"
                 " missing rows"
+            )
+        for product, claims in self.safety_term_claims.groupby("product", sort=True):
+            terms = sorted({term for matched in claims["matched_terms"] for term in matched})
+            texts.append(
+                f"product {product}: {len(claims)} claim{'s mention' if len(claims) != 1 else ' mentions'}"
+                f" safety-relevant terms ({', '.join(terms)}): listed in safety_term_claims.parquet; for"
+                " qualified engineers to review"
             )
         return tuple(texts)
 
@@ -249,6 +258,7 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
         "default_warranty_months": config.warranty.default_months,
         "counted_statuses": list(config.claims.counted_statuses),
         "cost_window_months": config.reserve.cost_window_months,
+        "safety_terms": list(config.alerts.safety_terms),
         "shipments_file": os.path.abspath(config.shipments_path),
         "claims_file": os.path.abspath(config.claims_path),
     })
