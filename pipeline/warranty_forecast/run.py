@@ -97,7 +97,14 @@ def run_nightly(config: RunConfig) -> RunResult:
     figures = clock.run(
         "charts",
         lambda: {
-            "return_rate_heatmap": charts.return_rate_heatmap(shaped.age_in_service),
+            "return_rate_heatmap": charts.return_rate_heatmap(
+                shaped.fit_returns, shaped.fit_suspensions,
+                {product: baseline.fit for product, baseline in alerts.baselines.items()},
+            ),
+            "observed_to_expected_by_build_month": charts.observed_to_expected_by_build_month(alerts),
+            "cumulative_returns_per_unit": charts.cumulative_returns_per_unit(
+                shaped.fit_returns, shaped.fit_suspensions, alerts
+            ),
             "weibull_probability_plot": charts.weibull_probability_plot(
                 life_table_by_month,
                 {product: fit.fit for product, fit in lives.products.items()},

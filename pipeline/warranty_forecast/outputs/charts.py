@@ -1,18 +1,26 @@
 """Static charts of a run. Functions return matplotlib Figures built without pyplot (no global state,
 no backend chosen at import, nothing to close); the publisher saves them as PNG.
 
-No fitting or file I/O happens here: every chart draws tables computed by the statistics stages.
+No fitting or file I/O happens here: the charts draw tables computed by the statistics stages, and the
+build-month charts add only arithmetic on the shaped tables (unit-months of exposure per month in
+service, rates, and expected returns from a baseline's `cdf`) in small pure functions
+(`exposure_by_month_in_service`, `return_rate_cells`) that are tested on their own.
 """
 
 from __future__ import annotations
 
 import math
-from typing import Mapping, Protocol
+from typing import Iterable, Mapping, Protocol
 
 import numpy as np
 import pandas as pd
+from matplotlib import colormaps
 from matplotlib.axes import Axes
+from matplotlib.collections import PatchCollection
+from matplotlib.colors import LogNorm, Normalize
 from matplotlib.figure import Figure
+from matplotlib.patches import Rectangle
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.outputs.safe_text import chart_text
@@ -36,29 +44,513 @@ def _grid(count: int, width: float = 5.0, height: float = 4.2) -> tuple[Figure, 
     return figure, axes
 
 
-def return_rate_heatmap(age_in_service: pd.DataFrame) -> Figure:
-    """Returns per 1,000 units at risk, by build month (rows) and months in service (columns), per product."""
-    products = sorted(age_in_service["product"].unique())
-    figure, axes = _grid(len(products), width=5.2, height=5.0)
-    for axis, product in zip(axes.flat, products):
-        rows = age_in_service[(age_in_service["product"] == product) & (age_in_service["units_at_risk"] > 0)]
-        matrix = rows.pivot_table(
-            index="build_month", columns="months_in_service", values="return_rate", aggfunc="sum"
-        ).sort_index()
-        values = np.ma.masked_invalid(matrix.to_numpy(dtype=float) * _PER_THOUSAND)
-        image = axis.imshow(values, aspect="auto", interpolation="nearest", cmap="magma_r", origin="upper")
-        axis.set_title(f"{chart_text(product)}: returns per 1,000 at risk")
-        axis.set_xlabel("months in service")
-        axis.set_ylabel("build month")
-        columns = matrix.columns.to_numpy()
-        x_step = max(1, len(columns) // 8)
-        axis.set_xticks(np.arange(0, len(columns), x_step), [str(c) for c in columns[::x_step]])
-        labels = [f"{m:%Y-%m}" for m in matrix.index]
-        y_step = max(1, len(labels) // 12)
-        axis.set_yticks(np.arange(0, len(labels), y_step), labels[::y_step])
-        figure.colorbar(image, ax=axis, shrink=0.8)
-    figure.suptitle("Return rate by build month and months in service")
+# -- return rates and O/E by build month and month in service ------------------------------------------
+
+MIN_EXPOSURE_UNIT_MONTHS = 100.0
+"""Cells with less exposure than this are not coloured (drawn hatched grey): at about one return per 1,000
+unit-months, 100 unit-months expect 0.1 returns, so one return more or less swings the cell's rate by
+10 per 1,000 (common practice, no source: a floor on the denominator of a rate map)."""
+
+MIN_EXPECTED_RETURNS = 3.0
+"""Observed / expected cells whose baseline expects fewer returns than this are not coloured either: a
+cell's ratio is a Poisson count over E, so with E = 1 no return at all (ratio 0, the end colour) happens
+in 37% of cells by chance; from E = 3 on it happens in under 5% (exp(-3)) (common practice, no source).
+The returns of such cells are still in the rate panel above."""
+
+OBSERVED_TO_EXPECTED_COLOUR_LIMIT = 10.0
+"""The O/E colour scale runs from 1/10 to 10 on a log scale, the same in every panel; ratios beyond take
+the end colours (a cell with no returns where some were expected takes the lower end)."""
+
+_SALE_MONTH_GROUP = ["product", "build_month", "sale_month", "warranty_months"]
+_CELL = ["product", "build_month", "months_in_service"]
+
+RETURN_RATE_CELL_COLUMNS = (
+    "product",
+    "build_month",
+    "months_in_service",
+    "returns",
+    "exposure_unit_months",
+    "rate_per_1000_unit_months",
+    "expected_returns",
+    "observed_to_expected",
+    "is_thin",
+    "is_ratio_thin",
+)
+
+
+def _row_months(fit_suspensions: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each fit_suspensions row spread over the months in service it was observed in: the row index, the
+    month k (1-based) and the fraction of month k observed, clip(observed_age - (k - 1), 0, 1) > 0."""
+    ages = np.nan_to_num(fit_suspensions["observed_age_months"].to_numpy(dtype=float), nan=0.0)
+    months = np.ceil(np.clip(ages, 0.0, None)).astype(np.int64)
+    row = np.repeat(np.arange(len(ages)), months)
+    first = np.repeat(np.cumsum(months) - months, months)
+    k = np.arange(len(row)) - first + 1
+    fraction = np.clip(ages[row] - (k - 1), 0.0, 1.0)
+    return row, k, fraction
+
+
+def _share_at_risk(
+    fit_suspensions: pd.DataFrame, fit_returns: pd.DataFrame | None, row: np.ndarray, k: np.ndarray
+) -> np.ndarray:
+    """For each (row, k): the share of the row's units not yet returned at the start of month k, 1 - R_<k / U,
+    where R_<k is its sale-month group's returns in months before k and U the group's units (the returns
+    are known per group, not per row, so they are shared in proportion to units, as age_in_service does)."""
+    if fit_returns is None or not len(fit_returns) or not len(row):
+        return np.ones(len(row))
+    groups = pd.MultiIndex.from_frame(fit_suspensions[_SALE_MONTH_GROUP])
+    codes, uniques = pd.factorize(groups)
+    group_units = np.bincount(codes, weights=fit_suspensions["units"].to_numpy(dtype=float), minlength=len(uniques))
+    returned_group = uniques.get_indexer(pd.MultiIndex.from_frame(fit_returns[_SALE_MONTH_GROUP]))
+    returned_month = fit_returns["months_in_service"].to_numpy(dtype=np.int64)
+    width = int(max(k.max(), returned_month.max(initial=0)))
+    by_month = np.zeros((len(uniques), width + 1))
+    kept = (returned_group >= 0) & (returned_month >= 1)
+    np.add.at(by_month, (returned_group[kept], returned_month[kept]), fit_returns["returns"].to_numpy(dtype=float)[kept])
+    before = np.cumsum(by_month, axis=1) - by_month  # column k: returns in months 1 .. k-1
+    units = group_units[codes[row]]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(units > 0, 1.0 - before[codes[row], k] / np.where(units > 0, units, 1.0), 0.0)
+    return np.clip(share, 0.0, 1.0)
+
+
+def exposure_by_month_in_service(
+    fit_suspensions: pd.DataFrame, fit_returns: pd.DataFrame | None = None
+) -> pd.DataFrame:
+    """Unit-months of exposure per product x build month x month in service k (columns product,
+    build_month, months_in_service, exposure_unit_months; only cells with exposure):
+
+        exposure_k = sum over fit_suspensions rows of  units x (1 - R_<k / U) x clip(a - (k - 1), 0, 1)
+
+    a the row's observed age in months: a unit observed to age 2.5 adds 1 unit-month to months 1 and 2 and
+    half a unit-month to month 3, so the newest month of a build month is not divided by its full units.
+    With `fit_returns`, units returned before month k leave the exposure (R_<k / U: the sale-month group's
+    returns before k over its units, shared among its rows in proportion to units, as age_in_service
+    does); without it nothing is subtracted. The units returned in month k itself count for the whole
+    month (the actuarial convention would count half): this overstates the exposure by half the month's
+    returns, 0.05% at a rate of one return per 1,000 unit-months.
+    """
+    if not len(fit_suspensions):
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in _CELL}).assign(exposure_unit_months=pd.Series(dtype=float))
+    row, k, fraction = _row_months(fit_suspensions)
+    units = fit_suspensions["units"].to_numpy(dtype=float)[row]
+    exposure = units * _share_at_risk(fit_suspensions, fit_returns, row, k) * fraction
+    cells = pd.DataFrame({
+        "product": fit_suspensions["product"].to_numpy()[row],
+        "build_month": fit_suspensions["build_month"].to_numpy()[row],
+        "months_in_service": k,
+        "exposure_unit_months": exposure,
+    })
+    return cells.groupby(_CELL, as_index=False, sort=True)["exposure_unit_months"].sum()
+
+
+def return_rate_cells(
+    fit_returns: pd.DataFrame,
+    fit_suspensions: pd.DataFrame,
+    baselines: Mapping[str, LifeCurve | None] | None = None,
+) -> pd.DataFrame:
+    """The heat map's numbers, one row per product x build month x month in service with exposure or
+    returns (RETURN_RATE_CELL_COLUMNS):
+
+        rate_per_1000_unit_months = 1,000 x returns_k / exposure_k      (see exposure_by_month_in_service)
+        expected_returns          = sum over rows with a > k - 1 of  units x (F(min(a, k)) - F(k - 1))
+        observed_to_expected      = returns_k / expected_returns
+
+    F is the product's baseline in `baselines` (any object with `cdf`; NaN without one). units x (F(min(a,
+    k)) - F(k - 1)) is the expected number of the row's units that fail in month k within their
+    observation window, so the cells of a build month add up to the alert stage's whole-window expected
+    returns (sum of units x F(a)). The rate is NaN without exposure, the ratio NaN when nothing is expected.
+    is_thin: exposure below MIN_EXPOSURE_UNIT_MONTHS (not coloured on the chart); is_ratio_thin: is_thin,
+    or fewer than MIN_EXPECTED_RETURNS expected, or no ratio (its cell is not coloured either).
+    """
+    baselines = baselines or {}
+    exposure = exposure_by_month_in_service(fit_suspensions, fit_returns)
+    if len(fit_suspensions):
+        row, k, fraction = _row_months(fit_suspensions)
+        products = fit_suspensions["product"].to_numpy()[row]
+        units = fit_suspensions["units"].to_numpy(dtype=float)[row]
+        expected = np.full(len(row), np.nan)
+        for product in pd.unique(products):
+            curve = baselines.get(product)
+            if curve is None:
+                continue
+            at = products == product
+            start = (k[at] - 1).astype(float)
+            expected[at] = units[at] * (np.asarray(curve.cdf(start + fraction[at]), dtype=float)
+                                        - np.asarray(curve.cdf(start), dtype=float))
+        expected_cells = pd.DataFrame({
+            "product": products, "build_month": fit_suspensions["build_month"].to_numpy()[row],
+            "months_in_service": k, "expected_returns": expected,
+        }).groupby(_CELL, as_index=False, sort=True)["expected_returns"].sum(min_count=1)
+        exposure = exposure.merge(expected_cells, on=_CELL, how="left")
+    else:
+        exposure = exposure.assign(expected_returns=pd.Series(dtype=float))
+    returned = (
+        fit_returns.groupby(_CELL, as_index=False, sort=True)["returns"].sum()
+        if len(fit_returns) else pd.DataFrame({c: pd.Series(dtype=object) for c in _CELL}).assign(returns=0.0)
+    )
+    returned["months_in_service"] = returned["months_in_service"].astype(np.int64)
+    exposure["months_in_service"] = exposure["months_in_service"].astype(np.int64)
+    cells = exposure.merge(returned, on=_CELL, how="outer").sort_values(_CELL, ignore_index=True)
+    cells["returns"] = cells["returns"].fillna(0.0).astype(float)
+    cells["exposure_unit_months"] = cells["exposure_unit_months"].fillna(0.0)
+    exposure_values = cells["exposure_unit_months"].to_numpy(dtype=float)
+    returns = cells["returns"].to_numpy(dtype=float)
+    expected = cells["expected_returns"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cells["rate_per_1000_unit_months"] = np.where(
+            exposure_values > 0, _PER_THOUSAND * returns / np.where(exposure_values > 0, exposure_values, 1.0), np.nan
+        )
+        cells["observed_to_expected"] = np.where(expected > 0, returns / np.where(expected > 0, expected, 1.0), np.nan)
+    cells["is_thin"] = exposure_values < MIN_EXPOSURE_UNIT_MONTHS
+    cells["is_ratio_thin"] = cells["is_thin"] | ~(np.nan_to_num(expected) >= MIN_EXPECTED_RETURNS)
+    return cells[list(RETURN_RATE_CELL_COLUMNS)]
+
+
+def return_rate_heatmap(
+    fit_returns: pd.DataFrame,
+    fit_suspensions: pd.DataFrame,
+    baselines: Mapping[str, LifeCurve | None] | None = None,
+) -> Figure:
+    """Per product, by build month (rows, oldest at the top) and month in service (columns): returns per
+    1,000 unit-months of exposure (top panel, "viridis", linear, topped at the panel's 99th percentile),
+    and, when `baselines` is given, observed / expected returns against the product's baseline (bottom
+    panel, "RdBu_r" on a log scale centred on 1, from 1/OBSERVED_TO_EXPECTED_COLOUR_LIMIT to the limit).
+    Numbers from `return_rate_cells`: the newest month of each build month is divided by the unit-months
+    it was actually observed for, not by its full units. Cells with less than MIN_EXPOSURE_UNIT_MONTHS
+    are hatched grey (not coloured), and so are ratio cells expecting fewer than MIN_EXPECTED_RETURNS;
+    cells not yet observed are blank; a build month with no units is a blank row. The ratio row shows what the raw rates hide for a wear-out product (late-life cells are
+    always dark): which build months return more than the baseline expects at the same age."""
+    cells = return_rate_cells(fit_returns, fit_suspensions, baselines)
+    products = _products(fit_returns, fit_suspensions)
+    if not products:
+        return _message_figure("no units in service: no return rates to show")
+    with_ratio = baselines is not None
+    figure, panels = _panel_grid(len(products), 2 if with_ratio else 1, width=5.8, height=5.6)
+    for product, axes in zip(products, panels):
+        rows = cells[cells["product"] == product]
+        rate_axis = axes[0]
+        ratio_axis = axes[1] if with_ratio else None
+        if not (rows["exposure_unit_months"] > 0).any():
+            for axis in axes:
+                _panel_message(axis, f"{chart_text(product)}", "no units observed in service yet")
+            continue
+        grid = _cell_grid(rows)
+        rate = np.ma.masked_where(grid["thin"] | ~np.isfinite(grid["rate"]), grid["rate"])
+        shown = rate.compressed()
+        top = float(np.percentile(shown, 99)) if len(shown) else 1.0
+        top = top if top > 0 else max(float(shown.max(initial=0.0)), 1.0)
+        image = rate_axis.imshow(
+            rate, aspect="auto", interpolation="nearest", cmap="viridis", norm=Normalize(0.0, top), origin="upper"
+        )
+        figure.colorbar(image, ax=rate_axis, shrink=0.85, extend="max" if shown.max(initial=0.0) > top else "neither",
+                        label="returns per 1,000 unit-months")
+        rate_axis.set_title(f"{chart_text(product)}: returns per 1,000 unit-months")
+        _dress_cell_axes(rate_axis, grid, grid["thin"])
+        if ratio_axis is None:
+            continue
+        if baselines.get(product) is None:
+            _panel_message(ratio_axis, f"{chart_text(product)}", "no baseline life model: no observed / expected")
+            continue
+        limit = OBSERVED_TO_EXPECTED_COLOUR_LIMIT
+        ratio = np.where(grid["ratio"] == 0.0, 1.0 / (2.0 * limit), grid["ratio"])  # none returned: the lower end
+        ratio = np.ma.masked_where(grid["ratio_thin"] | ~np.isfinite(ratio), ratio)
+        image = ratio_axis.imshow(
+            ratio, aspect="auto", interpolation="nearest", cmap="RdBu_r", norm=LogNorm(1.0 / limit, limit),
+            origin="upper",
+        )
+        bar = figure.colorbar(image, ax=ratio_axis, shrink=0.85, extend="both",
+                              label="observed / expected returns (log scale)")
+        ticks = [t for t in (0.1, 0.2, 0.5, 1, 2, 5, 10) if 1.0 / limit <= t <= limit]
+        bar.set_ticks(ticks, labels=[f"{t:g}" for t in ticks])
+        ratio_axis.set_title(f"{chart_text(product)}: observed / expected (baseline)")
+        _dress_cell_axes(ratio_axis, grid, grid["ratio_thin"])
+    figure.suptitle(
+        "Returns by build month and months in service\n"
+        f"hatched grey, not coloured: under {MIN_EXPOSURE_UNIT_MONTHS:,.0f} unit-months of exposure"
+        + (f" (observed / expected: or under {MIN_EXPECTED_RETURNS:g} expected returns)" if with_ratio else "")
+        + "; blank: not yet observed at that age"
+    )
     figure.tight_layout()
+    return figure
+
+
+def _cell_grid(rows: pd.DataFrame) -> dict[str, np.ndarray]:
+    """One product's cells as build month x month in service arrays (every calendar month from the first
+    to the last build month, so rows are evenly spaced in time)."""
+    months = _month_numbers(rows["build_month"])
+    first, last = int(months.min()), int(months.max())
+    width = int(rows["months_in_service"].max())
+    shape = (last - first + 1, width)
+    i = months - first
+    j = rows["months_in_service"].to_numpy(dtype=np.int64) - 1
+    grid = {name: np.full(shape, np.nan) for name in ("rate", "ratio", "exposure")}
+    grid["rate"][i, j] = rows["rate_per_1000_unit_months"].to_numpy(dtype=float)
+    grid["ratio"][i, j] = rows["observed_to_expected"].to_numpy(dtype=float)
+    grid["exposure"][i, j] = rows["exposure_unit_months"].to_numpy(dtype=float)
+    observed = np.zeros(shape, dtype=bool)
+    observed[i, j] = (rows["exposure_unit_months"].to_numpy(dtype=float) > 0) | (rows["returns"].to_numpy(dtype=float) > 0)
+    ratio_thin = np.zeros(shape, dtype=bool)
+    ratio_thin[i, j] = rows["is_ratio_thin"].to_numpy(dtype=bool)
+    grid["thin"] = observed & ~(np.nan_to_num(grid["exposure"]) >= MIN_EXPOSURE_UNIT_MONTHS)
+    grid["ratio_thin"] = observed & ratio_thin
+    grid["first_month"] = np.array(first)
+    return grid
+
+
+def _dress_cell_axes(axis: Axes, grid: dict[str, np.ndarray], thin: np.ndarray) -> None:
+    """Hatch the `thin` cells, label both axes, YYYY-MM ticks on the build months."""
+    thin_rows, thin_columns = np.nonzero(thin)
+    if len(thin_rows):
+        axis.add_collection(PatchCollection(
+            [Rectangle((j - 0.5, i - 0.5), 1.0, 1.0) for i, j in zip(thin_rows, thin_columns)],
+            facecolor="#e6e6e6", edgecolor="#8c8c8c", hatch="////", linewidth=0.0, label="thin",
+        ))
+    count, width = grid["thin"].shape
+    axis.set_xlabel("months in service")
+    axis.set_ylabel("build month")
+    step = 1 if width <= 12 else 3 if width <= 36 else 6
+    columns = [c for c in range(1, width + 1) if c == 1 or c % step == 0]
+    axis.set_xticks([c - 1 for c in columns], [str(c) for c in columns])
+    first = int(grid["first_month"])
+    numbers, labels = _month_ticks(first, first + count - 1)
+    axis.set_yticks([n - first for n in numbers], labels, fontsize=7)
+    axis.set_xlim(-0.5, width - 0.5)
+    axis.set_ylim(count - 0.5, -0.5)
+
+
+def observed_to_expected_by_build_month(alerts: BuildMonthAlertsLike | pd.DataFrame) -> Figure:
+    """Observed / expected returns by build month per product (columns), from the alert stage's table
+    (`alerts`: its BuildMonthAlerts or the build_month_alerts table): the whole-window view in the top row
+    and the early-life view (the first early_life_months months in service) in the row below, each ratio
+    with its exact (Garwood) interval as an error bar, a dashed reference line at 1, and the flagged
+    months (flagged in either view) as red diamonds labelled YYYY-MM in both rows.
+
+    Log y-axis. A month with no expected returns (E = 0: ratio and bounds NaN) is not drawn. A month with
+    no returns (O = 0: ratio and lower bound 0) is drawn as an open triangle at the bottom of the axis with
+    its upper bound; a lower bound below the axis is cut at the bottom.
+    """
+    table = getattr(alerts, "table", alerts)
+    products = sorted(table["product"].unique()) if len(table) else []
+    if not products:
+        return _message_figure("no build month was checked: no product has a baseline life model")
+    figure, panels = _panel_grid(len(products), 2, width=5.8, height=4.2)
+    for product, (window_axis, early_axis) in zip(products, panels):
+        rows = table[table["product"] == product].sort_values("build_month")
+        months = _month_numbers(rows["build_month"])
+        flagged = rows["is_flagged"].to_numpy(dtype=bool)
+        early_months = int(rows["early_life_months"].iloc[0])
+        for axis, view, words in (
+            (window_axis, "window", "whole observation window"),
+            (early_axis, "early", f"first {early_months} months in service"),
+        ):
+            axis.set_title(f"{chart_text(product)}: {words}")
+            _draw_ratio_view(axis, months, rows, view, flagged)
+    figure.suptitle("Observed / expected returns by build month, against each product's baseline (exact intervals)")
+    figure.tight_layout()
+    return figure
+
+
+def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: str, flagged: np.ndarray) -> None:
+    ratio = rows[f"{view}_ratio"].to_numpy(dtype=float)
+    lower = rows[f"{view}_ratio_lower"].to_numpy(dtype=float)
+    upper = rows[f"{view}_ratio_upper"].to_numpy(dtype=float)
+    expected = rows[f"{view}_expected_returns"].to_numpy(dtype=float)
+    drawn = np.isfinite(ratio) & (expected > 0)
+    if not drawn.any():
+        axis.text(0.5, 0.5, "no build month with expected returns", ha="center", va="center", transform=axis.transAxes)
+        axis.set_xticks([])
+        axis.set_yticks([])
+        return
+    zero = drawn & (ratio <= 0)
+    positive = drawn & (ratio > 0)
+    lows = np.concatenate([ratio[positive], lower[positive & (lower > 0)]])
+    floor = max(min(float(lows.min()) if len(lows) else 1.0, 1.0) / 2.0, 1e-3)
+    highs = np.concatenate([ratio[positive], upper[drawn & np.isfinite(upper)]])
+    ceiling = max(float(highs.max()) * 2.5, 2.0)
+    style = {"markersize": 3.5, "linestyle": "none", "elinewidth": 0.8}
+    for where, kwargs in (
+        (positive & ~flagged, {"fmt": "o", "color": "#1b4965", "ecolor": "#9fb7c9", "label": "build month (exact interval)"}),
+        (positive & flagged, {"fmt": "D", "color": "#c0392b", "ecolor": "#c0392b", "markersize": 5.5,
+                              "label": "flagged build month"}),
+    ):
+        if where.any():
+            y = ratio[where]
+            axis.errorbar(months[where], y, yerr=np.vstack([y - np.maximum(lower[where], floor), upper[where] - y]),
+                          **{**style, **kwargs})
+    if zero.any():
+        y = np.full(zero.sum(), floor)
+        axis.errorbar(months[zero], y, yerr=np.vstack([np.zeros_like(y), upper[zero] - y]), fmt="v",
+                      markerfacecolor="white", color="#1b4965", ecolor="#9fb7c9",
+                      **{**style, "label": "no returns (drawn at the bottom)"})
+    for month, value in zip(months[flagged & drawn], np.where(ratio > 0, ratio, floor)[flagged & drawn]):
+        axis.annotate(_month_label(int(month)), (month, value), xytext=(5, 0), textcoords="offset points",
+                      ha="left", va="center", fontsize=7.5, color="#c0392b",
+                      bbox={"boxstyle": "round,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.8})
+    axis.axhline(1.0, color="#4d4d4d", linestyle="--", linewidth=0.9, label="as expected (1)")
+    axis.set_yscale("log")
+    axis.set_ylim(floor / 1.25, ceiling)
+    axis.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+    axis.yaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
+    axis.yaxis.set_minor_formatter(NullFormatter())
+    axis.set_ylabel("observed / expected returns (log scale)")
+    axis.set_xlabel("build month")
+    numbers, labels = _month_ticks(int(months.min()), int(months.max()))
+    axis.set_xticks(numbers, labels, rotation=90, fontsize=7)
+    axis.set_xlim(months.min() - 1, months.max() + 1)
+    axis.grid(True, axis="y", which="major", alpha=0.3)
+    axis.legend(fontsize=7, loc="upper left")
+
+
+def cumulative_returns_per_unit(
+    fit_returns: pd.DataFrame,
+    fit_suspensions: pd.DataFrame,
+    flagged: BuildMonthAlertsLike | pd.DataFrame | Iterable[tuple[str, object]],
+) -> Figure:
+    """Per product, one line per build month: cumulative returns per 1,000 units against months in
+    service; unflagged months thin and grey, flagged months coloured, thick and in the legend.
+
+    Estimator: the cumulative hazard, 1,000 x sum over months k of returns_k / exposure_k, with exposure_k
+    the unit-months observed in month k (`exposure_by_month_in_service`, units returned earlier taken
+    out). Each month's rate is divided only by the units observed at that age, so a young build month
+    whose units are still being sold and aged reads the same as an old one with the same life; returns
+    over all units would read low for it. While returns are a small share of the units the cumulative
+    hazard H equals cumulative returns per unit (the fraction failed is 1 - exp(-H)). A build month's line
+    ends before its first month in service with less than MIN_EXPOSURE_UNIT_MONTHS (the rate on a few
+    unit-months would throw the sum).
+
+    `flagged`: the build months to pick out, as the alert stage's BuildMonthAlerts, its table (rows with
+    is_flagged), or an iterable of (product, build_month) pairs.
+    """
+    cells = return_rate_cells(fit_returns, fit_suspensions)
+    picked = _flagged_keys(flagged)
+    products = _products(fit_returns, fit_suspensions)
+    if not products:
+        return _message_figure("no units in service: no cumulative returns to show")
+    figure, axes = _grid(len(products), width=5.6, height=4.6)
+    palette = [colormaps["tab10"](i) for i in (3, 0, 1, 2, 4, 5, 6, 8, 9)]  # tab10 without its grey
+    for axis, product in zip(axes.flat, products):
+        rows = cells[cells["product"] == product]
+        others, lines = 0, 0
+        for build_month, month_rows in rows.groupby("build_month", sort=True):
+            months, cumulative = _cumulative_hazard(month_rows)
+            if len(months) < 2:
+                continue
+            key = (str(product), int(_month_numbers([build_month])[0]))
+            if key in picked:
+                axis.plot(months, cumulative, color=palette[lines % len(palette)], linewidth=2.4, zorder=3,
+                          label=f"{_month_label(key[1])} (flagged)")
+                lines += 1
+            else:
+                axis.plot(months, cumulative, color="#9a9a9a", linewidth=0.7, alpha=0.7, zorder=2)
+                others += 1
+        if not lines and not others:
+            axis.text(0.5, 0.5, "no build month with enough exposure", ha="center", va="center",
+                      transform=axis.transAxes)
+        if others:
+            axis.plot([], [], color="#9a9a9a", linewidth=0.7, label=f"other build months ({others})")
+        axis.set_title(chart_text(product))
+        axis.set_xlabel("months in service")
+        axis.set_ylabel("cumulative returns per 1,000 units")
+        axis.set_xlim(left=0)
+        axis.set_ylim(bottom=0)
+        axis.grid(True, alpha=0.3)
+        if lines or others:
+            axis.legend(fontsize=7, loc="upper left")
+    figure.suptitle("Cumulative returns per 1,000 units by build month (cumulative hazard on unit-months observed)")
+    figure.tight_layout()
+    return figure
+
+
+def _cumulative_hazard(month_rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(0, 1, .., m) and 1,000 x the running sum of returns_k / exposure_k, m the last month in service
+    before the first with less than MIN_EXPOSURE_UNIT_MONTHS."""
+    by_month = month_rows.set_index("months_in_service")
+    last = int(by_month.index.max())
+    exposure = by_month["exposure_unit_months"].reindex(range(1, last + 1), fill_value=0.0).to_numpy(dtype=float)
+    returns = by_month["returns"].reindex(range(1, last + 1), fill_value=0.0).to_numpy(dtype=float)
+    thin = np.flatnonzero(exposure < MIN_EXPOSURE_UNIT_MONTHS)
+    usable = int(thin[0]) if len(thin) else last
+    rate = returns[:usable] / exposure[:usable]
+    return np.arange(usable + 1), np.concatenate([[0.0], _PER_THOUSAND * np.cumsum(rate)])
+
+
+class BuildMonthAlertsLike(Protocol):
+    """The alert stage's result as the charts use it: its table."""
+
+    table: pd.DataFrame
+
+
+def _flagged_keys(flagged: object) -> set[tuple[str, int]]:
+    """(product, month number) of the flagged build months, from BuildMonthAlerts, its table or pairs."""
+    table = getattr(flagged, "table", flagged)
+    if isinstance(table, pd.DataFrame):
+        if "is_flagged" in table.columns:
+            table = table[table["is_flagged"].astype(bool)]
+        pairs = list(zip(table["product"], table["build_month"]))
+    else:
+        pairs = list(table)  # type: ignore[call-overload]
+    if not pairs:
+        return set()
+    numbers = _month_numbers([month for _, month in pairs])
+    return {(str(product), int(number)) for (product, _), number in zip(pairs, numbers)}
+
+
+def _products(*tables: pd.DataFrame) -> list[str]:
+    """Every product of the tables, sorted (a product with no units in service still gets its panel)."""
+    return sorted({product for table in tables for product in table["product"].unique()})
+
+
+def _month_numbers(values: Iterable[object]) -> np.ndarray:
+    """Build months as year x 12 + month - 1 (consecutive months are consecutive integers)."""
+    stamps = pd.to_datetime(pd.Series(list(values), dtype=object))
+    return (stamps.dt.year * 12 + stamps.dt.month - 1).to_numpy(dtype=np.int64)
+
+
+def _month_label(number: int) -> str:
+    return f"{number // 12:04d}-{number % 12 + 1:02d}"
+
+
+def _month_ticks(first: int, last: int) -> tuple[list[int], list[str]]:
+    """Month numbers to label between first and last and their YYYY-MM labels: every month up to 24
+    months, else January, April, July and October (up to 6 years), January and July (up to 12), January."""
+    count = last - first + 1
+    months_shown = (
+        range(12) if count <= 24 else (0, 3, 6, 9) if count <= 72 else (0, 6) if count <= 144 else (0,)
+    )
+    numbers = [n for n in range(first, last + 1) if n % 12 in months_shown]
+    return numbers, [_month_label(n) for n in numbers]
+
+
+def _panel_grid(count: int, rows_per_product: int, width: float, height: float) -> tuple[Figure, list[list[Axes]]]:
+    """Products side by side (at most 3 to a row of products), each with `rows_per_product` panels stacked."""
+    columns = min(max(count, 1), 3)
+    blocks = max(1, math.ceil(count / columns))
+    figure = Figure(figsize=(width * columns, height * rows_per_product * blocks))
+    axes = figure.subplots(rows_per_product * blocks, columns, squeeze=False)
+    panels = [
+        [axes[(i // columns) * rows_per_product + r, i % columns] for r in range(rows_per_product)]
+        for i in range(count)
+    ]
+    used = {id(axis) for panel in panels for axis in panel}
+    for axis in axes.flat:
+        if id(axis) not in used:
+            axis.set_visible(False)
+    return figure, panels
+
+
+def _panel_message(axis: Axes, title: str, text: str) -> None:
+    axis.set_title(title)
+    axis.text(0.5, 0.5, text, ha="center", va="center", transform=axis.transAxes)
+    axis.set_xticks([])
+    axis.set_yticks([])
+
+
+def _message_figure(text: str) -> Figure:
+    figure = Figure(figsize=(8, 3))
+    axis = figure.subplots()
+    axis.text(0.5, 0.5, text, ha="center", va="center")
+    axis.set_axis_off()
     return figure
 
 
