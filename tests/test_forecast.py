@@ -89,3 +89,21 @@ def test_bearing_cage_prediction_of_new_failures_in_300_hours():
     fit = Fitter(WEIBULL, min_returns=1).fit(data)
     value = expected_failures_within(fit, data.suspension_ages, data.suspension_counts, 300.0)
     assert value == pytest.approx(ref.BEARING_NEW_FAILURES_300H, abs=5e-4)
+
+
+def test_a_flagged_build_month_is_forecast_with_its_own_model_and_the_others_with_the_products():
+    # two build months of one product; the second has its own life (e.g. a flagged month): its rows must
+    # be exactly what its model alone gives, the first month's exactly what the product's model gives
+    january, february = dt.date(2024, 1, 1), dt.date(2024, 2, 1)
+    rows = pd.concat([suspension_rows(), suspension_rows(build_month=february, sale_month=february)], ignore_index=True)
+    product, own = Weibull(1.0, 50.0), Weibull(1.0, 10.0)
+    detail = expected_future_returns(rows, {"P": product}, {("P", february): own})
+    alone = expected_future_returns(rows[rows["build_month"] == february], {"P": own})
+    plain = expected_future_returns(rows[rows["build_month"] == january], {"P": product})
+    by_month = detail.groupby("build_month")["expected_returns"].sum()
+    assert by_month[february] == pytest.approx(alone["expected_returns"].sum(), rel=1e-15)
+    assert by_month[january] == pytest.approx(plain["expected_returns"].sum(), rel=1e-15)
+    # memoryless closed form (common practice, no source): 1000 (1 - exp(-2.5 / 10)) for the own life
+    assert by_month[february] == pytest.approx(1000 * -np.expm1(-2.5 / 10), rel=1e-12)
+    # a month model for a product without a model forecasts nothing (the product is reported as such)
+    assert expected_future_returns(rows, {}, {("P", february): own}).empty

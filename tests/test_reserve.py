@@ -99,3 +99,25 @@ def test_book_reserve_prices_the_forecast_and_totals_what_it_books():
         "product A: no cost per claim (none: no counted return to price; set reserve.cost_per_claim);"
         " its reserve is empty",
     )
+
+
+def test_the_reserve_a_flagged_month_adds_is_its_excess_over_the_product_model_priced():
+    # hand computation: JAN expects 6 returns with its own life against 2 under the product's model, at the
+    # window mean cost 50 (claim_costs: product A): reserve 300, of which (6 - 2) x 50 = 200 added by its
+    # own life; FEB has no own life (equal columns): nothing added
+    summary = pd.DataFrame({
+        "product": ["A", "A"], "build_month": [JAN, FEB], "units": [100, 200], "units_in_channel": [0, 0],
+        "returns_to_date": [3, 1], "cost_to_date": [150.0, 50.0],
+    })
+    forecast = pd.DataFrame({
+        "product": ["A", "A", "A"], "build_month": [JAN, JAN, FEB],
+        "month": [FEB, dt.date(2024, 3, 1), dt.date(2024, 3, 1)],
+        "expected_returns": [4.0, 2.0, 1.0], "expected_returns_product_model": [1.5, 0.5, 1.0],
+    })
+    costs = cost_per_claim_by_product(claim_costs(), ["A"], ReserveSettings())
+    reserve = reserve_by_build_month(summary, forecast, costs, {"A": "forecast (weibull)"}, {"A"}).set_index("build_month")
+    assert reserve["reserve"].to_dict() == {JAN: 300.0, FEB: 50.0}
+    assert reserve["expected_future_returns_product_model"].to_dict() == {JAN: 2.0, FEB: 1.0}
+    assert reserve["reserve_added_by_flagged_month"].to_dict() == {JAN: 200.0, FEB: 0.0}
+    totals = reserve_by_product(reserve.reset_index()).set_index("product")
+    assert totals.loc["A", "reserve_added_by_flagged_months"] == 200.0

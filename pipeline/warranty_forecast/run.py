@@ -1,6 +1,7 @@
 """The nightly run, as a straight line of typed stage results:
 
-extracts -> shaped (DuckDB) -> lives (fits) -> build-month alerts -> forecast -> reserve -> diagnostics and charts -> report,
+extracts -> shaped (DuckDB) -> screening fits -> build-month alerts -> lives (fits without the flagged
+build months) -> forecast (flagged months with their own life) -> reserve -> diagnostics and charts -> report,
 manifest -> publish (atomic)
 
 Every decision sits in the stage that owns it (which model forecasts: `stages.forecasting`; pricing:
@@ -71,16 +72,29 @@ def run_nightly(config: RunConfig) -> RunResult:
 
     shaped = clock.run("shaping", lambda: shape_extracts(config), lambda s: s.summary)
     check_products_in_data(config, shaped.known_products)
-    lives = clock.run("fit", lambda: fit_lives(shaped, config.life_model), lambda f: f.summary)
+    screening = clock.run("fit", lambda: fit_lives(shaped, config.life_model), lambda f: f.summary)
     alerts = clock.run(
         "alerts",
         lambda: alert_build_months(
-            shaped.fit_returns, shaped.fit_suspensions, lives, config.alerts, config.life_model,
+            shaped.fit_returns, shaped.fit_suspensions, screening, config.alerts, config.life_model,
             shaped.returns_by_build_month_and_code,
         ),
         lambda a: a.summary,
     )
-    forecast = clock.run("forecast", lambda: forecast_returns(shaped, lives, config.life_model), lambda f: f.summary)
+    # the published fits leave the flagged build months out; the forecast gives those months their own life
+    lives = (
+        clock.run(
+            "refit",
+            lambda: fit_lives(shaped, config.life_model, left_out=alerts.flagged_by_product),
+            lambda f: f"{f.summary}, without the flagged build months",
+        )
+        if alerts.flagged_by_product else screening
+    )
+    forecast = clock.run(
+        "forecast",
+        lambda: forecast_returns(shaped, lives, config.life_model, flagged=alerts.flagged_by_product),
+        lambda f: f.summary,
+    )
     reserve = clock.run(
         "reserve",
         lambda: book_reserve(
@@ -131,6 +145,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "life_model_by_mode": forecast.by_mode,
         "build_month_alerts": alerts.table,
         "build_month_causes": alerts.causes,
+        "flagged_build_month_lives": forecast.flagged_month_lives,
         "safety_term_claims": shaped.safety_term_claims,
         "forecast": reserve.forecast,
         "reserve": reserve.by_build_month,

@@ -61,7 +61,7 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_product
 from warranty_forecast.stages.life_models import FittedLives
-from warranty_forecast.stages.month_life import MonthData, hazard_ratio_test
+from warranty_forecast.stages.month_life import hazard_ratio_test, month_data_by_build_month
 
 MAX_ROUNDS = 5
 CONCENTRATED_SHARE = 0.5  # a failure code with this share of its returns in flagged months is concentrated there
@@ -138,6 +138,14 @@ class BuildMonthAlerts:
     def flagged(self) -> pd.DataFrame:
         """The flagged rows of the table."""
         return self.table[self.table["is_flagged"]]
+
+    @property
+    def flagged_by_product(self) -> dict[str, tuple[object, ...]]:
+        """product -> its flagged build months (products with none left out)."""
+        flagged = self.flagged
+        return {
+            str(product): tuple(sorted(rows["build_month"])) for product, rows in flagged.groupby("product", sort=True)
+        }
 
     @property
     def summary(self) -> str:
@@ -272,23 +280,6 @@ def score_build_months(
     table["is_flagged"] = flags
     table["reason"] = ["; ".join(r) for r in reasons]
     return table
-
-
-def month_data_by_build_month(returns: pd.DataFrame, suspensions: pd.DataFrame) -> dict[object, MonthData]:
-    """One product's rows (fit_returns, fit_suspensions) as life data per build month."""
-    counted = {month: rows.groupby("months_in_service")["returns"].sum() for month, rows in returns.groupby("build_month")}
-    survived = {
-        month: rows.groupby("observed_age_months")["suspensions"].sum()
-        for month, rows in suspensions.groupby("build_month")
-    }
-    empty = pd.Series(dtype=float)
-    return {
-        month: MonthData.of(
-            counted.get(month, empty).index.to_numpy(dtype=float), counted.get(month, empty).to_numpy(dtype=float),
-            survived.get(month, empty).index.to_numpy(dtype=float), survived.get(month, empty).to_numpy(dtype=float),
-        )
-        for month in sorted(set(counted) | set(survived))
-    }
 
 
 def _hazard_ratio_tests(

@@ -42,21 +42,31 @@ class LifeDistribution(Protocol):
 
 
 def expected_future_returns(
-    suspensions: pd.DataFrame, models: Mapping[str, LifeDistribution]
+    suspensions: pd.DataFrame,
+    models: Mapping[str, LifeDistribution],
+    month_models: Mapping[tuple[str, object], LifeDistribution] | None = None,
 ) -> pd.DataFrame:
     """Expected returns per suspension row x future month in service x calendar month.
 
     `suspensions` has the columns of the fit_suspensions model (product, build_month, sale_month,
     warranty_months, warranty_start_date, observed_age_months, suspensions). Products without a model
-    are left out (the caller reports them). Returns FORECAST_DETAIL_COLUMNS; `month` is the first day
-    of the calendar month.
+    are left out (the caller reports them). `month_models`: (product, build_month) -> the life model of
+    that build month, used instead of its product's (a flagged build month's own life). Returns
+    FORECAST_DETAIL_COLUMNS; `month` is the first day of the calendar month.
     """
+    month_models = month_models or {}
     pieces = []
     for product, rows in suspensions.groupby("product", sort=True):
         model = models.get(product)
         if model is None:
             continue
-        pieces.append(_product_forecast(rows, model))
+        own = [(month, m) for (p, month), m in month_models.items() if p == product]
+        apart = rows["build_month"].isin([month for month, _ in own])
+        pieces.append(_product_forecast(rows[~apart], model))
+        for month, month_model in own:
+            month_rows = rows[rows["build_month"] == month]
+            if len(month_rows):
+                pieces.append(_product_forecast(month_rows, month_model))
     if not pieces:
         return pd.DataFrame({c: pd.Series(dtype=_dtype(c)) for c in FORECAST_DETAIL_COLUMNS})
     return pd.concat(pieces, ignore_index=True)

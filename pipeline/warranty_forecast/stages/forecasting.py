@@ -6,8 +6,8 @@ The arithmetic is in `forecast` (pure functions of a life distribution); this mo
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Collection, Mapping
 
 import pandas as pd
 
@@ -23,22 +23,43 @@ from warranty_forecast.stages.forecast import (
     forecast_by_month,
 )
 from warranty_forecast.stages.life_models import FittedLives
+from warranty_forecast.stages.month_life import DEFECTIVE_SHARE, month_data_by_build_month, month_life_model
 
 if TYPE_CHECKING:
     from warranty_forecast.stages.shaping import ShapedData
 
 
+FLAGGED_MONTH_LIFE_COLUMNS = (
+    "product",
+    "build_month",
+    "life_model",
+    "hazard_ratio",
+    "defective_share",
+    "defect_mean_life_months",
+    "aic_own_scale",
+    "aic_defective_share",
+    "expected_future_returns",
+    "expected_future_returns_product_model",
+    "note",
+)
+
+
 @dataclass(frozen=True)
 class ReturnsForecast:
-    """The stage's result. `by_month`: expected returns per product x build month x calendar month;
-    `by_mode`: the life_model_by_mode table with each mode's share; `status`: a sentence per product
-    (the model used, or why there is no forecast)."""
+    """The stage's result. `by_month`: expected returns per product x build month x calendar month, with
+    `expected_returns_product_model`, what the product's model alone expects (different only in flagged
+    build months); `by_mode`: the life_model_by_mode table with each mode's share; `status`: a sentence per
+    product (the model used, or why there is no forecast); `flagged_month_lives`: the life model each
+    flagged build month's forecast uses (FLAGGED_MONTH_LIFE_COLUMNS)."""
 
     models: Mapping[str, LifeDistribution]
     by_month: pd.DataFrame
     by_mode: pd.DataFrame
     status: Mapping[str, str]
     warnings: tuple[str, ...]
+    flagged_month_lives: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame(columns=list(FLAGGED_MONTH_LIFE_COLUMNS))
+    )
 
     @property
     def summary(self) -> str:
@@ -46,8 +67,15 @@ class ReturnsForecast:
         return f"{len(self.by_month)} rows, {self.by_month['expected_returns'].sum():,.1f} returns"
 
 
-def forecast_returns(shaped: ShapedData, lives: FittedLives, settings: LifeModelSettings) -> ReturnsForecast:
-    """Forecast every product that has a usable life model, with the model `settings.forecast_model` asks for."""
+def forecast_returns(
+    shaped: ShapedData,
+    lives: FittedLives,
+    settings: LifeModelSettings,
+    flagged: Mapping[str, Collection[object]] | None = None,
+) -> ReturnsForecast:
+    """Forecast every product that has a usable life model, with the model `settings.forecast_model` asks
+    for; each build month in `flagged` (product -> build months) with its own life on top of that model
+    (`month_life.month_life_model`: own scale or a defective share, by AIC)."""
     complete_modes = complete_mode_models(lives.modes)
     models, names, notes = choose_forecast_models(lives.products, complete_modes, settings.forecast_model)
     by_mode = life_model_by_mode_table(
@@ -57,13 +85,102 @@ def forecast_returns(shaped: ShapedData, lives: FittedLives, settings: LifeModel
         product: f"forecast ({names[product]})" if product in models else f"no forecast: {outcome.status}"
         for product, outcome in lives.products.items()
     }
+    month_models, month_rows, month_notes = flagged_month_models(
+        shaped.fit_returns, shaped.fit_suspensions, models, flagged or {}, settings.confidence_level
+    )
+    by_month = forecast_by_month(expected_future_returns(shaped.fit_suspensions, models, month_models))
+    product_model = forecast_by_month(expected_future_returns(shaped.fit_suspensions, models))
+    by_month = by_month.merge(
+        product_model.rename(columns={"expected_returns": "expected_returns_product_model"}),
+        on=["product", "build_month", "month"], how="outer",
+    ).fillna({"expected_returns": 0.0, "expected_returns_product_model": 0.0})
+    by_month = by_month.sort_values(["product", "build_month", "month"], ignore_index=True)
+    lives_table = _flagged_month_table(month_rows, by_month)
     return ReturnsForecast(
         models=models,
-        by_month=forecast_by_month(expected_future_returns(shaped.fit_suspensions, models)),
+        by_month=by_month,
         by_mode=by_mode,
         status=status,
-        warnings=tuple(notes),
+        warnings=(*notes, *month_notes, *_flagged_month_warnings(lives_table)),
+        flagged_month_lives=lives_table,
     )
+
+
+def flagged_month_models(
+    fit_returns: pd.DataFrame,
+    fit_suspensions: pd.DataFrame,
+    models: Mapping[str, LifeDistribution],
+    flagged: Mapping[str, Collection[object]],
+    confidence_level: float,
+) -> tuple[dict[tuple[str, object], LifeDistribution], list[dict[str, object]], list[str]]:
+    """Each flagged build month's own life on top of its product's forecast model; the table rows; notes
+    for months that keep the product's model (no forecast model, or the month's fit failed)."""
+    month_models: dict[tuple[str, object], LifeDistribution] = {}
+    rows: list[dict[str, object]] = []
+    notes: list[str] = []
+    for product, months in sorted(flagged.items()):
+        if not months or product not in models:
+            continue
+        data = month_data_by_build_month(
+            fit_returns[fit_returns["product"] == product], fit_suspensions[fit_suspensions["product"] == product]
+        )
+        for month in sorted(months):
+            try:
+                if month not in data:
+                    raise ValueError("no data for the month")
+                fitted = month_life_model(models[product], data[month], confidence_level)
+            except (ValueError, FloatingPointError, ArithmeticError) as error:
+                notes.append(
+                    f"product {product} build month {_month(month)}: its own life could not be fitted ({error});"
+                    " its forecast uses the product's model, which understates a bad month"
+                )
+                continue
+            month_models[(product, month)] = fitted
+            rows.append({
+                "product": product, "build_month": month, "life_model": fitted.kind,
+                "hazard_ratio": fitted.hazard_ratio, "defective_share": fitted.defective_share,
+                "defect_mean_life_months": fitted.defect_mean_life, "aic_own_scale": fitted.aic_own_scale,
+                "aic_defective_share": fitted.aic_defective_share, "note": fitted.note,
+            })
+    return month_models, rows, notes
+
+
+def _flagged_month_table(rows: list[dict[str, object]], by_month: pd.DataFrame) -> pd.DataFrame:
+    if not rows:
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in FLAGGED_MONTH_LIFE_COLUMNS})
+    table = pd.DataFrame(rows)
+    sums = by_month.groupby(["product", "build_month"], as_index=False)[
+        ["expected_returns", "expected_returns_product_model"]
+    ].sum().rename(columns={
+        "expected_returns": "expected_future_returns",
+        "expected_returns_product_model": "expected_future_returns_product_model",
+    })
+    table = table.merge(sums, on=["product", "build_month"], how="left").fillna(
+        {"expected_future_returns": 0.0, "expected_future_returns_product_model": 0.0}
+    )
+    return table[list(FLAGGED_MONTH_LIFE_COLUMNS)]
+
+
+def _flagged_month_warnings(table: pd.DataFrame) -> list[str]:
+    texts = []
+    for row in table.itertuples(index=False):
+        if row.life_model == DEFECTIVE_SHARE:
+            model = (
+                f"a defective share of {row.defective_share:.2%} of its units with a mean defect life of"
+                f" {row.defect_mean_life_months:.1f} months"
+            )
+        else:
+            model = f"its own scale, {row.hazard_ratio:.2f} times the product's hazard"
+        texts.append(
+            f"product {row.product} build month {_month(row.build_month)} is forecast with its own life ({model}):"
+            f" {row.expected_future_returns:,.1f} returns still expected from it, against"
+            f" {row.expected_future_returns_product_model:,.1f} under the product's model"
+        )
+    return texts
+
+
+def _month(value: object) -> str:
+    return value.strftime("%Y-%m") if hasattr(value, "strftime") else str(value)
 
 
 def choose_forecast_models(

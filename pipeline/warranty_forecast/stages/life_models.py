@@ -7,9 +7,10 @@ Ages are months in service; the fitting rules and fallbacks are in `fitting` and
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Collection, Mapping
 
+import numpy as np
 import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
@@ -38,6 +39,7 @@ class FittedLives:
     modes: Mapping[str, tuple[ModeFit, ...]]
     table: pd.DataFrame
     product_warnings: tuple[str, ...]
+    left_out: Mapping[str, tuple[object, ...]] = field(default_factory=dict)  # build months left out, per product
 
     @property
     def warnings(self) -> tuple[str, ...]:
@@ -57,16 +59,42 @@ class FittedLives:
         return f"{len(self.products)} products, {published} with a published fit, {modes} failure modes"
 
 
-def fit_lives(shaped: ShapedData, settings: LifeModelSettings) -> FittedLives:
-    """Fit every product and failure mode of the shaped data (never raises for one product's data)."""
-    data_by_product = life_data_by_product(shaped.fit_returns, shaped.fit_suspensions)
+def fit_lives(
+    shaped: ShapedData, settings: LifeModelSettings, left_out: Mapping[str, Collection[object]] | None = None
+) -> FittedLives:
+    """Fit every product and failure mode of the shaped data (never raises for one product's data).
+
+    `left_out`: build months per product to leave out of that product's fits (the flagged build months,
+    whose own lives the forecast models apart); the life_model table names them in build_months_left_out.
+    """
+    left_out = {product: set(months) for product, months in (left_out or {}).items() if months}
+    fit_returns = _without(shaped.fit_returns, left_out)
+    data_by_product = life_data_by_product(fit_returns, _without(shaped.fit_suspensions, left_out))
     by_product = shaped.cohort_summary.groupby("product")
     products = fit_products(data_by_product, settings, by_product["max_warranty_months"].max().to_dict())
-    modes = fit_failure_modes(shaped.returns_by_failure_mode, data_by_product, settings)
+    modes = fit_failure_modes(_without(shaped.returns_by_failure_mode, left_out), data_by_product, settings)
+    table = life_model_table(products, by_product["units"].sum().to_dict())
+    table["build_months_left_out"] = [
+        ", ".join(_month_text(month) for month in sorted(left_out.get(product, ()))) for product in table["product"]
+    ]
     return FittedLives(
         data_by_product=data_by_product,
         products=products,
         modes=modes,
-        table=life_model_table(products, by_product["units"].sum().to_dict()),
+        table=table,
         product_warnings=tuple(product_warnings(products, settings)),
+        left_out={product: tuple(sorted(months)) for product, months in left_out.items()},
     )
+
+
+def _without(frame: pd.DataFrame, left_out: Mapping[str, set[object]]) -> pd.DataFrame:
+    """The rows of `frame` (with product and build_month columns) outside the left-out build months."""
+    if not left_out:
+        return frame
+    keys = {(product, month) for product, months in left_out.items() for month in months}
+    dropped = [key in keys for key in zip(frame["product"], frame["build_month"])]
+    return frame[~np.asarray(dropped, dtype=bool)]
+
+
+def _month_text(month: object) -> str:
+    return month.strftime("%Y-%m") if hasattr(month, "strftime") else str(month)

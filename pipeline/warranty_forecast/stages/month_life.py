@@ -33,6 +33,7 @@ from typing import Protocol
 
 import numpy as np
 import numpy.typing as npt
+import pandas as pd
 from scipy import optimize, special, stats
 
 FloatArray = npt.NDArray[np.float64]
@@ -294,3 +295,20 @@ def month_life_model(base: BaseLife, data: MonthData, confidence_level: float = 
                               aic_scaled, aic_share)
     return MonthLifeModel(OWN_SCALE, ScaledHazard(base, scaled.hazard_ratio), scaled.hazard_ratio, p, theta,
                           aic_scaled, aic_share)
+
+
+def month_data_by_build_month(returns: pd.DataFrame, suspensions: pd.DataFrame) -> dict[object, MonthData]:
+    """One product's rows (fit_returns, fit_suspensions) as life data per build month."""
+    counted = {month: rows.groupby("months_in_service")["returns"].sum() for month, rows in returns.groupby("build_month")}
+    survived = {
+        month: rows.groupby("observed_age_months")["suspensions"].sum()
+        for month, rows in suspensions.groupby("build_month")
+    }
+    empty = pd.Series(dtype=float)
+    return {
+        month: MonthData.of(
+            counted.get(month, empty).index.to_numpy(dtype=float), counted.get(month, empty).to_numpy(dtype=float),
+            survived.get(month, empty).index.to_numpy(dtype=float), survived.get(month, empty).to_numpy(dtype=float),
+        )
+        for month in sorted(set(counted) | set(survived))
+    }

@@ -1,7 +1,9 @@
 """Cost per claim and the warranty reserve per build month (currency units of the claims extract).
 
 reserve = expected future returns x cost per claim, undiscounted and without inflation; the figures
-are estimates for review by finance and auditors, not booked amounts.
+are estimates for review by finance and auditors, not booked amounts. A flagged build month's expected
+returns come from its own life (see stages.forecasting); reserve_added_by_flagged_month is its reserve
+less what the product's model alone would give.
 
 Cost per claim, per product, first that applies:
   1. the configured override (`reserve.cost_per_claim_by_product`, then `reserve.cost_per_claim`);
@@ -32,6 +34,8 @@ RESERVE_COLUMNS = (
     "expected_future_returns",
     "cost_per_claim",
     "reserve",
+    "expected_future_returns_product_model",
+    "reserve_added_by_flagged_month",
     "cost_basis",
     "forecast_status",
 )
@@ -91,10 +95,17 @@ def reserve_by_build_month(
     sentence per product (which model, or why there is no forecast). Products without a forecast get
     empty expected returns and reserve.
     """
+    if "expected_returns_product_model" not in forecast.columns:
+        forecast = forecast.assign(expected_returns_product_model=forecast["expected_returns"])
     expected = (
-        forecast.groupby(["product", "build_month"], as_index=False)["expected_returns"]
+        forecast.groupby(["product", "build_month"], as_index=False)[
+            ["expected_returns", "expected_returns_product_model"]
+        ]
         .sum()
-        .rename(columns={"expected_returns": "expected_future_returns"})
+        .rename(columns={
+            "expected_returns": "expected_future_returns",
+            "expected_returns_product_model": "expected_future_returns_product_model",
+        })
     )
     table = cohort_summary.merge(expected, on=["product", "build_month"], how="left")
     table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
@@ -103,7 +114,14 @@ def reserve_by_build_month(
     table["expected_future_returns"] = np.where(
         has_forecast, table["expected_future_returns"].fillna(0.0), np.nan
     )
+    table["expected_future_returns_product_model"] = np.where(
+        has_forecast, table["expected_future_returns_product_model"].fillna(0.0), np.nan
+    )
     table["reserve"] = table["expected_future_returns"] * table["cost_per_claim"]
+    # what a flagged build month's own life adds to (or takes from) the reserve its product's model gives
+    table["reserve_added_by_flagged_month"] = (
+        table["expected_future_returns"] - table["expected_future_returns_product_model"]
+    ) * table["cost_per_claim"]
     return table.loc[:, list(RESERVE_COLUMNS)].sort_values(["product", "build_month"], ignore_index=True)
 
 
@@ -116,6 +134,7 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
         cost_to_date=("cost_to_date", "sum"),
         expected_future_returns=("expected_future_returns", lambda s: s.sum(min_count=len(s))),
         reserve=("reserve", lambda s: s.sum(min_count=len(s))),
+        reserve_added_by_flagged_months=("reserve_added_by_flagged_month", lambda s: s.sum(min_count=len(s))),
         cost_per_claim=("cost_per_claim", "first"),
         cost_basis=("cost_basis", "first"),
         forecast_status=("forecast_status", "first"),
