@@ -31,7 +31,8 @@ EXPECTED_FILES = {
     "fit_suspensions.parquet", "return_rate_heatmap.png", "weibull_probability_plot.png",
     "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
-    "safety_term_claims.parquet", "flagged_build_month_lives.parquet",
+    "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
+    "cumulative_returns_per_unit.png",
 }
 
 

@@ -55,22 +55,19 @@ def test_chart_text_escapes_math_cuts_long_names_and_keeps_legend_entries():
     assert not chart_text("_hidden").startswith("_")
 
 
-def _age_in_service(products):
-    rows = []
-    for product in products:
-        for month in range(1, 5):
-            rows.append((product, dt.date(2024, 1, 1), month, 1000.0, 3.0, 0.0))
-    frame = pd.DataFrame(
-        rows, columns=["product", "build_month", "months_in_service", "units_at_risk", "returns", "units_withdrawn"]
-    )
-    frame["return_rate"] = frame["returns"] / frame["units_at_risk"]
-    return frame
+def _fit_tables(products):
+    """fit_returns and fit_suspensions: per product 1,000 units of one build month observed to age 4, 3 returns in month 2."""
+    group = {"build_month": dt.date(2024, 1, 1), "sale_month": dt.date(2024, 1, 1), "warranty_months": 24}
+    returns = pd.DataFrame({"product": products, **group, "months_in_service": 2, "returns": 3})
+    units = pd.DataFrame({"product": products, **group, "warranty_start_date": dt.date(2024, 1, 1),
+                          "observed_age_months": 4.0, "units": 1000, "suspensions": 997.0})
+    return returns, units
 
 
 def test_charts_draw_hostile_product_and_failure_code_names():
     # without escaping, "$\\frac{1}{0}$" and "$x" raise while the figure is drawn
     names = HOSTILE_NAMES
-    heatmap = charts.return_rate_heatmap(_age_in_service(names))
+    heatmap = charts.return_rate_heatmap(*_fit_tables(names))
     modes = pd.DataFrame(
         {"product": names, "failure_mode": list(reversed(names)), "months_in_service": 1, "returns": 3}
     )
@@ -82,7 +79,7 @@ def test_charts_draw_hostile_product_and_failure_code_names():
     for figure in (heatmap, pareto, by_month):
         figure.savefig(io.BytesIO(), format="png", dpi=30)  # drawing is where math markup fails
     titles = {a.get_title() for a in heatmap.axes if a.get_visible()}
-    assert r"\$x: returns per 1,000 at risk" in titles
+    assert r"\$x: returns per 1,000 unit-months" in titles
     legend = [t.get_text() for t in by_month.axes[0].get_legend().get_texts()]
     assert len(legend) == len(names)  # "_hidden" is not dropped from the legend
 
