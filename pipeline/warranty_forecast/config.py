@@ -60,6 +60,13 @@ def _number_in(low: float, high: float, *, high_included: bool, unit: str = "") 
     return rule
 
 
+def _rate_ratio_above_one(value: Any) -> float:
+    is_number = not isinstance(value, bool) and isinstance(value, (int, float)) and math.isfinite(value)
+    if not (is_number and 1.0 < value <= 100.0):
+        raise ValueError("must be a number above 1 and at most 100 (a rate ratio)")
+    return float(value)
+
+
 def _non_negative(unit: str = "") -> Rule:
     def rule(value: Any) -> float:
         if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
@@ -197,6 +204,10 @@ class AlertSettings:
     early_life_months: int = _key(3, _integer(1, MAX_WARRANTY_MONTHS_LIMIT))  # the early-life view: MIS 1..K
     false_discovery_rate: float = _key(0.05, _number_in(0.0, 1.0, high_included=False))  # BH q at or below: significant
     min_ratio: float = _key(1.5, _number_in(1.0, math.inf, high_included=False))  # observed / expected at least this
+    # the CUSUM over build months in production order: the rate ratio it is designed to catch, and its
+    # threshold's in-control average run length in build months (set by simulation each run)
+    cusum_shift: float = _key(1.5, _rate_ratio_above_one)
+    cusum_in_control_run_length: int = _key(2000, _integer(10, 1_000_000))
     # claims whose failure_code holds a term (any case), starting where one of the code's words starts
     # (words: runs of letters; the separators between them skipped) are listed apart (safety_term_claims):
     # "overheat" matches OVERHEATING, OVER_HEAT; "fire" matches FIRE, FIRED, NO_FIRE, not FIRMWARE or MISFIRE

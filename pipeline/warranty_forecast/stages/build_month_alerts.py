@@ -61,9 +61,11 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_product
 from warranty_forecast.stages.life_models import FittedLives
+from warranty_forecast.stages.build_month_cusum import design_threshold
 from warranty_forecast.stages.month_life import hazard_ratio_test, month_data_by_build_month
 
 MAX_ROUNDS = 5
+CUSUM_SEED = 20261203  # the CUSUM threshold's simulation seed: the same data give the same threshold every night
 CONCENTRATED_SHARE = 0.5  # a failure code with this share of its returns in flagged months is concentrated there
 MIN_CONCENTRATED_RETURNS = 5  # ... if at least this many (common practice, no source: fewer says nothing)
 
@@ -85,6 +87,9 @@ BUILD_MONTH_ALERT_COLUMNS = (
     "scale_test_p_value",
     "month_p_value",
     "month_q_value",
+    "cusum",
+    "cusum_threshold",
+    "cusum_signal",
     "is_flagged",
     "reason",
 )
@@ -277,9 +282,52 @@ def score_build_months(
         flags |= carries
         for i in np.flatnonzero(carries):
             reasons[i].append(words.format(view_ratio[view][i]))
-    table["is_flagged"] = flags
+    cusum, threshold, signals, run_starts = production_order_cusum(
+        table["window_observed_returns"].to_numpy(dtype=float), table["window_expected_returns"].to_numpy(dtype=float),
+        settings.cusum_shift, settings.cusum_in_control_run_length,
+    )
+    table["cusum"] = cusum
+    table["cusum_threshold"] = threshold
+    table["cusum_signal"] = signals
+    for i in np.flatnonzero(signals):
+        since = _month(table["build_month"].iloc[run_starts[i]])
+        reasons[i].append(
+            f"the CUSUM of returns over production order passed its threshold ({cusum[i]:.1f} > {threshold:.1f};"
+            f" excess building since {since})"
+        )
+    table["is_flagged"] = flags | signals
     table["reason"] = ["; ".join(r) for r in reasons]
     return table
+
+
+def production_order_cusum(
+    observed: np.ndarray, expected: np.ndarray, shift: float, in_control_run_length: float
+) -> tuple[np.ndarray, float, np.ndarray, np.ndarray]:
+    """The upper Poisson CUSUM over a product's build months in production order (whole-window O and E):
+    S_t = max(0, S_{t-1} + O_t ln r - (r - 1) E_t), restarted at 0 after each signal (S_t > h), with h set
+    by simulation (build_month_cusum.design_threshold, seeded with CUSUM_SEED) so that a product without a
+    defect signals on average once in `in_control_run_length` build months.
+
+    Returns S_t (before any restart), h (NaN when no month expects returns), the signal flags, and for
+    each month the index where its run began (the month after S was last 0)."""
+    n = len(observed)
+    path = np.zeros(n)
+    signals = np.zeros(n, dtype=bool)
+    run_starts = np.zeros(n, dtype=np.int64)
+    if not np.any(expected > 0):
+        return path, math.nan, signals, run_starts
+    threshold = design_threshold(expected[expected > 0], shift, in_control_run_length, seed=CUSUM_SEED).threshold
+    log_r = math.log(shift)
+    value, start = 0.0, 0
+    for t in range(n):
+        if value == 0.0:
+            start = t
+        value = max(0.0, value + observed[t] * log_r - (shift - 1.0) * expected[t])
+        path[t], run_starts[t] = value, start
+        if value > threshold:
+            signals[t] = True
+            value = 0.0
+    return path, threshold, signals, run_starts
 
 
 def _hazard_ratio_tests(
