@@ -170,6 +170,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         build_month_alerts=alerts.table,
         build_month_causes=alerts.causes,
         safety_term_claims=shaped.safety_term_claims,
+        flagged_month_lives=forecast.flagged_month_lives,
         reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,

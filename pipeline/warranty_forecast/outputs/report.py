@@ -8,6 +8,7 @@ from __future__ import annotations
 import math
 from typing import Any, Mapping
 
+import numpy as np
 import pandas as pd
 
 from warranty_forecast.outputs.manifest import RunManifest
@@ -78,6 +79,7 @@ def render_report(
     warnings: list[str],
     build_month_causes: pd.DataFrame | None = None,
     safety_term_claims: pd.DataFrame | None = None,
+    flagged_month_lives: pd.DataFrame | None = None,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -112,15 +114,22 @@ def render_report(
         expected_future_returns=reserve_totals["expected_future_returns"].map(lambda v: _number(v, 6)),
         cost_per_claim=reserve_totals["cost_per_claim"].map(_money),
         reserve=reserve_totals["reserve"].map(_money),
+        added_by_flagged_months=(
+            reserve_totals["reserve_added_by_flagged_months"] if "reserve_added_by_flagged_months" in reserve_totals
+            else pd.Series(np.nan, index=reserve_totals.index)
+        ).map(_money),
     )[["product", "units", "returns_to_date", "cost_to_date", "expected_future_returns", "cost_per_claim",
-       "reserve", "forecast_status", "cost_basis"]]
+       "reserve", "added_by_flagged_months", "forecast_status", "cost_basis"]]
     total = reserve_totals["reserve"].sum(min_count=1)
     lines += [
         _table(shown),
         "",
         f"Total reserve over products with a forecast: {_money(total)} (currency units of the claims extract). "
-        "Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`.",
+        "Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`. added_by_flagged_months: the"
+        " part of the reserve that comes from forecasting the flagged build months with their own life rather"
+        " than with their product's model (see Build-month alerts).",
         "",
+        *_flagged_month_life_lines(flagged_month_lives),
         "## Life model (Weibull, maximum likelihood on grouped data)",
         "",
     ]
@@ -200,7 +209,13 @@ def render_report(
     lines += [
         "## Charts",
         "",
-        "- `return_rate_heatmap.png`: returns per 1,000 units at risk by build month and months in service.",
+        "- `return_rate_heatmap.png`: returns per 1,000 unit-months by build month and months in service (top"
+        " row; the newest, partly observed month counts its partial exposure; hatched: under 100 unit-months) and"
+        " observed / expected returns per cell against the alert baseline (bottom row; red above, blue below).",
+        "- `observed_to_expected_by_build_month.png`: observed / expected returns per build month with exact"
+        " bounds, whole window and early life; flagged months marked and labelled.",
+        "- `cumulative_returns_per_unit.png`: cumulative returns per 1,000 units by months in service, one line"
+        " per build month; flagged months in colour.",
         "- `weibull_probability_plot.png`: life-table fraction failed with Greenwood bounds, fitted Weibull line "
         "and its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
         "- `expected_returns_by_month.png`: expected future returns per calendar month.",
@@ -220,9 +235,12 @@ def _alert_lines(alerts: pd.DataFrame) -> list[str]:
     lines.append(
         f"{len(alerts):,} build months checked against their product's baseline life model (fitted without the"
         f" flagged months); {len(flagged):,} flagged. A statistical signal for qualified engineers to review,"
-        " not a finding. Observed / expected returns with bounds in brackets, in the first"
-        f" {months} months in service (early) and over the whole observation window; details in"
-        " `build_month_alerts.parquet`."
+        " not a finding. A month is flagged when its own test passes the Benjamini-Hochberg step across its"
+        f" product's months (q: the smaller p of its early-life count, first {months} months in service, and of"
+        " the likelihood-ratio test of its own Weibull scale, doubled) with a ratio of at least the configured"
+        " minimum, or when the CUSUM of returns over production order passes its threshold. Observed / expected"
+        " returns with exact bounds in brackets; hazard_ratio: the month's own scale as a multiple of the"
+        " product's hazard, with likelihood-ratio bounds. Every month: `build_month_alerts.parquet`."
     )
     lines.append("")
     if not len(flagged):
@@ -232,13 +250,55 @@ def _alert_lines(alerts: pd.DataFrame) -> list[str]:
             "product": flagged["product"],
             "build_month": flagged["build_month"].map(_month_text),
             "early": [_observed_expected(r, "early") for r in flagged.itertuples(index=False)],
-            "early_q": flagged["early_q_value"].map(lambda v: f"{v:.2g}"),
             "whole_window": [_observed_expected(r, "window") for r in flagged.itertuples(index=False)],
-            "whole_window_q": flagged["window_q_value"].map(lambda v: f"{v:.2g}"),
+            "hazard_ratio": [
+                _bounded(r.hazard_ratio, r.hazard_ratio_lower, r.hazard_ratio_upper)
+                for r in flagged.itertuples(index=False)
+            ],
+            "q": flagged["month_q_value"].map(lambda v: f"{v:.2g}"),
+            "cusum": [
+                f"{r.cusum:.1f} / {r.cusum_threshold:.1f}" + (" (signal)" if r.cusum_signal else "")
+                for r in flagged.itertuples(index=False)
+            ],
             "reason": flagged["reason"],
         }
     )
     return lines + [_table(shown), ""]
+
+
+def _flagged_month_life_lines(lives: pd.DataFrame | None) -> list[str]:
+    """How each flagged build month is forecast (its own life) and what it adds (data text escaped)."""
+    if lives is None or not len(lives):
+        return []
+    lives = _text_escaped(lives)
+
+    def model(row) -> str:  # type: ignore[no-untyped-def]
+        if row.life_model == "defective share":
+            return (
+                f"defective share {row.defective_share:.2%} of units, mean defect life"
+                f" {row.defect_mean_life_months:.1f} months"
+            )
+        return f"own scale: {row.hazard_ratio:.2f} x the product's hazard"
+
+    shown = pd.DataFrame({
+        "product": lives["product"],
+        "build_month": lives["build_month"].map(_month_text),
+        "own_life": [model(r) for r in lives.itertuples(index=False)],
+        "expected_future_returns": lives["expected_future_returns"].map(lambda v: f"{v:,.1f}"),
+        "under_product_model": lives["expected_future_returns_product_model"].map(lambda v: f"{v:,.1f}"),
+    })
+    return [
+        "### Flagged build months in the forecast",
+        "",
+        "Each flagged build month is left out of its product's fit and forecast with its own life on top of"
+        " the product's model: its own scale (the product's hazard times a ratio) or a defective share (a share"
+        " of its units with an exponential defect life, on top of the product's life), whichever fits the"
+        " month's returns better by AIC (`flagged_build_month_lives.parquet`). A young month's own life rests on"
+        " a few months of returns: treat its figure as uncertain, and review it with the engineers.",
+        "",
+        _table(shown),
+        "",
+    ]
 
 
 TOP_CAUSES_SHOWN = 3  # failure codes per flagged month in the report
