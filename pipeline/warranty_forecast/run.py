@@ -25,7 +25,7 @@ from warranty_forecast.outputs.publish import publish_outputs
 from warranty_forecast.outputs.report import render_report
 from warranty_forecast.stages.build_month_alerts import alert_build_months
 from warranty_forecast.stages.forecasting import forecast_returns
-from warranty_forecast.stages.life_models import fit_lives
+from warranty_forecast.stages.life_models import fit_lives, keep_screening_where_refit_failed
 from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reserve import book_reserve
 from warranty_forecast.stages.shaping import shape_extracts
@@ -85,7 +85,9 @@ def run_nightly(config: RunConfig) -> RunResult:
     lives = (
         clock.run(
             "refit",
-            lambda: fit_lives(shaped, config.life_model, left_out=alerts.flagged_by_product),
+            lambda: keep_screening_where_refit_failed(
+                fit_lives(shaped, config.life_model, left_out=alerts.flagged_by_product), screening
+            ),
             lambda f: f"{f.summary}, without the flagged build months",
         )
         if alerts.flagged_by_product else screening

@@ -87,6 +87,45 @@ def fit_lives(
     )
 
 
+def keep_screening_where_refit_failed(refit: FittedLives, screening: FittedLives) -> FittedLives:
+    """The refit without the flagged build months, except for products whose refit has no published fit
+    while their screening fit (all months) had one: those keep the screening fit (and modes), with a
+    warning, rather than losing their forecast."""
+    failed = sorted(
+        product for product, outcome in refit.products.items()
+        if outcome.status not in PUBLISHED_STATUSES
+        and product in screening.products and screening.products[product].status in PUBLISHED_STATUSES
+    )
+    if not failed:
+        return refit
+    products = {**refit.products, **{product: screening.products[product] for product in failed}}
+    modes = {**refit.modes, **{product: screening.modes[product] for product in failed if product in screening.modes}}
+    table = refit.table.set_index("product")
+    screening_table = screening.table.set_index("product")
+    for product in failed:
+        table.loc[product, screening_table.columns] = screening_table.loc[product]
+        table.loc[product, "build_months_left_out"] = ""
+    notes = tuple(
+        f"product {product}: its fit without the flagged build months"
+        f" ({', '.join(_month_text(m) for m in refit.left_out.get(product, ()))}) failed"
+        f" ({refit.products[product].status}); the fit on all its build months is published and forecast instead,"
+        " so the flagged months also shape its life"
+        for product in failed
+    )
+    return FittedLives(
+        data_by_product={**refit.data_by_product, **{p: screening.data_by_product[p] for p in failed}},
+        products=products,
+        modes=modes,
+        table=table.reset_index()[list(refit.table.columns)],
+        product_warnings=(
+            *[w for w in refit.product_warnings if not any(w.startswith(f"product {p}:") for p in failed)],
+            *[w for w in screening.product_warnings if any(w.startswith(f"product {p}:") for p in failed)],
+            *notes,
+        ),
+        left_out={p: months for p, months in refit.left_out.items() if p not in failed},
+    )
+
+
 def _without(frame: pd.DataFrame, left_out: Mapping[str, set[object]]) -> pd.DataFrame:
     """The rows of `frame` (with product and build_month columns) outside the left-out build months."""
     if not left_out:
