@@ -368,7 +368,11 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
     shutil.copytree(previous_outputs, out)
     before = _snapshot(out)
 
-    code = main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), *case.arguments])
+    # charts are drawn where the hostile text reaches them (names, codes); elsewhere skipped to keep the
+    # suite fast (the charts' own escaping is tested in test_safe_text and test_charts)
+    charts = [] if any(word in kind for word in ("product", "code", "markup", "line break", "bytes")) else ["--no-charts"]
+    code = main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), *case.arguments,
+                 *charts])
     log = capsys.readouterr().err
 
     codes = expect.code if isinstance(expect.code, tuple) else (expect.code,)
@@ -396,3 +400,16 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
     assert "<script>" not in report
     for line in log.splitlines():  # every log record is one line that starts with its timestamp
         assert line[:4].isdigit() or line.startswith(("usage:", "warranty-forecast:")), line
+
+
+def test_no_charts_writes_the_tables_report_and_manifest_without_any_png(tmp_path, capsys):
+    shipments, claims = Extracts(tmp_path).write()
+    out = tmp_path / "out"
+    assert main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), "--no-charts"]) == 0
+    names = {p.name for p in out.iterdir()}
+    assert not any(name.endswith(".png") for name in names)
+    assert {"forecast.parquet", "reserve.parquet", "build_month_alerts.parquet", "report.md", "manifest.json"} <= names
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert set(manifest["outputs"]) == names - {"manifest.json"}
+    assert "Not drawn in this run (`--no-charts`)." in (out / "report.md").read_text(encoding="utf-8")
+    assert "charts    not drawn (--no-charts)" in capsys.readouterr().err

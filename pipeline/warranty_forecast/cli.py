@@ -128,6 +128,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--as-of", dest="as_of", default=None, help="as-of date YYYY-MM-DD, not after today (default: the newest valid claim_date or ship_date)"
     )
     run.add_argument(
+        "--no-charts", dest="draw_charts", action="store_false",
+        help="write the tables, report and manifest without the PNG charts (faster)",
+    )
+    run.add_argument(
         "--out",
         type=Path,
         default=DEFAULT_OUT,
@@ -275,6 +279,7 @@ def _run(arguments: argparse.Namespace) -> int:
         out_dir=arguments.out,
         as_of_date=as_of,
         config_path=arguments.config,
+        draw_charts=arguments.draw_charts,
     )
     with lock_output_folder(config.out_dir) as folder:
         log.debug("output folder %s checked and locked", folder)

@@ -224,6 +224,7 @@ class RunConfig:
     as_of_date: dt.date | None = None  # None: the newest valid claim_date or ship_date of the extracts
     run_date: dt.date = field(default_factory=dt.date.today)  # the day of the run; no input date may be later
     config_path: Path | None = None
+    draw_charts: bool = True  # False (--no-charts): tables, report and manifest only, no PNG charts
     run: RunSettings = field(default_factory=RunSettings)
     warranty: WarrantySettings = field(default_factory=WarrantySettings)
     shipments: ShipmentSettings = field(default_factory=ShipmentSettings)
@@ -249,6 +250,7 @@ def load_config(
     as_of_date: dt.date | None = None,
     config_path: Path | None = None,
     run_date: dt.date | None = None,
+    draw_charts: bool = True,
 ) -> RunConfig:
     """Build the run configuration from an optional TOML file and the command-line values.
 
@@ -283,6 +285,7 @@ def load_config(
         as_of_date=as_of_date,
         run_date=run_date,
         config_path=config_path,
+        draw_charts=draw_charts,
         **settings_from_document(document, source),
     )
 

@@ -112,7 +112,7 @@ def run_nightly(config: RunConfig) -> RunResult:
     )
     figures = clock.run(
         "charts",
-        lambda: {
+        lambda: {} if not config.draw_charts else {
             "return_rate_heatmap": charts.return_rate_heatmap(
                 shaped.fit_returns, shaped.fit_suspensions,
                 {product: baseline.fit for product, baseline in alerts.baselines.items()},
@@ -129,7 +129,7 @@ def run_nightly(config: RunConfig) -> RunResult:
             "expected_returns_by_month": charts.expected_returns_by_month(forecast.by_month),
             "failure_mode_pareto": charts.failure_mode_pareto(shaped.returns_by_failure_mode),
         },
-        lambda f: f"{len(f)} figures",
+        lambda f: f"{len(f)} figures" if config.draw_charts else "not drawn (--no-charts)",
     )
 
     warnings = (
@@ -173,6 +173,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         build_month_causes=alerts.causes,
         safety_term_claims=shaped.safety_term_claims,
         flagged_month_lives=forecast.flagged_month_lives,
+        charts_drawn=config.draw_charts,
         reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,

@@ -80,6 +80,7 @@ def render_report(
     build_month_causes: pd.DataFrame | None = None,
     safety_term_claims: pd.DataFrame | None = None,
     flagged_month_lives: pd.DataFrame | None = None,
+    charts_drawn: bool = True,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -206,6 +207,9 @@ def render_report(
     if len(quarantine):
         counts = quarantine.groupby(["extract", "column", "reason"]).size().reset_index(name="rows")
         lines += ["### Quarantined rows by reason (details in `quarantine.parquet`)", "", _table(counts), ""]
+    if not charts_drawn:
+        lines += ["## Charts", "", "Not drawn in this run (`--no-charts`).", ""]
+        return "\n".join(lines)
     lines += [
         "## Charts",
         "",
