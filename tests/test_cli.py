@@ -41,10 +41,9 @@ def run(*args: str) -> int:
 
 
 @pytest.fixture(scope="module")
-def demo_out(tmp_path_factory) -> Path:
-    out = tmp_path_factory.mktemp("demo") / "out"
-    assert run("--out", str(out)) == exit_codes.SUCCESS
-    return out
+def demo_out(demo_run_copy) -> Path:
+    """The full demo run (conftest.py), this module's own copy."""
+    return demo_run_copy
 
 
 def test_demo_run_writes_every_output(demo_out):

@@ -17,7 +17,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from warranty_forecast.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 PINNED = Path(__file__).resolve().parent / "data" / "pinned_demo"
@@ -42,13 +41,8 @@ def _figures(out: Path) -> dict[str, pd.DataFrame]:
 
 
 @pytest.fixture(scope="module")
-def demo_figures(tmp_path_factory) -> dict[str, pd.DataFrame]:
-    out = tmp_path_factory.mktemp("pinned") / "out"
-    code = main(
-        ["run", "--shipments", str(ROOT / "data_demo" / "shipments.parquet"),
-         "--claims", str(ROOT / "data_demo" / "claims.csv"), "--out", str(out)]
-    )
-    assert code == 0
+def demo_figures(demo_run_copy) -> dict[str, pd.DataFrame]:
+    out = demo_run_copy  # the full demo run (conftest.py)
     figures = _figures(out)
     if os.environ.get("PIN_DEMO_FIGURES") == "1":
         PINNED.mkdir(parents=True, exist_ok=True)
