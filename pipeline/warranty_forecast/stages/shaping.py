@@ -134,6 +134,7 @@ class ShapedData:
     age_in_service: pd.DataFrame
     cohort_summary: pd.DataFrame
     claim_cost_by_product: pd.DataFrame
+    claim_reporting_delays: pd.DataFrame  # counted returns by product x delay_days x observable_days (truncation)
     quarantine: pd.DataFrame
     reconciliation: pd.DataFrame
     run_facts: dict[str, int]
