@@ -52,7 +52,7 @@ def simulate_warranty(
 def simulated_life_data(seed: int, n_units: int, shape: float, scale: float, **kw) -> LifeData:
     """Weibull warranty data from `simulate_warranty` with a fresh generator seeded by `seed`."""
     rng = np.random.default_rng(seed)
-    return LifeData.from_monthly_returns(*simulate_warranty(rng, n_units, weibull_life(shape, scale), **kw))
+    return LifeData.from_monthly_returns(*simulate_warranty(rng, n_units, weibull_life(shape, scale), **kw), day_grid=False)
 
 
 def mixed_life_data() -> LifeData:

@@ -22,10 +22,10 @@ from simulated_data import simulated_life_data  # tests/ is on sys.path under py
 pytestmark = pytest.mark.filterwarnings("error")
 
 
-THIN = LifeData.from_monthly_returns([2, 5, 9], [1, 1, 1], [6.0, 12.0, 24.0], [300.0, 300.0, 300.0])
+THIN = LifeData.from_monthly_returns([2, 5, 9], [1, 1, 1], [6.0, 12.0, 24.0], [300.0, 300.0, 300.0], day_grid=False)
 # returns only in the first three months among a million units observed for three months:
 # shape and scale cannot both be identified
-FLAT = LifeData.from_monthly_returns([1, 2, 3], [5, 5, 6], [3.0], [1e6])
+FLAT = LifeData.from_monthly_returns([1, 2, 3], [5, 5, 6], [3.0], [1e6], day_grid=False)
 
 
 def test_thin_data_without_a_configured_shape_has_no_fit():
@@ -71,14 +71,14 @@ def test_life_model_table_has_bounds_diagnostics_and_statuses():
 def test_returns_all_in_month_one_raise_no_overflow_and_are_unidentifiable():
     # every return in month 1 and the survivors at 1 and 24 months: the shape runs to 0 (found in review:
     # this once raised a bare OverflowError)
-    data = LifeData.from_monthly_returns([1], [50], [1.0, 24.0], [1000.0, 5000.0])
+    data = LifeData.from_monthly_returns([1], [50], [1.0, 24.0], [1000.0, 5000.0], day_grid=False)
     assert fit_weibull(data, LifeModelSettings(), fixed_shape=None).status == UNIDENTIFIABLE
 
 
 def test_open_likelihood_ratio_interval_for_shape_is_not_published_as_a_fit():
     # 500 returns in month 1 and 10 units alive at half a month: any very large shape with scale in
     # (0.5, 1] explains the data, so the likelihood never bounds the shape from above
-    data = LifeData.from_monthly_returns([1], [500], [0.5], [10.0])
+    data = LifeData.from_monthly_returns([1], [500], [0.5], [10.0], day_grid=False)
     outcome = fit_weibull(data, LifeModelSettings(), fixed_shape=None)
     assert outcome.status == UNIDENTIFIABLE and outcome.fit is None
     assert "shape upper" in outcome.message

@@ -36,7 +36,7 @@ pytestmark = pytest.mark.filterwarnings("error")
 
 def small_example() -> LifeData:
     """Month 1: 2 returns, month 2: 1 return; suspensions: 3 at age 1, 2 at age 1.5, 4 at age 2."""
-    return LifeData.from_monthly_returns([1, 2], [2.0, 1.0], [1.0, 1.5, 2.0], [3.0, 2.0, 4.0])
+    return LifeData.from_monthly_returns([1, 2], [2.0, 1.0], [1.0, 1.5, 2.0], [3.0, 2.0, 4.0], day_grid=False)
 
 
 def exponential_log_survival(t: np.ndarray) -> np.ndarray:
@@ -82,7 +82,7 @@ def test_expected_equals_observed_for_exact_weibull_counts():
     windows = np.arange(1, 25)
     r = np.exp(weibull_log_survival(np.arange(25.0), shape, scale))
     returns = np.array([100.0 * np.sum(windows >= k) * (r[k - 1] - r[k]) for k in range(1, 25)])
-    data = LifeData.from_monthly_returns(np.arange(1, 25), returns, windows.astype(float), 100.0 * r[windows])
+    data = LifeData.from_monthly_returns(np.arange(1, 25), returns, windows.astype(float), 100.0 * r[windows], day_grid=False)
     result = goodness_of_fit(data, lambda t: weibull_log_survival(t, shape, scale))
     np.testing.assert_allclose(result.cells["expected"], result.cells["observed"], rtol=1e-12)
     entering = [100.0 * np.sum(windows >= k) * r[k - 1] for k in windows]  # 100 R(k-1) per cohort still observed
@@ -95,7 +95,7 @@ def test_expected_equals_observed_for_exact_weibull_counts():
 def test_lognormal_fit_callable_is_accepted():
     # common practice, no source: the lognormal log R(0) = 0 is handled, totals add up
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(3), 5_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
+        *simulate_warranty(np.random.default_rng(3), 5_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True), day_grid=False
     )
     fit = Fitter(LOGNORMAL).fit(data)
     result = goodness_of_fit(data, fit.log_survival)
@@ -122,7 +122,7 @@ def test_pooling_rule():
 
 def test_pooled_cells_meet_minimum():
     # common practice, no source: every pooled cell has expected >= min_expected
-    data = LifeData.from_monthly_returns(*simulate_warranty(np.random.default_rng(8), 1_500, weibull_life(1.3, 60.0), ages_in_days=True))
+    data = LifeData.from_monthly_returns(*simulate_warranty(np.random.default_rng(8), 1_500, weibull_life(1.3, 60.0), ages_in_days=True), day_grid=False)
     fit = Fitter(WEIBULL).fit(data)
     for minimum in (1.0, 5.0, 20.0):
         result = goodness_of_fit(data, fit.log_survival, min_expected=minimum)
@@ -138,7 +138,7 @@ def test_pooled_cells_meet_minimum():
 
 def test_too_few_cells_give_nan_with_reason():
     # common practice, no source: df = cells - parameters < 1 leaves no test
-    data = LifeData.from_monthly_returns([1], [3.0], [1.0], [50.0])
+    data = LifeData.from_monthly_returns([1], [3.0], [1.0], [50.0], day_grid=False)
     result = goodness_of_fit(data, exponential_log_survival, n_parameters=2)
     assert result.chi_square_df == -1 and math.isnan(result.chi_square_p_value)
     assert result.deviance_df == -1 and math.isnan(result.deviance_p_value)
@@ -154,7 +154,7 @@ def test_pearson_p_values_calibrated_under_the_weibull():
     p_chi, p_dev = [], []
     for seed in range(200):
         data = LifeData.from_monthly_returns(
-            *simulate_warranty(np.random.default_rng(1000 + seed), 2_000, weibull_life(1.3, 60.0), ages_in_days=True)
+            *simulate_warranty(np.random.default_rng(1000 + seed), 2_000, weibull_life(1.3, 60.0), ages_in_days=True), day_grid=False
         )
         fit = Fitter(WEIBULL).fit(data)
         result = goodness_of_fit(data, fit.log_survival)
@@ -172,7 +172,7 @@ def test_wrong_family_is_rejected():
     # common practice, no source: lognormal truth (median 60 months, sigma 1.2, 50,000 units)
     # fitted with a Weibull is rejected; the lognormal fit of the same data is not
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(5), 50_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True)
+        *simulate_warranty(np.random.default_rng(5), 50_000, lognormal_life(math.log(60.0), 1.2), ages_in_days=True), day_grid=False
     )
     weibull = goodness_of_fit(data, Fitter(WEIBULL).fit(data).log_survival)
     assert weibull.chi_square_p_value < 1e-10  # measured 2e-36
@@ -204,7 +204,7 @@ def test_saturated_closed_form_is_the_maximum(d, exposure):
         return -(d * math.log(-math.expm1(-lam)) - lam * exposure) if d > 0 else lam * exposure
 
     best = optimize.minimize_scalar(negative, bounds=(-30.0, 10.0), method="bounded", options={"xatol": 1e-12})
-    data = LifeData.from_monthly_returns([1], [d], [1.0], [exposure])
+    data = LifeData.from_monthly_returns([1], [d], [1.0], [exposure], day_grid=False)
     assert saturated_log_likelihood(data) == pytest.approx(-best.fun, rel=1e-9, abs=1e-12)
 
 
@@ -218,7 +218,7 @@ def test_deviance_uses_the_same_likelihood_as_the_fit():
     failed = life <= window
     m, r = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
     a, c = np.unique(window[~failed], return_counts=True)
-    data = LifeData.from_monthly_returns(m, r.astype(float), a.astype(float), c.astype(float))
+    data = LifeData.from_monthly_returns(m, r.astype(float), a.astype(float), c.astype(float), day_grid=False)
     fit = Fitter(WEIBULL).fit(data)
     result = goodness_of_fit(data, fit.log_survival)
     expected = 2.0 * (saturated_log_likelihood(data) - fit.log_likelihood)
@@ -232,7 +232,7 @@ def test_deviance_never_negative():
     # common practice, no source: G^2 >= 0 (clamped where suspensions inside months could push it below)
     for seed in range(20):
         data = LifeData.from_monthly_returns(
-            *simulate_warranty(np.random.default_rng(seed), 300, weibull_life(2.5, 30.0), ages_in_days=True)
+            *simulate_warranty(np.random.default_rng(seed), 300, weibull_life(2.5, 30.0), ages_in_days=True), day_grid=False
         )
         fit = Fitter(WEIBULL).fit(data)
         assert goodness_of_fit(data, fit.log_survival).deviance >= 0.0
@@ -242,7 +242,7 @@ def test_negative_deviance_is_clamped_with_a_note():
     # common practice, no source: a model whose hazard is ~0 in the first half of month 1 (Weibull
     # shape 20, scale 1) scores 10 mid-month withdrawals at age 0.5 with log R(0.5) ~ -1e-5, beating
     # the saturated constant-hazard month: raw G^2 = 2 (5 log 5 - 6 log 6 - log(1 - e^-1) + ...) < 0
-    data = LifeData.from_monthly_returns([1], [1.0], [0.5], [10.0])
+    data = LifeData.from_monthly_returns([1], [1.0], [0.5], [10.0], day_grid=False)
     result = goodness_of_fit(data, lambda t: weibull_log_survival(t, 20.0, 1.0), n_parameters=0)
     raw = 2 * (5 * math.log(5) - 6 * math.log(6) - math.log(-math.expm1(-1.0)) + 10 * 0.5**20)
     assert raw < 0.0
@@ -268,13 +268,13 @@ def test_rejects_unsupported_inputs():
     with pytest.raises(ValueError, match="<= 0"):
         goodness_of_fit(small_example(), lambda t: 0.1 * np.asarray(t))
     with pytest.raises(ValueError, match="no exposure"):
-        goodness_of_fit(LifeData.from_monthly_returns([], [], [0.0], [5.0]), exponential_log_survival)
+        goodness_of_fit(LifeData.from_monthly_returns([], [], [0.0], [5.0], day_grid=False), exponential_log_survival)
 
 
 def test_zero_count_rows_and_inputs_untouched():
     # common practice, no source: zero-count rows change nothing; the data are not modified
     base = small_example()
-    padded = LifeData.from_monthly_returns([1, 2, 2], [2.0, 1.0, 0.0], [1.0, 1.5, 2.0, 7.0], [3.0, 2.0, 4.0, 0.0])
+    padded = LifeData.from_monthly_returns([1, 2, 2], [2.0, 1.0, 0.0], [1.0, 1.5, 2.0, 7.0], [3.0, 2.0, 4.0, 0.0], day_grid=False)
     a = goodness_of_fit(base, exponential_log_survival, n_parameters=0, min_expected=0.1)
     b = goodness_of_fit(padded, exponential_log_survival, n_parameters=0, min_expected=0.1)
     assert a.chi_square == b.chi_square and a.deviance == b.deviance

@@ -15,7 +15,7 @@ import pytest
 from scipy import integrate, optimize, stats
 
 from warranty_forecast.errors import FitError
-from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.data import LifeData, month_interval_ends
 from warranty_forecast.lifecore.errors import FitNotConvergedError, InsufficientDataError
 from warranty_forecast.lifecore.families import WEIBULL
 from warranty_forecast.lifecore.families.weibull import rate_from_scale, scale_from_rate
@@ -120,7 +120,7 @@ def _tight_fmin(func, x0, args=(), disp=0):
 def test_grouped_fit_matches_scipy_censored_fit():
     # reference library: scipy.stats.weibull_min.fit with CensoredData, counts expanded by numpy.repeat
     months, returns, ages, counts = simulate_warranty(np.random.default_rng(20240601), 4000, weibull_life(1.3, 60.0))
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     assert data.n_returns > 500  # enough returns for a well-determined fit
     fit = Fitter(WEIBULL).fit(data)
     n_per_month = returns.astype(int)
@@ -292,7 +292,7 @@ def test_no_warnings_at_extreme_parameters():
 
 
 def test_from_monthly_returns_maps_month_k_to_interval():
-    data = LifeData.from_monthly_returns([1, 2, 5], [3, 0, 1.5], [6.0, 12.0], [100, 50.5])
+    data = LifeData.from_monthly_returns([1, 2, 5], [3, 0, 1.5], [6.0, 12.0], [100, 50.5], day_grid=False)
     np.testing.assert_array_equal(data.interval_lower, [0.0, 1.0, 4.0])
     np.testing.assert_array_equal(data.interval_upper, [1.0, 2.0, 5.0])
     assert data.n_returns == 4.5
@@ -301,10 +301,22 @@ def test_from_monthly_returns_maps_month_k_to_interval():
     assert data.exact_ages.size == 0
 
 
+def test_from_monthly_returns_puts_month_k_on_the_day_grid_by_default():
+    # common practice, no source: month k holds whole-day ages floor((k-1) L) + 1 .. floor(k L) days,
+    # L = 365.25 / 12 = 30.4375; so month 1 = (0, 30] days, month 2 = (30, 60], month 3 = (60, 91],
+    # month 24 = (700, 730] days (hand arithmetic: 23 L = 700.06, 24 L = 730.5).
+    data = LifeData.from_monthly_returns([1, 2, 3, 24], [1, 1, 1, 1], [6.0], [10])
+    days = 365.25 / 12
+    np.testing.assert_allclose(data.interval_lower * days, [0.0, 30.0, 60.0, 700.0], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(data.interval_upper * days, [30.0, 60.0, 91.0, 730.0], rtol=0, atol=1e-9)
+    lower, upper = month_interval_ends(np.arange(1, 121))
+    assert np.all(lower[1:] == upper[:-1]) and np.all(upper - lower > 0.98) and np.all(upper <= np.arange(1, 121))
+
+
 @pytest.mark.parametrize("months", [[0, 1], [1.5, 2], [np.nan, 1]])
 def test_from_monthly_returns_rejects_bad_months(months):
     with pytest.raises(ValueError, match="months_in_service"):
-        LifeData.from_monthly_returns(months, [1, 1], [3.0], [10])
+        LifeData.from_monthly_returns(months, [1, 1], [3.0], [10], day_grid=False)
 
 
 @pytest.mark.parametrize(
@@ -327,7 +339,7 @@ def test_life_data_validation(kwargs, message):
 def test_inputs_are_copied_not_mutated():
     months, returns, ages, counts = simulate_warranty(np.random.default_rng(1), 1000, weibull_life(1.2, 40.0))
     originals = [a.copy() for a in (months, returns, ages, counts)]
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     Fitter(WEIBULL).fit(data)
     for before, after in zip(originals, (months, returns, ages, counts)):
         np.testing.assert_array_equal(before, after)
@@ -343,14 +355,14 @@ def test_inputs_are_copied_not_mutated():
 
 
 def test_zero_returns_raise_insufficient_data():
-    data = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300])
+    data = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300], day_grid=False)
     with pytest.raises(InsufficientDataError, match="0 returns"):
         Fitter(WEIBULL).fit(data)
     assert issubclass(InsufficientDataError, FitError) and issubclass(FitNotConvergedError, FitError)
 
 
 def test_fewer_returns_than_minimum_raise_insufficient_data():
-    data = LifeData.from_monthly_returns([1, 3], [2, 2], [12.0], [500])
+    data = LifeData.from_monthly_returns([1, 3], [2, 2], [12.0], [500], day_grid=False)
     with pytest.raises(InsufficientDataError, match="fewer than the 5"):
         Fitter(WEIBULL).fit(data)
     # with the minimum lowered the data reach the optimiser (4 returns cannot pin down the scale here)
@@ -358,7 +370,7 @@ def test_fewer_returns_than_minimum_raise_insufficient_data():
 
 
 def test_no_suspensions_raise_insufficient_data_unless_allowed():
-    data = LifeData.from_monthly_returns([1, 2, 3, 4, 5, 6], [3, 5, 6, 4, 2, 1], [], [])
+    data = LifeData.from_monthly_returns([1, 2, 3, 4, 5, 6], [3, 5, 6, 4, 2, 1], [], [], day_grid=False)
     with pytest.raises(InsufficientDataError, match="no suspensions"):
         Fitter(WEIBULL).fit(data)
     assert Fitter(WEIBULL, require_suspensions=False).fit(data).converged
@@ -373,7 +385,7 @@ def test_no_suspensions_raise_insufficient_data_unless_allowed():
     ],
 )
 def test_returns_in_one_month_do_not_give_a_confident_fit(months, returns, ages, counts, why):
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     with pytest.raises(FitNotConvergedError, match=why) as raised:
         Fitter(WEIBULL).fit(data)
     message = str(raised.value)
@@ -423,7 +435,7 @@ def test_wald_coverage_of_shape_is_near_nominal():
     fitter = Fitter(WEIBULL)
     hits = 0
     for _ in range(200):
-        fit = fitter.fit(LifeData.from_monthly_returns(*simulate_warranty(rng, 1500, weibull_life(1.5, 40.0))))
+        fit = fitter.fit(LifeData.from_monthly_returns(*simulate_warranty(rng, 1500, weibull_life(1.5, 40.0)), day_grid=False))
         lower, upper = fit.bounds("shape")
         hits += lower <= 1.5 <= upper
     assert 0.90 <= hits / 200 <= 0.99

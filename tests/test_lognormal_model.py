@@ -67,7 +67,7 @@ def test_grouped_fit_matches_scipy_censored_fit(lognormal_warranty):
     # reference library: scipy.stats.lognorm.fit with CensoredData (floc=0), counts expanded by
     # numpy.repeat; scipy's s is sigma and its scale is exp(mu)
     months, returns, ages, counts = lognormal_warranty
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     assert data.n_returns > 300  # a well-determined fit
     fit = Fitter(LOGNORMAL).fit(data)
     assert fit.converged
@@ -111,7 +111,7 @@ def test_complete_data_fit_matches_closed_form():
 
 def test_covariance_is_inverse_of_numerical_information(lognormal_warranty):
     # common practice, no source: second central differences of scipy's log-likelihood sums at the MLE
-    data = LifeData.from_monthly_returns(*lognormal_warranty)
+    data = LifeData.from_monthly_returns(*lognormal_warranty, day_grid=False)
     fit = Fitter(LOGNORMAL).fit(data)
 
     def loglik(theta: np.ndarray) -> float:
@@ -226,7 +226,7 @@ def test_fit_functions_match_scipy_lognorm():
 def test_lognormal_data_prefer_lognormal():
     # common practice, no source: AIC on data simulated from the family being tested
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(11), 20_000, lognormal_life(math.log(80.0), 1.5))
+        *simulate_warranty(np.random.default_rng(11), 20_000, lognormal_life(math.log(80.0), 1.5)), day_grid=False
     )
     weibull, lognormal = Fitter(WEIBULL).fit(data), Fitter(LOGNORMAL).fit(data)
     comparison = compare_families(weibull.log_likelihood, lognormal.log_likelihood)
@@ -239,7 +239,7 @@ def test_lognormal_data_prefer_lognormal():
 def test_weibull_data_prefer_weibull():
     # common practice, no source: AIC on data simulated from the family being tested
     data = LifeData.from_monthly_returns(
-        *simulate_warranty(np.random.default_rng(12), 20_000, weibull_life(1.8, 50.0))
+        *simulate_warranty(np.random.default_rng(12), 20_000, weibull_life(1.8, 50.0)), day_grid=False
     )
     weibull, lognormal = Fitter(WEIBULL).fit(data), Fitter(LOGNORMAL).fit(data)
     comparison = compare_families(weibull.log_likelihood, lognormal.log_likelihood)
@@ -270,15 +270,15 @@ def test_compare_families_threshold_and_messages():
 def test_insufficient_data():
     # common practice, no source: the fitter refuses data it cannot fit
     with pytest.raises(InsufficientDataError, match="fewer than the 5"):
-        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2], [1.0, 2.0], [12.0], [100.0]))
+        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2], [1.0, 2.0], [12.0], [100.0], day_grid=False))
     with pytest.raises(InsufficientDataError, match="no suspensions"):
-        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2, 3], [4.0, 5.0, 6.0], [], []))
+        Fitter(LOGNORMAL).fit(LifeData.from_monthly_returns([1, 2, 3], [4.0, 5.0, 6.0], [], [], day_grid=False))
     assert issubclass(InsufficientDataError, FitError)
 
 
 def test_returns_in_one_month_do_not_converge():
     # common practice, no source: with every return in month 1, sigma runs off towards infinity
-    data = LifeData.from_monthly_returns([1], [10.0], [12.0], [100.0])
+    data = LifeData.from_monthly_returns([1], [10.0], [12.0], [100.0], day_grid=False)
     with pytest.raises(FitNotConvergedError, match="returns all in one month"):
         Fitter(LOGNORMAL).fit(data)
     fit = Fitter(LOGNORMAL, raise_on_failure=False).fit(data)
@@ -288,7 +288,7 @@ def test_returns_in_one_month_do_not_converge():
 def test_fit_does_not_touch_inputs(lognormal_warranty):
     # common practice, no source: inputs stay as they were
     months, returns, ages, counts = (a.copy() for a in lognormal_warranty)
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     Fitter(LOGNORMAL).fit(data)
     for before, after in zip(lognormal_warranty, (months, returns, ages, counts)):
         np.testing.assert_array_equal(before, after)

@@ -34,11 +34,13 @@ class Weibull:
 
 
 def test_hazard_ratio_of_one_month_of_returns_has_its_closed_form():
-    # Hand computation: n returns in month 1 and s suspensions at age 1 under an exponential base of mean
-    # 50 months (d = H0(1) = 1/50): l(c) = n log(1 - exp(-c d)) - c s d, maximal where
-    # exp(-c d) = s / (n + s), so c_hat = -log(s / (n + s)) / d.
-    n, s, d = 30.0, 970.0, 1 / 50
-    test = hazard_ratio_test(Weibull(1.0, 50.0), MonthData.of([1], [n], [1.0], [s]))
+    # Hand computation: n returns in month 1 and s suspensions at its end b_1 (the day grid: 30 days =
+    # 30 / 30.4375 months) under an exponential base of mean 50 months (d = H0(b_1) = b_1 / 50):
+    # l(c) = n log(1 - exp(-c d)) - c s d, maximal where exp(-c d) = s / (n + s), so
+    # c_hat = -log(s / (n + s)) / d.
+    end = 30 / (365.25 / 12)
+    n, s, d = 30.0, 970.0, end / 50
+    test = hazard_ratio_test(Weibull(1.0, 50.0), MonthData.of([1], [n], [end], [s]))
     assert test.hazard_ratio == pytest.approx(-math.log(s / (n + s)) / d, rel=1e-9)
     # the likelihood-ratio interval's ends drop the log-likelihood by chi2_1(0.95) / 2 (definition)
     def ell(c):
@@ -83,7 +85,7 @@ def test_the_grouped_log_likelihood_matches_the_lifecore_likelihood():
     months = np.array([1.0, 2.0, 3.0, 5.0])
     counts = np.array([4.0, 7.0, 2.0, 9.0])
     ages, survivors = np.array([2.5, 6.0]), np.array([300.0, 700.0])
-    fit = Fitter("weibull").fit(LifeData.from_monthly_returns(months, counts, ages, survivors))
+    fit = Fitter("weibull").fit(LifeData.from_monthly_returns(months, counts, ages, survivors))  # both on the day grid
     assert log_likelihood(fit, MonthData.of(months, counts, ages, survivors)) == pytest.approx(fit.log_likelihood, rel=1e-10)
 
 

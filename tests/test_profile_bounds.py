@@ -69,7 +69,7 @@ def simulate_warranty_sets(
     for j in range(n_sets):
         months = np.flatnonzero(returns[j]) + 1
         sets.append(
-            LifeData.from_monthly_returns(months, returns[j, months - 1], window.astype(float), survivors[j])
+            LifeData.from_monthly_returns(months, returns[j, months - 1], window.astype(float), survivors[j], day_grid=False)
         )
     return sets
 
@@ -340,7 +340,7 @@ def test_profile_bounds_reject_bad_input():
         profile_bounds(fit, "shape", confidence_level=1.0)
     # a fit keeps its own data, so bounds can no longer be asked of other data (was: ValueError)
     assert fit.data is data
-    flagged = Fitter(WEIBULL, raise_on_failure=False).fit(LifeData.from_monthly_returns([1], [12], [1.0], [988]))
+    flagged = Fitter(WEIBULL, raise_on_failure=False).fit(LifeData.from_monthly_returns([1], [12], [1.0], [988], day_grid=False))
     assert not flagged.converged
     with pytest.raises(FitNotConvergedError, match="converged fit"):
         likelihood_ratio_bounds(flagged)
@@ -396,7 +396,7 @@ def test_unbounded_b10_upper_end_is_infinite_and_flagged():
     ],
 )
 def test_flat_likelihood_raises_unidentifiable(months, returns, ages, counts, why):
-    data = LifeData.from_monthly_returns(months, returns, ages, counts)
+    data = LifeData.from_monthly_returns(months, returns, ages, counts, day_grid=False)
     with pytest.raises(UnidentifiableError, match=why) as raised:
         Fitter(WEIBULL).fit(data)
     assert isinstance(raised.value, FitNotConvergedError)
@@ -508,17 +508,17 @@ def test_fixed_shape_summary_and_method():
 def test_fixed_shape_refuses_no_returns_and_no_exposure():
     fitter = Fitter(WEIBULL)
     # documented: no returns, no maximum-likelihood scale (the likelihood rises as the scale grows)
-    no_returns = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300])
+    no_returns = LifeData.from_monthly_returns([], [], [12.0, 24.0], [500, 300], day_grid=False)
     with pytest.raises(InsufficientDataError, match="0 returns"):
         fitter.fit(no_returns, fixed={"shape": 1.5})
     no_exposure = LifeData(suspension_ages=[0.0], suspension_counts=[100.0])
     with pytest.raises(InsufficientDataError):
         fitter.fit(no_exposure, fixed={"shape": 1.5})
-    no_suspensions = LifeData.from_monthly_returns([1, 2], [3, 1], [], [])
+    no_suspensions = LifeData.from_monthly_returns([1, 2], [3, 1], [], [], day_grid=False)
     with pytest.raises(InsufficientDataError, match="no suspensions"):
         fitter.fit(no_suspensions, fixed={"shape": 1.5})
     # one return is enough once the shape is fixed (min_returns does not apply)
-    one_return = LifeData.from_monthly_returns([7], [1], [12.0, 24.0], [500, 300])
+    one_return = LifeData.from_monthly_returns([7], [1], [12.0, 24.0], [500, 300], day_grid=False)
     assert fitter.fit(one_return, fixed={"shape": 1.5}).converged
     for bad in (0.0, -1.0, math.nan, math.inf, 1e3):
         with pytest.raises(ValueError, match="fixed shape"):

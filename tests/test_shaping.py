@@ -186,8 +186,10 @@ def test_age_in_service_matrix_units_at_risk(shaped):
     assert a1.loc[3, "units_at_risk"] == pytest.approx(149)
     assert a1.loc[5, "units_at_risk"] == pytest.approx(148)
     assert a1.loc[2, "return_rate"] == pytest.approx(1 / 150)
-    # every unit's observation ends inside month 11 (ages 10.97 and 10.84 months)
-    assert a1.loc[11, "units_withdrawn"] == pytest.approx(148)
+    # month 11 holds the days 305..334 (the day grid: floor(10 x 30.4375) = 304, floor(11 x 30.4375) = 334).
+    # The row observed 334 days ends exactly with month 11 (a whole-month survivor, not withdrawn); the
+    # 50-unit row observed 330 days (10.84 months) ends inside it: its 148/3 survivors are withdrawn there.
+    assert a1.loc[11, "units_withdrawn"] == pytest.approx(148 / 3)
     assert a1.index.max() == 11
 
 

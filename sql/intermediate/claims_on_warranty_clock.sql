@@ -5,8 +5,8 @@
 -- Reads: claims_checked_against_shipments.
 -- Warranty clock of a claim: its own sale_date; else its unit's clock (joined on serial); else the median
 -- clock of its product x build month (imputed, counted in the run facts).
--- Months in service: age x = days / (365.25/12) from the clock to failure_date; MIS k = max(1, ceil(x)),
--- the interval (k-1, k]. claim_sale_month is the month the clock started.
+-- Months in service: age x = days / (365.25/12) from the clock to failure_date; MIS k = max(1, ceil(x)).
+-- On the day grid (macros/ages.sql) month k holds the ages (month_start_age(k), month_end_age(k)]. claim_sale_month is the month the clock started.
 with checked_claims as (
     select
         source_row_number,
@@ -44,7 +44,7 @@ clocked_claims as (
 aged_claims as (
     select
         *,
-        date_diff('day', warranty_start_date, failure_date) / (365.25 / 12) as age_months
+        age_of_days(date_diff('day', warranty_start_date, failure_date)) as age_months
     from clocked_claims
 )
 

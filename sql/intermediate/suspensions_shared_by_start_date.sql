@@ -3,7 +3,8 @@
 -- Grain: one row per product x build_month x sale_month x warranty_months x warranty_start_date.
 -- Parameters: none.
 -- Reads: units_aged_to_as_of, sale_month_group_survivors.
--- observed_age_months is the lesser of the age at the as-of date and the warranty length (0 for units
+-- observed_age_months is the lesser of the age at the as-of date and the end of the warranty's last month
+-- in service (month_end_age(warranty_months), macros/ages.sql) (0 for units
 -- still in the channel). A group's survivors (units minus counted returns) are shared among its rows in
 -- proportion to units, so suspensions may be fractional.
 with units_by_start_date as (

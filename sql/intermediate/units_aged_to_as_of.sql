@@ -7,7 +7,9 @@
 -- then (all products' rows when the product has none; 0 days when no row has both). A sale date after
 -- the as-of date was not yet known then: the row counts as unsold and gets an imputed clock like any
 -- other. An imputed clock after the as-of date means the units are still in the channel (age 0).
--- Ages are in months of 365.25/12 days.
+-- Ages are whole days / (365.25/12) (macros/ages.sql). observed_age_months stops at the end of the
+-- warranty's last month in service, month_end_age(warranty_months) (the day grid: 730 days, 23.98 months,
+-- for 24 months), so a unit past its warranty is suspended where the counted returns stop.
 with valid_shipments as (
     select
         source_row_number,
@@ -87,7 +89,8 @@ select
     units,
     serial,
     warranty_start_date > $as_of_date as is_in_channel,
-    greatest(date_diff('day', warranty_start_date, $as_of_date), 0) / (365.25 / 12) as age_months,
-    least(greatest(date_diff('day', warranty_start_date, $as_of_date), 0) / (365.25 / 12), warranty_months)
-        as observed_age_months
+    age_of_days(greatest(date_diff('day', warranty_start_date, $as_of_date), 0)) as age_months,
+    age_of_days(
+        least(greatest(date_diff('day', warranty_start_date, $as_of_date), 0), floor(warranty_months * (365.25 / 12)))
+    ) as observed_age_months
 from clocked_units

@@ -4,9 +4,10 @@
 -- Parameters: none.
 -- Reads: suspensions_shared_by_start_date, returns_counted_by_group_and_month.
 -- Sort: product, build_month, months_in_service
--- units_at_risk: units observed into month k (observed age above k-1) less their share of the
--- returns their group had before month k. units_withdrawn: survivors whose observation ended inside
--- month k (age at the as-of date between k-1 and k). return_rate = returns / units_at_risk.
+-- units_at_risk: units observed into month k (observed age above its start, month_start_age(k), about
+-- k-1; macros/ages.sql) less their share of the returns their group had before month k. units_withdrawn:
+-- survivors whose observation ended inside month k (age at the as-of date before its end,
+-- month_end_age(k)). return_rate = returns / units_at_risk.
 with suspension_rows as (
     select
         product, build_month, sale_month, warranty_months, warranty_start_date, observed_age_months, units,
@@ -65,7 +66,7 @@ units_at_risk_by_month as (
         ) as units_at_risk,
         sum(
             case
-                when row_.observed_age_months < before.months_in_service then row_.suspensions
+                when row_.observed_age_months < month_end_age(before.months_in_service) then row_.suspensions
                 else 0
             end
             order by row_.sale_month, row_.warranty_months, row_.warranty_start_date
@@ -76,7 +77,7 @@ units_at_risk_by_month as (
         and row_.build_month = before.build_month
         and row_.sale_month = before.sale_month
         and row_.warranty_months = before.warranty_months
-        and row_.observed_age_months > before.months_in_service - 1
+        and row_.observed_age_months > month_start_age(before.months_in_service)
     group by row_.product, row_.build_month, before.months_in_service
 ),
 

@@ -1,7 +1,7 @@
 """Grouped life data: interval-censored returns, right-censored suspensions and exact ages, with counts.
 
-Ages are in months in service (any unit works if used consistently). A return in month in service k
-lies in (k-1, k]; a suspension is a unit still running at its observed age. Counts may be fractional.
+Ages are in months of DAYS_PER_MONTH days. A return in month in service k lies in the day-grid interval
+`month_interval_ends(k)`, about (k-1, k]; a suspension is a unit still running at its observed age. Counts may be fractional.
 `LifeData.prepared` holds the positive-count rows with log ages, computed once and shared by every
 family's likelihood.
 """
@@ -15,6 +15,30 @@ import numpy as np
 import numpy.typing as npt
 
 FloatArray = npt.NDArray[np.float64]
+
+
+DAYS_PER_MONTH = 365.25 / 12
+"""Length of a month of age in days: ages in months are whole days / DAYS_PER_MONTH."""
+
+
+def month_interval_ends(months_in_service: npt.ArrayLike) -> tuple[FloatArray, FloatArray]:
+    """The age interval (lower, upper], in months, of a return counted in month in service k.
+
+    Ages come from whole-day dates: a failure dated d days after the warranty start is taken to have
+    failed during its d-th day of service, age in (d - 1, d] days (d = 0, a failure on the start day,
+    counts as day 1). Month in service k = max(1, ceil(d / DAYS_PER_MONTH)) holds the days
+    floor((k - 1) L) + 1 .. floor(k L), L = DAYS_PER_MONTH, so its ages are
+
+        (floor((k - 1) L) / L, floor(k L) / L]   months,
+
+    not (k - 1, k]: month 1 is (0, 30/L], month 2 (30/L, 60/L], month 3 (60/L, 91/L], ... The
+    difference is under a day but systematic; with tens of thousands of returns it is enough to make a
+    goodness-of-fit test reject a true model.
+    """
+    k = np.asarray(months_in_service, dtype=float)
+    lower = np.floor((k - 1.0) * DAYS_PER_MONTH) / DAYS_PER_MONTH
+    upper = np.floor(k * DAYS_PER_MONTH) / DAYS_PER_MONTH
+    return lower, upper
 
 
 def _empty() -> FloatArray:
@@ -109,17 +133,22 @@ class LifeData:
         returns: npt.ArrayLike,
         suspension_ages: npt.ArrayLike,
         suspension_counts: npt.ArrayLike,
+        *,
+        day_grid: bool = True,
     ) -> LifeData:
-        """Returns counted by month in service k (integer >= 1), each in (k-1, k] months,
-        plus suspensions (units still in service at the given age in months)."""
+        """Returns counted by month in service k (integer >= 1), each in the day-grid interval of
+        `month_interval_ends(k)` (months; what the pipeline's whole-day dates give), or in (k-1, k] with
+        `day_grid=False` (ages measured on a continuous month scale), plus suspensions (units still in
+        service at the given age in months)."""
         months = np.asarray(months_in_service, dtype=float)
         if months.ndim != 1 or not np.all(np.isfinite(months)):
             raise ValueError("months_in_service must be a one-dimensional array of finite values")
         if np.any(months < 1.0) or np.any(months != np.round(months)):
-            raise ValueError("months_in_service must be integers >= 1 (month k covers ages (k-1, k])")
+            raise ValueError("months_in_service must be integers >= 1 (month k covers ages of about (k-1, k])")
+        lower, upper = month_interval_ends(months) if day_grid else (months - 1.0, months)
         return cls(
-            interval_lower=months - 1.0,
-            interval_upper=months,
+            interval_lower=lower,
+            interval_upper=upper,
             interval_counts=returns,
             suspension_ages=suspension_ages,
             suspension_counts=suspension_counts,

@@ -22,6 +22,7 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
+from warranty_forecast.lifecore.data import month_interval_ends
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.outputs.safe_text import chart_text
 
@@ -78,16 +79,20 @@ RETURN_RATE_CELL_COLUMNS = (
 )
 
 
-def _row_months(fit_suspensions: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _row_months(fit_suspensions: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Each fit_suspensions row spread over the months in service it was observed in: the row index, the
-    month k (1-based) and the fraction of month k observed, clip(observed_age - (k - 1), 0, 1) > 0."""
+    month k (1-based), the month's start b_{k-1} and the end of the row's observation in it,
+    min(observed_age, b_k), in months ((b_{k-1}, b_k] = month_interval_ends(k), the day grid)."""
     ages = np.nan_to_num(fit_suspensions["observed_age_months"].to_numpy(dtype=float), nan=0.0)
-    months = np.ceil(np.clip(ages, 0.0, None)).astype(np.int64)
+    ages = np.clip(ages, 0.0, None)
+    # the month holding age a > 0: the first k with b_k >= a (b_k <= k, so k >= ceil(a), and one more at most)
+    months = np.ceil(ages).astype(np.int64)
+    months += (months >= 1) & (month_interval_ends(months)[1] < ages)
     row = np.repeat(np.arange(len(ages)), months)
     first = np.repeat(np.cumsum(months) - months, months)
     k = np.arange(len(row)) - first + 1
-    fraction = np.clip(ages[row] - (k - 1), 0.0, 1.0)
-    return row, k, fraction
+    start, end = month_interval_ends(k)
+    return row, k, start, np.minimum(ages[row], end)
 
 
 def _share_at_risk(
@@ -120,10 +125,12 @@ def exposure_by_month_in_service(
     """Unit-months of exposure per product x build month x month in service k (columns product,
     build_month, months_in_service, exposure_unit_months; only cells with exposure):
 
-        exposure_k = sum over fit_suspensions rows of  units x (1 - R_<k / U) x clip(a - (k - 1), 0, 1)
+        exposure_k = sum over fit_suspensions rows of  units x (1 - R_<k / U) x (min(a, b_k) - b_{k-1})+
 
-    a the row's observed age in months: a unit observed to age 2.5 adds 1 unit-month to months 1 and 2 and
-    half a unit-month to month 3, so the newest month of a build month is not divided by its full units.
+    a the row's observed age in months, (b_{k-1}, b_k] month k's ages on the day grid
+    (lifecore.data.month_interval_ends: 30 or 31 days, about one month): a unit observed to age 2.5 adds
+    about 1 unit-month to months 1 and 2 and half a unit-month to month 3, so the newest month of a build
+    month is not divided by its full units.
     With `fit_returns`, units returned before month k leave the exposure (R_<k / U: the sale-month group's
     returns before k over its units, shared among its rows in proportion to units, as age_in_service
     does); without it nothing is subtracted. The units returned in month k itself count for the whole
@@ -132,9 +139,9 @@ def exposure_by_month_in_service(
     """
     if not len(fit_suspensions):
         return pd.DataFrame({c: pd.Series(dtype=object) for c in _CELL}).assign(exposure_unit_months=pd.Series(dtype=float))
-    row, k, fraction = _row_months(fit_suspensions)
+    row, k, start, observed_end = _row_months(fit_suspensions)
     units = fit_suspensions["units"].to_numpy(dtype=float)[row]
-    exposure = units * _share_at_risk(fit_suspensions, fit_returns, row, k) * fraction
+    exposure = units * _share_at_risk(fit_suspensions, fit_returns, row, k) * np.maximum(observed_end - start, 0.0)
     cells = pd.DataFrame({
         "product": fit_suspensions["product"].to_numpy()[row],
         "build_month": fit_suspensions["build_month"].to_numpy()[row],
@@ -153,11 +160,11 @@ def return_rate_cells(
     returns (RETURN_RATE_CELL_COLUMNS):
 
         rate_per_1000_unit_months = 1,000 x returns_k / exposure_k      (see exposure_by_month_in_service)
-        expected_returns          = sum over rows with a > k - 1 of  units x (F(min(a, k)) - F(k - 1))
+        expected_returns          = sum over rows with a > b_{k-1} of  units x (F(min(a, b_k)) - F(b_{k-1}))
         observed_to_expected      = returns_k / expected_returns
 
-    F is the product's baseline in `baselines` (any object with `cdf`; NaN without one). units x (F(min(a,
-    k)) - F(k - 1)) is the expected number of the row's units that fail in month k within their
+    F is the product's baseline in `baselines` (any object with `cdf`; NaN without one). units x
+    (F(min(a, b_k)) - F(b_{k-1})) is the expected number of the row's units that fail in month k within their
     observation window, so the cells of a build month add up to the alert stage's whole-window expected
     returns (sum of units x F(a)). The rate is NaN without exposure, the ratio NaN when nothing is expected.
     is_thin: exposure below MIN_EXPOSURE_UNIT_MONTHS (not coloured on the chart); is_ratio_thin: is_thin,
@@ -166,7 +173,7 @@ def return_rate_cells(
     baselines = baselines or {}
     exposure = exposure_by_month_in_service(fit_suspensions, fit_returns)
     if len(fit_suspensions):
-        row, k, fraction = _row_months(fit_suspensions)
+        row, k, start, observed_end = _row_months(fit_suspensions)
         products = fit_suspensions["product"].to_numpy()[row]
         units = fit_suspensions["units"].to_numpy(dtype=float)[row]
         expected = np.full(len(row), np.nan)
@@ -175,9 +182,8 @@ def return_rate_cells(
             if curve is None:
                 continue
             at = products == product
-            start = (k[at] - 1).astype(float)
-            expected[at] = units[at] * (np.asarray(curve.cdf(start + fraction[at]), dtype=float)
-                                        - np.asarray(curve.cdf(start), dtype=float))
+            expected[at] = units[at] * (np.asarray(curve.cdf(observed_end[at]), dtype=float)
+                                        - np.asarray(curve.cdf(start[at]), dtype=float))
         expected_cells = pd.DataFrame({
             "product": products, "build_month": fit_suspensions["build_month"].to_numpy()[row],
             "months_in_service": k, "expected_returns": expected,
@@ -561,7 +567,8 @@ def weibull_probability_plot(
 ) -> Figure:
     """Life-table fraction failed (with Greenwood bounds) and the fitted Weibull line with its Wald band.
 
-    Axes: log(months in service) against log(-log(1 - F)); a Weibull is a straight line of slope shape.
+    Axes: log(age in months: the end of each month in service, `age_months`) against log(-log(1 - F)); a
+    Weibull is a straight line of slope shape.
     `alternatives` (e.g. the lognormal fits) are drawn dashed for comparison.
     """
     alternatives = alternatives or {}
@@ -569,7 +576,7 @@ def weibull_probability_plot(
     figure, axes = _grid(len(products))
     for axis, product in zip(axes.flat, products):
         rows = life_table[(life_table["product"] == product) & (life_table["fraction_failed"] > 0)]
-        months = rows["months_in_service"].to_numpy(dtype=float)
+        months = (rows["age_months"] if "age_months" in rows else rows["months_in_service"]).to_numpy(dtype=float)
         axis.errorbar(
             months,
             _weibull_scale(rows["fraction_failed"]),

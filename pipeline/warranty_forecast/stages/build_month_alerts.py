@@ -8,7 +8,8 @@ that were all observed to `observed_age_months`, 0 for units still in the channe
     observed  O   = sum of returns
     expected  E   = sum over rows of units x F(observed_age)
     early     O_K = sum of returns with months_in_service <= K
-              E_K = sum over rows of units x F(min(observed_age, K))
+              E_K = sum over rows of units x F(min(observed_age, b_K)), b_K the end of month in
+                    service K on the day grid (lifecore.data.month_interval_ends, about K months)
 
 F is the cdf of the product's baseline model (any family, used only through `cdf`). units x F(a) is
 the expected number of the row's units that fail within their observation window (0, a]: a unit that
@@ -57,6 +58,7 @@ from scipy import stats
 
 from warranty_forecast.config import AlertSettings, LifeModelSettings
 from warranty_forecast.errors import FitError
+from warranty_forecast.lifecore.data import month_interval_ends
 from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_product
@@ -218,6 +220,7 @@ def score_build_months(
     """One product's build months judged against `baseline`: both views' O, E, ratio with Garwood bounds,
     p, BH q, the flag and its reason (columns BUILD_MONTH_ALERT_COLUMNS without `product`)."""
     k = float(settings.early_life_months)
+    early_end = float(month_interval_ends(k)[1])  # the end of month K on the day grid, about K months
     ages = suspensions["observed_age_months"].to_numpy(dtype=float)
     units = suspensions["units"].to_numpy(dtype=float)
     exposure = pd.DataFrame(
@@ -225,7 +228,7 @@ def score_build_months(
             "build_month": suspensions["build_month"].to_numpy(),
             "units": units,
             "window_expected_returns": units * baseline.cdf(ages),
-            "early_expected_returns": units * baseline.cdf(np.minimum(ages, k)),
+            "early_expected_returns": units * baseline.cdf(np.minimum(ages, early_end)),
         }
     ).groupby("build_month", as_index=False).sum()
     early = returns["months_in_service"].to_numpy() <= k

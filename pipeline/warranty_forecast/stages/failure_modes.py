@@ -2,8 +2,9 @@
 
 For each product, failure codes with at least `min_returns_per_mode` counted returns are fitted
 separately; the others fold into one group named "other". When a mode is fitted, the returns of the
-other modes are its suspensions at the middle of their month in service (k - 1/2: they left service
-for another reason somewhere inside (k-1, k]), beside the product's own suspensions. The product's
+other modes are its suspensions at the middle of their month in service (the midpoint of its day-grid
+interval `month_interval_ends(k)`, about k - 1/2: they left service for another reason somewhere inside
+it), beside the product's own suspensions. The product's
 life is then R(t) = prod_m R_m(t), i.e. F = 1 - prod_m (1 - F_m), and its expected future returns are
 split among the modes (see `forecast.expected_future_returns_by_mode`).
 """
@@ -19,7 +20,7 @@ import pandas as pd
 
 from warranty_forecast.config import LifeModelSettings
 from warranty_forecast.stages.fitting import FIT_STATUS_AND_PARAMETER_COLUMNS, PUBLISHED_STATUSES, fit_weibull
-from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.data import LifeData, month_interval_ends
 from warranty_forecast.lifecore.profile import LikelihoodRatioBounds
 from warranty_forecast.lifecore.result import FitResult
 
@@ -66,7 +67,8 @@ def mode_membership(returns_by_code: pd.Series, min_returns_per_mode: int) -> di
 def competing_risk_data(
     returns_by_mode_and_month: pd.DataFrame, codes: tuple[str, ...], product_data: LifeData
 ) -> LifeData:
-    """Life data of one mode: its returns by month; other modes' returns suspended at k - 1/2.
+    """Life data of one mode: its returns by month; other modes' returns suspended at the middle of their
+    month in service (day grid, about k - 1/2).
 
     `returns_by_mode_and_month` has columns failure_mode (the failure code), months_in_service, returns
     for one product; `product_data` supplies the product's own suspensions.
@@ -74,10 +76,11 @@ def competing_risk_data(
     is_mode = returns_by_mode_and_month["failure_mode"].isin(codes)
     own = returns_by_mode_and_month[is_mode].groupby("months_in_service")["returns"].sum()
     others = returns_by_mode_and_month[~is_mode].groupby("months_in_service")["returns"].sum()
+    other_lower, other_upper = month_interval_ends(others.index.to_numpy(dtype=float))
     return LifeData.from_monthly_returns(
         months_in_service=own.index.to_numpy(dtype=float),
         returns=own.to_numpy(dtype=float),
-        suspension_ages=np.concatenate([product_data.suspension_ages, others.index.to_numpy(dtype=float) - 0.5]),
+        suspension_ages=np.concatenate([product_data.suspension_ages, (other_lower + other_upper) / 2.0]),
         suspension_counts=np.concatenate([product_data.suspension_counts, others.to_numpy(dtype=float)]),
     )
 

@@ -1,10 +1,12 @@
 """Expected future returns per build month and calendar month, until every unit's warranty ends.
 
 For a row of `s` surviving units observed to age `a` months under a warranty of `W` months, the
-expected returns in months in service k = floor(a)+1 .. W are
+expected returns in each month in service k from the one holding `a` to W are
 
-    s * (F(hi) - F(lo)) / R(a),    lo = max(a, k-1), hi = k,
+    s * (F(hi) - F(lo)) / R(a),    lo = max(a, b_{k-1}), hi = b_k,
 
+with (b_{k-1}, b_k] = `lifecore.data.month_interval_ends(k)`, month k's ages on the day grid (about
+(k-1, k]; the warranty's cover ends at b_W, where the observed ages stop too),
 i.e. the conditional probability of failing in (lo, hi] given survival to `a` (the first interval is
 the rest of the current month in service). Computed in log space as
     s * exp(logR(lo) - logR(a)) * (-expm1(logR(hi) - logR(lo))).
@@ -22,7 +24,7 @@ from typing import Mapping, Protocol
 import numpy as np
 import pandas as pd
 
-DAYS_PER_MONTH = 365.25 / 12
+from warranty_forecast.lifecore.data import month_interval_ends
 
 FORECAST_DETAIL_COLUMNS = (
     "product",
@@ -79,8 +81,8 @@ class _FutureIntervals:
     row_index: np.ndarray  # position of the suspension row
     months_in_service: np.ndarray  # k
     observed: np.ndarray  # a, the row's observed age (months)
-    lower: np.ndarray  # max(a, k - 1)
-    upper: np.ndarray  # k
+    lower: np.ndarray  # max(a, b_{k-1})
+    upper: np.ndarray  # b_k
     survivors: np.ndarray  # s of the row
 
 
@@ -88,20 +90,24 @@ def _future_intervals(rows: pd.DataFrame) -> _FutureIntervals:
     age = rows["observed_age_months"].to_numpy(dtype=float)
     warranty = rows["warranty_months"].to_numpy(dtype=np.int64)
     survivors = rows["suspensions"].to_numpy(dtype=float)
-    open_rows = np.flatnonzero((age < warranty) & (survivors > 0))
+    cover_end = month_interval_ends(warranty)[1]
+    open_rows = np.flatnonzero((age < cover_end) & (survivors > 0))
+    # the month holding age a: the first k with b_k > a (b_k <= k, so k >= floor(a) + 1, and one more at most)
     first_month = np.floor(age[open_rows]).astype(np.int64) + 1
+    first_month += month_interval_ends(first_month)[1] <= age[open_rows]
     months_left = warranty[open_rows] - first_month + 1
     row_index = np.repeat(open_rows, months_left)
     # month in service k for each (row, future month): first_month, first_month + 1, ..., W
     offsets = np.arange(months_left.sum()) - np.repeat(np.cumsum(months_left) - months_left, months_left)
     months_in_service = np.repeat(first_month, months_left) + offsets
     observed = age[row_index]
+    start, end = month_interval_ends(months_in_service)
     return _FutureIntervals(
         row_index=row_index,
         months_in_service=months_in_service,
         observed=observed,
-        lower=np.maximum(observed, months_in_service - 1.0),
-        upper=months_in_service.astype(float),
+        lower=np.maximum(observed, start),
+        upper=end,
         survivors=survivors[row_index],
     )
 

@@ -1,16 +1,18 @@
 """Goodness of fit of a life model to monthly warranty returns: observed vs expected by month in service.
 
-Input: a `LifeData` whose returns are all monthly intervals (k-1, k] (integer month in service
-k >= 1; no exact failure ages) and suspensions at any age in months, plus a fitted model given as a
-callable log_survival(t) -> log R(t) (e.g. `FitResult.log_survival` of any family).
+Input: a `LifeData` whose returns are all monthly intervals (b_{k-1}, b_k] (integer month in service
+k >= 1; no exact failure ages), either all on the day grid of `lifecore.data.month_interval_ends`
+(b_k = floor(k L) / L, L = 365.25/12 days: what the pipeline produces) or all on whole months
+(b_k = k), and suspensions at any age in months, plus a fitted model given as a callable
+log_survival(t) -> log R(t) (e.g. `FitResult.log_survival` of any family).
 
 Risk sets, for month k = 1..K (K: the last month holding a return or the end of an observation):
-  n_k  units exposed for the whole month: returned in a month >= k, or suspended at an age >= k;
-  a suspension at age a in (k-1, k) is exposed for (k-1, a] only (a "partial" unit of month k);
+  n_k  units exposed for the whole month: returned in a month >= k, or suspended at an age >= b_k;
+  a suspension at age a in (b_{k-1}, b_k) is exposed for (b_{k-1}, a] only (a "partial" unit of month k);
   d_k  returns in month k.
 Expected returns under the model, with conditional probabilities taken in log space:
-  e_k = n_k * (1 - R(k)/R(k-1)) + sum over partial units of month k of (1 - R(a)/R(k-1)),
-  1 - R(b)/R(k-1) = -expm1(log R(b) - log R(k-1)).
+  e_k = n_k * (1 - R(b_k)/R(b_{k-1})) + sum over partial units of month k of (1 - R(a)/R(b_{k-1})),
+  1 - R(b)/R(b_{k-1}) = -expm1(log R(b) - log R(b_{k-1})).
 Two statistics:
   * Pearson X^2 = sum (d - e)^2 / e over cells made by pooling adjacent months until each has
     e >= min_expected; df = cells - n_parameters.
@@ -30,7 +32,7 @@ import numpy.typing as npt
 import pandas as pd
 from scipy import special, stats
 
-from warranty_forecast.lifecore.data import LifeData
+from warranty_forecast.lifecore.data import LifeData, month_interval_ends
 
 logger = logging.getLogger(__name__)
 
@@ -50,10 +52,11 @@ POOLED_COLUMNS = ("first_month", "last_month", "observed", "expected")
 class _RiskSets:
     """Per month k = 1..K (index k-1) plus the partial (withdrawn mid-month) suspensions (internal)."""
 
+    edges: FloatArray  # b_0 = 0, b_1, ..., b_K: month k is the age interval (b_{k-1}, b_k], in months
     returns: FloatArray  # d_k
     whole: FloatArray  # n_k, units exposed for the whole month (including the d_k returns)
     partial_month: npt.NDArray[np.int64]  # month k holding each partial suspension
-    partial_age: FloatArray  # its age a in (k-1, k)
+    partial_age: FloatArray  # its age a in (b_{k-1}, b_k)
     partial_count: FloatArray
     suspension_ages: FloatArray  # every positive-count suspension with age > 0
     suspension_counts: FloatArray
@@ -62,9 +65,33 @@ class _RiskSets:
     def n_months(self) -> int:
         return len(self.returns)
 
+    @property
+    def partial_fraction(self) -> FloatArray:
+        """Share of its month each partial suspension was observed: (a - b_{k-1}) / (b_k - b_{k-1})."""
+        start, end = self.edges[self.partial_month - 1], self.edges[self.partial_month]
+        return (self.partial_age - start) / (end - start)
+
     def partial_sum(self, values: FloatArray) -> FloatArray:
         """Sum of values over the partial suspensions of each month (length K)."""
         return np.bincount(self.partial_month - 1, weights=values, minlength=self.n_months)
+
+
+def _month_of_interval(lower: FloatArray, upper: FloatArray) -> tuple[npt.NDArray[np.int64], bool]:
+    """Month in service k of each return interval, and whether the intervals are on the day grid
+    (`month_interval_ends`) rather than whole months (k-1, k]; one grid for all rows."""
+    k = np.round(upper).astype(np.int64)
+    if np.all(k >= 1):
+        day_lower, day_upper = month_interval_ends(k)
+        if np.allclose(lower, day_lower, rtol=0, atol=1e-9) and np.allclose(upper, day_upper, rtol=0, atol=1e-9):
+            return k, True
+        if np.all(upper == k) and np.all(lower == k - 1.0):
+            return k, False
+    bad = ~((k >= 1) & (np.isclose(upper, k) | np.isclose(upper, month_interval_ends(np.maximum(k, 1))[1])))
+    j = int(np.flatnonzero(bad)[0]) if np.any(bad) else 0
+    raise ValueError(
+        "returns must be monthly intervals, all on the day grid of month_interval_ends(k) or all (k-1, k],"
+        f" with integer k >= 1; got ({lower[j]!r}, {upper[j]!r}]"
+    )
 
 
 def _risk_sets(data: LifeData) -> _RiskSets:
@@ -73,27 +100,32 @@ def _risk_sets(data: LifeData) -> _RiskSets:
         raise ValueError("goodness of fit by month needs monthly returns; exact failure ages are not supported")
     i = data.interval_counts > 0
     upper, lower, counts = data.interval_upper[i], data.interval_lower[i], data.interval_counts[i]
-    monthly = (upper >= 1.0) & (upper == np.round(upper)) & (lower == upper - 1.0)
-    if not np.all(monthly):
-        j = int(np.flatnonzero(~monthly)[0])
-        raise ValueError(
-            f"returns must be monthly intervals (k-1, k] with integer k >= 1; got ({lower[j]!r}, {upper[j]!r}]"
-        )
-    months = upper.astype(np.int64)
+    months, day_grid = _month_of_interval(lower, upper) if len(upper) else (np.zeros(0, dtype=np.int64), True)
     s = (data.suspension_counts > 0) & (data.suspension_ages > 0.0)  # age 0: never exposed
     ages, s_counts = data.suspension_ages[s], data.suspension_counts[s]
-    last = max(int(months.max(initial=0)), int(np.ceil(ages).max(initial=0.0)))
+
+    def month_ends(n: int) -> FloatArray:
+        k = np.arange(0, n + 1, dtype=float)
+        return np.concatenate([[0.0], month_interval_ends(k[1:])[1]]) if day_grid else k
+
+    # the month holding the oldest suspension: the first k with b_k >= a
+    oldest = float(ages.max(initial=0.0))
+    last_by_age = int(np.ceil(oldest)) + 1
+    edges = month_ends(last_by_age)
+    last = max(int(months.max(initial=0)), int(np.searchsorted(edges, oldest, side="left")))
     if last == 0:
         raise ValueError("no exposure: no returns and no suspension older than age 0")
+    edges = month_ends(last)
     d = np.bincount(months - 1, weights=counts, minlength=last)
     # returns in months >= k
     returns_from_k = np.cumsum(d[::-1])[::-1]
-    # suspensions with age >= k: a suspension at age a covers whole months 1..floor(a)
-    whole_months = np.floor(ages).astype(np.int64)
-    covered = np.bincount(whole_months, weights=s_counts, minlength=last + 1)[1:]  # by floor(a) = 1..last
+    # suspensions with age >= b_k cover whole months 1..m, m = the number of month ends b_1..b_K <= a
+    whole_months = np.searchsorted(edges[1:], ages, side="right").astype(np.int64)
+    covered = np.bincount(whole_months, weights=s_counts, minlength=last + 1)[1:]  # by m = 1..last
     suspended_from_k = np.cumsum(covered[::-1])[::-1]
-    inside = ages > whole_months  # non-integer age: partial exposure in month floor(a) + 1
+    inside = ages > edges[whole_months]  # not on a month end: partial exposure in month m + 1
     return _RiskSets(
+        edges=edges,
         returns=d,
         whole=returns_from_k + suspended_from_k,
         partial_month=whole_months[inside] + 1,
@@ -136,9 +168,7 @@ def _conditional_failure(log_r_end: FloatArray, log_r_start: FloatArray) -> Floa
 
 def _saturated_terms(risk: _RiskSets) -> tuple[FloatArray, FloatArray]:
     """(exposure E_k in months of the units not returned in month k, maximised log-likelihood per month)."""
-    exposure = (risk.whole - risk.returns) + risk.partial_sum(
-        risk.partial_count * (risk.partial_age - (risk.partial_month - 1.0))
-    )
+    exposure = (risk.whole - risk.returns) + risk.partial_sum(risk.partial_count * risk.partial_fraction)
     exposure = np.maximum(exposure, 0.0)  # rounding of fractional counts only
     d = risk.returns
     total = d + exposure
@@ -148,17 +178,18 @@ def _saturated_terms(risk: _RiskSets) -> tuple[FloatArray, FloatArray]:
 def saturated_log_likelihood(data: LifeData) -> float:
     """Maximised log-likelihood of the life-table model with one constant hazard per month.
 
-    Model: hazard lambda_k (per month) on (k-1, k], so a unit alive at k-1 survives to k-1+s
-    (0 <= s <= 1) with probability exp(-lambda_k s). Month k's likelihood, conditional on the
-    risk set entering it, collects:
-      * d_k returns, interval-censored in (k-1, k] (only the month is known):  d_k log(1 - e^{-lambda_k});
+    Model: hazard lambda_k per month-length on month k = (b_{k-1}, b_k] (the risk sets' month ends), so
+    a unit alive at b_{k-1} survives a share s (0 <= s <= 1) of the month with probability
+    exp(-lambda_k s). Month k's likelihood, conditional on the risk set entering it, collects:
+      * d_k returns, interval-censored in month k (only the month is known):  d_k log(1 - e^{-lambda_k});
       * n_k - d_k units surviving the whole month:                           -(n_k - d_k) lambda_k;
-      * suspensions at age a in (k-1, k) (withdrawn mid-month):               -lambda_k (a - (k-1)).
-    So l_k(lambda) = d log(1 - e^{-lambda}) - lambda E, with E = E_k the exposure in months of the
-    units NOT returned in month k (whole-month survivors count 1, withdrawals a - (k-1)); the
+      * suspensions withdrawn inside month k at age a:                       -lambda_k s,
+        s = (a - b_{k-1}) / (b_k - b_{k-1}).
+    So l_k(lambda) = d log(1 - e^{-lambda}) - lambda E, with E = E_k the exposure in month-lengths of
+    the units NOT returned in month k (whole-month survivors count 1, withdrawals s); the
     returns contribute no exposure term because their failure time inside the month is unknown.
     The product over months telescopes to each unit's likelihood (a return in month m gives
-    prod_{j<m} e^{-lambda_j} (1 - e^{-lambda_m}) = R(m-1) - R(m)), so months maximise separately.
+    prod_{j<m} e^{-lambda_j} (1 - e^{-lambda_m}) = R(b_{m-1}) - R(b_m)), so months maximise separately.
     Setting dl/dlambda = d / (e^lambda - 1) - E = 0 gives lambda_k = log(1 + d_k / E_k), hence
     1 - e^{-lambda} = d / (d + E), e^{-lambda} = E / (d + E), and the maximum
       l_k* = d log d + E log E - (d + E) log(d + E)    (0 log 0 = 0),
@@ -252,10 +283,10 @@ def goodness_of_fit(
     Weibull or lognormal).
 
     Deviance: G^2 = 2 (log L_saturated - log L_model). log L_model is computed here from
-    log_survival on the same footing (returns in month k: log(R(k-1) - R(k)); suspensions: log R(a)),
+    log_survival on the same footing (returns in month k: log(R(b_{k-1}) - R(b_k)); suspensions: log R(a)),
     log L_saturated by `saturated_log_likelihood`. The fitted model is nested in the saturated one
     only when every suspension sits on a whole month: a suspension inside month k is scored by the
-    model with log(R(a)/R(k-1)) but by the saturated model with -lambda_k (a - (k-1)), which assumes
+    model with log(R(a)/R(b_{k-1})) but by the saturated model with -lambda_k s, which assumes
     a constant hazard inside the month. A slightly negative G^2 can therefore occur; it is clamped at
     0 (and noted). df = months with any exposure - n_parameters.
     """
@@ -266,9 +297,9 @@ def goodness_of_fit(
     risk = _risk_sets(data)
     n_months = risk.n_months
     month_numbers = np.arange(1, n_months + 1)
-    log_r_month = _log_survival(log_survival, np.arange(n_months + 1, dtype=float))  # ages 0..K
+    log_r_month = _log_survival(log_survival, risk.edges)  # at the month ends b_0 = 0 .. b_K
     log_r_partial = _log_survival(log_survival, risk.partial_age)
-    log_r_start = log_r_month[:-1]  # log R(k-1), k = 1..K
+    log_r_start = log_r_month[:-1]  # log R(b_{k-1}), k = 1..K
 
     # -- expected returns ---------------------------------------------------------------------
     q_whole = _conditional_failure(log_r_month[1:], log_r_start)

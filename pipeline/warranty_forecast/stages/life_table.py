@@ -3,7 +3,9 @@
 From the age-in-service matrix summed over build months, per product and month in service k:
   n_k  units at risk entering month k,  d_k  returns in month k,
   w_k  units whose observation ended inside month k (counted as at risk for half the month),
-  n'_k = n_k - w_k / 2,  q_k = d_k / n'_k,  S(k) = prod_{j<=k} (1 - q_j),  F(k) = 1 - S(k).
+  n'_k = n_k - w_k / 2,  q_k = d_k / n'_k,  S(k) = prod_{j<=k} (1 - q_j),  F(k) = 1 - S(k),
+the fraction failed by the end of month k, age b_k = `age_months` (its end on the day grid of
+lifecore.data.month_interval_ends: whole days / (365.25/12), about k months).
 Pointwise bounds: Greenwood's variance var(log S(k)) = sum_j d_j / (n'_j (n'_j - d_j)), applied on
 the log(-log S) scale so that the bounds stay inside (0, 1).
 """
@@ -14,9 +16,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from warranty_forecast.lifecore.data import month_interval_ends
+
 LIFE_TABLE_COLUMNS = (
     "product",
     "months_in_service",
+    "age_months",
     "units_at_risk",
     "returns",
     "units_withdrawn",
@@ -62,6 +67,7 @@ def _one_product(rows: pd.DataFrame, z: float) -> pd.DataFrame:
     spread = z * np.sqrt(var_log_s[usable]) / -log_s[usable]
     upper[usable] = -np.expm1(log_s[usable] * np.exp(spread))
     lower[usable] = -np.expm1(log_s[usable] * np.exp(-spread))
+    rows["age_months"] = month_interval_ends(rows["months_in_service"].to_numpy(dtype=float))[1]
     rows["effective_at_risk"] = effective
     rows["conditional_return_probability"] = q
     rows["fraction_failed"] = fraction

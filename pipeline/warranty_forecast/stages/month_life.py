@@ -1,7 +1,7 @@
 """One build month's life against its product's base life model: how far off it is, and the life model
 its forecast uses once it is flagged.
 
-A month's data are its returns counted by month in service k (ages in (k-1, k] months) and its
+A month's data are its returns counted by month in service k (ages in the day-grid interval month_interval_ends(k), about (k-1, k] months) and its
 suspensions (units observed to a given age in months without returning). The product's base model
 comes in as anything with `log_survival(t)` (t in months): log R0(t).
 
@@ -36,6 +36,8 @@ import numpy.typing as npt
 import pandas as pd
 from scipy import optimize, special, stats
 
+from warranty_forecast.lifecore.data import month_interval_ends
+
 FloatArray = npt.NDArray[np.float64]
 
 OWN_SCALE = "own scale"
@@ -56,7 +58,7 @@ class BaseLife(Protocol):
 class MonthData:
     """One build month's life data: returns by month in service and suspensions by observed age."""
 
-    months_in_service: FloatArray  # k >= 1; the returns' ages are in (k-1, k]
+    months_in_service: FloatArray  # k >= 1; the returns' ages are in month_interval_ends(k), about (k-1, k]
     returns: FloatArray
     suspension_ages: FloatArray  # months
     suspension_counts: FloatArray
@@ -93,9 +95,11 @@ class MonthData:
 
 
 def log_likelihood(model: BaseLife, data: MonthData) -> float:
-    """Grouped log-likelihood: sum n_k log(R(k-1) - R(k)) + sum s_j log R(a_j), in log space."""
-    lower = model.log_survival(data.months_in_service - 1.0)
-    upper = model.log_survival(data.months_in_service)
+    """Grouped log-likelihood: sum n_k log(R(b_{k-1}) - R(b_k)) + sum s_j log R(a_j), in log space, with
+    (b_{k-1}, b_k] = month_interval_ends(k) (the day grid)."""
+    start, end = month_interval_ends(data.months_in_service)
+    lower = model.log_survival(start)
+    upper = model.log_survival(end)
     with np.errstate(divide="ignore", invalid="ignore"):
         in_month = lower + np.log(-np.expm1(upper - lower))
     value = float(np.sum(data.returns * in_month)) + float(np.sum(data.suspension_counts * model.log_survival(data.suspension_ages)))
@@ -150,14 +154,15 @@ class HazardRatioTest:
 def hazard_ratio_test(base: BaseLife, data: MonthData, confidence_level: float = 0.95) -> HazardRatioTest:
     """Fit c in log R(t) = c log R0(t) to one month's data; LR interval and one-sided LR test of c = 1.
 
-    With u_k = H0(k-1), d_k = H0(k) - H0(k-1) (H0 = -log R0) and S = sum s_j H0(a_j):
+    With (b_{k-1}, b_k] = month_interval_ends(k), u_k = H0(b_{k-1}), d_k = H0(b_k) - H0(b_{k-1})
+    (H0 = -log R0) and S = sum s_j H0(a_j):
         l(c) = sum n_k (-c u_k + log(1 - exp(-c d_k))) - c S,
         l'(c) = sum n_k (-u_k + d_k / expm1(c d_k)) - S,   decreasing in c (concave l).
     A month with no returns has c_hat = 0 (the edge): p = 1, lower bound 0.
     """
-    k = data.months_in_service
-    u = -np.asarray(base.log_survival(k - 1.0), dtype=float)
-    d = -np.asarray(base.log_survival(k), dtype=float) - u
+    start, end = month_interval_ends(data.months_in_service)
+    u = -np.asarray(base.log_survival(start), dtype=float)
+    d = -np.asarray(base.log_survival(end), dtype=float) - u
     exposure = float(np.sum(data.suspension_counts * -np.asarray(base.log_survival(data.suspension_ages), dtype=float)))
     n = data.returns
     if np.any((n > 0) & ~(d > 0)):

@@ -33,7 +33,7 @@ import pandas as pd
 # that people edit); an editable install reads that folder itself.
 SQL_PACKAGE = "warranty_forecast.sql"
 
-MACRO_FILES: tuple[str, ...] = ("macros/validation",)  # statements, run before any model
+MACRO_FILES: tuple[str, ...] = ("macros/validation", "macros/ages")  # statements, run before any model
 PLANNED_LAYERS: tuple[str, ...] = ("staging", "intermediate", "outputs")
 # What a model of each layer may read ("raw" stands for the tables the extract loader wrote).
 _MAY_READ: dict[str, tuple[str, ...]] = {

@@ -11,10 +11,12 @@ The simulated product (numpy only):
 
 * 36 build months of `--units` units each, all units of a build month put into service together:
   build month j (j = 1..36) has been in service 37 - j whole months at the as-of date (the youngest
-  1 month, the oldest 36). Warranty 24 months, so observed age = min(months in service, 24).
+  1 month, the oldest 36). Warranty 24 months, so observed age = the end of month in service
+  min(months in service, 24) on the day grid (lifecore.data.month_interval_ends: 730 days for 24).
 * Life: Weibull (shape, scale) in months, drawn per unit by inverting the cumulative hazard at an
-  Exp(1) draw. A unit whose life T ends by its observed age is a return in month in service
-  k = ceil(T) (the interval (k-1, k]); every other unit is a suspension at its observed age.
+  Exp(1) draw. A unit whose life T ends by its observed age is a return dated d = ceil(T x 365.25/12)
+  days after its start, in month in service k = max(1, ceil(d / (365.25/12))), as the pipeline counts
+  whole-day dates; every other unit is a suspension at its observed age.
 * The frames are shaped as the pipeline's fit_returns (product, build_month, months_in_service,
   returns) and fit_suspensions (product, build_month, observed_age_months, units, suspensions), one
   suspension row per build month.
@@ -51,6 +53,7 @@ from scipy import stats
 
 from warranty_forecast.config import AlertSettings, LifeModelSettings
 from warranty_forecast.errors import FitError
+from warranty_forecast.lifecore.data import DAYS_PER_MONTH, month_interval_ends
 from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.stages.build_month_alerts import find_bad_build_months
 from warranty_forecast.stages.fitting import life_data_by_product
@@ -118,12 +121,13 @@ def simulate_product(
     """fit_returns- and fit_suspensions-shaped frames of one simulated product."""
     returns, suspensions = [], []
     for month, in_service in zip(BUILD_MONTHS, MONTHS_IN_SERVICE):
-        age = min(float(in_service), WARRANTY_MONTHS)
+        age = float(month_interval_ends(min(float(in_service), WARRANTY_MONTHS))[1])
         life = simulate_lives(rng, units, scenario.shape, scenario.scale, scenario.defective and month == BAD_MONTH)
         if scenario.process_change and month in CHANGED:
             life = life / CHANGE_RATIO ** (1.0 / scenario.shape)  # cumulative hazard times CHANGE_RATIO
         failed = life <= age
-        mis, counts = np.unique(np.maximum(np.ceil(life[failed]), 1).astype(int), return_counts=True)
+        days = np.ceil(life[failed] * DAYS_PER_MONTH)
+        mis, counts = np.unique(np.maximum(np.ceil(days / DAYS_PER_MONTH), 1).astype(int), return_counts=True)
         returns += [(PRODUCT, month, int(k), int(c)) for k, c in zip(mis, counts)]
         suspensions.append((PRODUCT, month, age, units, float(units - failed.sum())))
     return (
@@ -212,7 +216,7 @@ def report(
     lines = [
         "Build-month alerts: false-alarm and detection rates (simulation)",
         f"  product: {BUILD_MONTH_COUNT} build months x {units:,} units, in service 1..{BUILD_MONTH_COUNT} whole months,"
-        f" warranty {WARRANTY_MONTHS:g} months, returns in MIS ceil(life)",
+        f" warranty {WARRANTY_MONTHS:g} months, returns in MIS ceil(ceil(life in days) / (365.25/12))",
         f"  baseline: two-parameter Weibull fitted to all the product's data (confidence_level"
         f" {life_model.confidence_level:g}, min_returns {life_model.min_returns})",
         f"  alerts: early_life_months {alerts.early_life_months}, false_discovery_rate {alerts.false_discovery_rate:g},"
@@ -238,7 +242,7 @@ def report(
             other = sum(bool(o.flagged - CHANGED) for o in r.outcomes)
             rows.append(["", "", "flags an unchanged month", rate(other, n), "", ""])
         elif s.defective:
-            best = neyman_pearson_power(units * _cdf(DEFECT_MONTHS, s.shape, s.scale), 2.0, MAX_FALSE_ALARM_RATE)
+            best = neyman_pearson_power(units * _cdf(float(month_interval_ends(DEFECT_MONTHS)[1]), s.shape, s.scale), 2.0, MAX_FALSE_ALARM_RATE)
             hit = sum(BAD_MONTH in o.flagged for o in r.outcomes)
             other = sum(bool(o.flagged - {BAD_MONTH}) for o in r.outcomes)
             rows.append([s.name, life, "flags the bad month", rate(hit, n), f">= {MIN_DETECTION_RATE:.0%}",

@@ -71,8 +71,8 @@ class Cells:
         return int(self.return_counts.sum())
 
     def life_data(self) -> LifeData:
-        return LifeData.from_monthly_returns(
-            self.return_months, self.return_counts, self.suspension_ages, self.suspension_counts
+        return LifeData.from_monthly_returns(  # lives simulated on a continuous month scale: (k-1, k]
+            self.return_months, self.return_counts, self.suspension_ages, self.suspension_counts, day_grid=False
         )
 
 
