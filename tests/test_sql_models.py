@@ -528,10 +528,13 @@ ASSIGNED_CLAIMS = {
     "product": "varchar", "build_month": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
     "is_sale_date_imputed": "boolean", "is_group_reassigned": "boolean", "is_serial_unknown": "boolean",
     "is_counted_status": "boolean", "is_in_coverage": "boolean", "is_return": "boolean", "is_quarantined": "boolean",
+    "is_repeat_claim": "boolean",
 }
 RETURN = {"status": "approved", "is_sale_date_imputed": False, "is_group_reassigned": False,
           "is_serial_unknown": False, "is_counted_status": True, "is_in_coverage": True, "is_return": True,
-          "is_quarantined": False}
+          "is_quarantined": False, "is_repeat_claim": False}
+# a unit's later counted claim: a claim to pay, not a failed unit (is_return is the unit's first counted claim)
+REPEAT = {**RETURN, "is_return": False, "is_repeat_claim": True}
 
 
 def test_cohort_summary(con):
@@ -548,6 +551,7 @@ def test_cohort_summary(con):
     table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
         {**claim, "cost": 50},
         {**claim, "cost": 20.5},
+        {**claim, **REPEAT, "cost": 7.25},  # a repeat claim: not a return, counted apart with its cost
         {**claim, "cost": 99, "is_in_coverage": False, "is_return": False},  # counted status, out of coverage
         {**claim, "cost": 40, "status": "rejected", "is_counted_status": False, "is_return": False},
         {**claim, "cost": 30, "status": "rejected", "is_counted_status": False, "is_in_coverage": False,
@@ -561,12 +565,13 @@ def test_cohort_summary(con):
     got = run(
         con, "outputs/cohort_summary",
         "product, build_month, units, units_in_channel, units_sale_date_imputed, min_warranty_months,"
-        " max_warranty_months, returns_to_date, cost_to_date, claims_out_of_coverage, claims_not_counted",
+        " max_warranty_months, returns_to_date, cost_to_date, repeat_claims_to_date, repeat_cost_to_date,"
+        " claims_out_of_coverage, claims_not_counted",
     )
     assert got == [
-        ("A", d("2024-01"), 125, 5, 25, 12, 24, 2, 70.5, 1, 2),
-        ("A", d("2024-02"), 10, 0, 0, 12, 12, 0, 0.0, 0, 0),
-        ("B", d("2024-01"), 3, 0, 0, 6, 6, 1, 10.0, 0, 0),
+        ("A", d("2024-01"), 125, 5, 25, 12, 24, 2, 70.5, 1, 7.25, 1, 2),
+        ("A", d("2024-02"), 10, 0, 0, 12, 12, 0, 0.0, 0, 0.0, 0, 0),
+        ("B", d("2024-01"), 3, 0, 0, 6, 6, 1, 10.0, 0, 0.0, 0, 0),
     ]
 
 
@@ -637,6 +642,7 @@ def test_run_facts(con):
         {**RETURN, "is_sale_date_imputed": True},
         {**RETURN, "is_group_reassigned": True},
         {**RETURN, "is_serial_unknown": True},
+        {**REPEAT},  # a unit's second counted claim: used, not a return (a unit counts once in the life model)
         {**RETURN, "is_in_coverage": False, "is_return": False},  # out of coverage
         {**RETURN, "status": "rejected", "is_counted_status": False, "is_return": False},
         {**RETURN, "status": "no_fault_found", "is_counted_status": False, "is_return": False},
@@ -656,6 +662,7 @@ def test_run_facts(con):
         "units_in_service_sale_date_imputed": 23,
         "units_sold_after_as_of_counted_unsold": 5,
         "returns_counted": 3,
+        "repeat_claims_counted": 1,
         "claims_out_of_coverage": 1,
         "claims_rejected": 2,
         "claims_no_fault_found": 1,
@@ -668,7 +675,7 @@ def test_run_facts(con):
     for name in ("units_aged_to_as_of", "claims_assigned_to_sale_month_groups", "sale_month_group_survivors"):
         con.execute(f"delete from {name}")
     facts = run(con, "outputs/run_facts", "fact, count")  # nothing read: every fact is there, as 0
-    assert len(facts) == 13 and {count for _, count in facts} == {0}
+    assert len(facts) == 14 and {count for _, count in facts} == {0}  # 14 with repeat_claims_counted
 
 
 def test_claim_cost_by_product(con):

@@ -7,7 +7,12 @@
 -- Group: the unit's group when joined on serial; else the product x build month group with the same
 -- sale month (most units first, then the shorter warranty), else the nearest sale month (earlier first),
 -- among groups with units in service. A claim with MIS beyond the group's warranty_months is out of
--- coverage; a return is a claim that passed every check, has a counted status and is in coverage.
+-- coverage; a counted claim passed every check, has a counted status and is in coverage.
+-- A unit counts once in the life model: a unit is a serial within its product x build month (a claim without
+-- a serial cannot be tied to a unit and is taken as a distinct unit's claim). unit_claim_number orders a
+-- unit's counted claims by failure_date, then claim_date, then claim_id (NULL for claims that are not
+-- counted); the first is the unit's return (is_return), the later ones are repeat claims (is_repeat_claim):
+-- claims to pay and to reserve for, but not failed units.
 with clocked_claims as (
     select
         source_row_number,
@@ -69,6 +74,28 @@ assigned_claims as (
     from clocked_claims as claim
     left join candidate_groups as candidate
         on claim.source_row_number = candidate.source_row_number and candidate.preference = 1
+),
+
+counted_claims as (
+    select
+        *,
+        not is_quarantined and list_contains($counted_statuses, status) and months_in_service <= warranty_months
+            as is_counted_claim
+    from assigned_claims
+),
+
+claims_numbered_within_unit as (
+    select
+        *,
+        case
+            when is_counted_claim then row_number() over (
+                partition by
+                    is_counted_claim, product, build_month, serial,
+                    case when serial is null then source_row_number end
+                order by failure_date, claim_date, claim_id
+            )
+        end as unit_claim_number
+    from counted_claims
 )
 
 select
@@ -92,10 +119,11 @@ select
     months_in_service,
     list_contains($counted_statuses, status) as is_counted_status,
     months_in_service <= warranty_months as is_in_coverage,
-    not is_quarantined and list_contains($counted_statuses, status) and months_in_service <= warranty_months
-        as is_return,
+    unit_claim_number,
+    is_counted_claim and unit_claim_number = 1 as is_return,
+    is_counted_claim and unit_claim_number > 1 as is_repeat_claim,
     is_quarantined,
     problem_column,
     problem_reason,
     problem_detail
-from assigned_claims
+from claims_numbered_within_unit

@@ -4,7 +4,8 @@
 -- Parameters: none.
 -- Reads: sale_month_groups, returns_counted_by_group_and_month.
 -- group_survivors = units - returns, never below 0 (a group may hold more returns than units: counted in
--- the run facts).
+-- the run facts). Returns are units' first counted claims, so a unit repaired several times leaves the
+-- survivors once.
 with returns_per_group as (
     select product, build_month, sale_month, warranty_months, sum(returns) as returns
     from returns_counted_by_group_and_month

@@ -3,7 +3,9 @@
 -- Parameters: none.
 -- Reads: units_aged_to_as_of, claims_assigned_to_sale_month_groups.
 -- Sort: product, build_month
--- returns_to_date / cost_to_date: counted in-coverage returns and their cost (currency units).
+-- returns_to_date / cost_to_date: counted in-coverage returns (each unit's first counted claim) and their
+-- cost (currency units); repeat_claims_to_date / repeat_cost_to_date: the units' later counted claims and
+-- their cost. Claims paid to date = returns_to_date + repeat_claims_to_date.
 with units_per_cohort as (
     select
         product,
@@ -23,6 +25,8 @@ claims_per_cohort as (
         build_month,
         count(*) filter (where is_return) as returns_to_date,
         coalesce(sum(cost) filter (where is_return), 0)::double as cost_to_date,
+        count(*) filter (where is_repeat_claim) as repeat_claims_to_date,
+        coalesce(sum(cost) filter (where is_repeat_claim), 0)::double as repeat_cost_to_date,
         count(*) filter (where is_counted_status and not is_in_coverage) as claims_out_of_coverage,
         count(*) filter (where not is_counted_status) as claims_not_counted
     from claims_assigned_to_sale_month_groups
@@ -40,6 +44,8 @@ select
     units_per_cohort.max_warranty_months,
     coalesce(claims_per_cohort.returns_to_date, 0) as returns_to_date,
     coalesce(claims_per_cohort.cost_to_date, 0.0) as cost_to_date,
+    coalesce(claims_per_cohort.repeat_claims_to_date, 0) as repeat_claims_to_date,
+    coalesce(claims_per_cohort.repeat_cost_to_date, 0.0) as repeat_cost_to_date,
     coalesce(claims_per_cohort.claims_out_of_coverage, 0) as claims_out_of_coverage,
     coalesce(claims_per_cohort.claims_not_counted, 0) as claims_not_counted
 from units_per_cohort

@@ -3,6 +3,9 @@
 -- Parameters: none.
 -- Reads: units_aged_to_as_of, claims_assigned_to_sale_month_groups, sale_month_group_survivors.
 -- Sort: fact
+-- returns_counted: units' first counted in-coverage claims (the life model's returns); repeat_claims_counted:
+-- the units' later counted in-coverage claims. Claims used = returns_counted + repeat_claims_counted +
+-- claims_out_of_coverage + claims_status_not_counted.
 with unit_facts as (
     select
         sum(units) as units_total,
@@ -16,6 +19,7 @@ with unit_facts as (
 claim_facts as (
     select
         count(*) filter (where is_return) as returns_counted,
+        count(*) filter (where is_repeat_claim) as repeat_claims_counted,
         count(*) filter (where is_counted_status and not is_in_coverage) as claims_out_of_coverage,
         count(*) filter (where status = 'rejected') as claims_rejected,
         count(*) filter (where status = 'no_fault_found') as claims_no_fault_found,
@@ -40,6 +44,7 @@ unpivot (
         coalesce(unit_facts.units_in_service_sale_date_imputed, 0)::bigint as units_in_service_sale_date_imputed,
         coalesce(unit_facts.units_sold_after_as_of_counted_unsold, 0)::bigint as units_sold_after_as_of_counted_unsold,
         coalesce(claim_facts.returns_counted, 0)::bigint as returns_counted,
+        coalesce(claim_facts.repeat_claims_counted, 0)::bigint as repeat_claims_counted,
         coalesce(claim_facts.claims_out_of_coverage, 0)::bigint as claims_out_of_coverage,
         coalesce(claim_facts.claims_rejected, 0)::bigint as claims_rejected,
         coalesce(claim_facts.claims_no_fault_found, 0)::bigint as claims_no_fault_found,
