@@ -1,4 +1,4 @@
-"""Command line of the pipeline: `warranty-forecast run | demo-data | bench` (also `python -m warranty_forecast`).
+"""Command line of the pipeline: `warranty-forecast run | backtest | demo-data | bench` (also `python -m warranty_forecast`).
 
 Logging is configured here only (stderr, one line per record: control characters in messages are
 escaped). Known errors map to the exit codes of `warranty_forecast.exit_codes` with one clear log
@@ -138,6 +138,29 @@ def build_parser() -> argparse.ArgumentParser:
         help=f"output folder (default {DEFAULT_OUT}); a symbolic link is kept and its target replaced",
     )
 
+    backtest = commands.add_parser(
+        "backtest",
+        help="rerun the job at earlier month ends and compare its forecasts with the returns that came",
+        description="Backtest: rerun the nightly job (no charts) with the as-of date moved back month by month,"
+        " compare each forecast of the next --horizon months with the counted returns that came, beside a chain"
+        " ladder with Mack's standard error; writes backtest.parquet, backtest_by_month.parquet, backtest.png"
+        " and prints a table. The output folder is checked and locked before any computing.",
+        epilog=epilog,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    _add_verbose(backtest, after_command=True)
+    backtest.add_argument("--shipments", type=Path, required=True, help="shipments extract (.csv or .parquet)")
+    backtest.add_argument("--claims", type=Path, required=True, help="claims extract (.csv or .parquet)")
+    backtest.add_argument("--config", type=Path, default=None, help="TOML settings (see README: Configuration)")
+    backtest.add_argument("--out", type=Path, required=True, help="output folder for the backtest's files")
+    backtest.add_argument(
+        "--origins", type=int, default=12, help="number of origins, one per month end, newest last (default 12)"
+    )
+    backtest.add_argument(
+        "--horizon", type=int, default=12,
+        help="months forecast after each origin (default 12); the newest origin is the latest whole month less this",
+    )
+
     bench = commands.add_parser(
         "bench",
         add_help=False,  # -h and every other option go on to the benchmark's own parser
@@ -184,6 +207,8 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _dispatch(arguments: argparse.Namespace, rest: list[str]) -> int:
     if arguments.command == "run":
         return _run(arguments)
+    if arguments.command == "backtest":
+        return _backtest(arguments)
     if arguments.command == "bench":
         from warranty_forecast.tools.bench import main as bench_main
 
@@ -285,6 +310,23 @@ def _run(arguments: argparse.Namespace) -> int:
         log.debug("output folder %s checked and locked", folder)
         result = run_nightly(config)
     log.info("done: outputs in %s (as of %s, %d warning(s))", result.out_dir, result.as_of_date, len(result.warnings))
+    return exit_codes.SUCCESS
+
+
+def _backtest(arguments: argparse.Namespace) -> int:
+    from warranty_forecast.tools.backtest_origins import backtest_command, check_origin_counts, format_table
+
+    check_origin_counts(arguments.origins, arguments.horizon)
+    result = backtest_command(
+        shipments_path=arguments.shipments,
+        claims_path=arguments.claims,
+        out_dir=arguments.out,
+        config_path=arguments.config,
+        origins=arguments.origins,
+        horizon=arguments.horizon,
+    )
+    print(format_table(result))
+    log.info("done: backtest of %d origin(s) in %s in %.1f s", len(result.origins), arguments.out, result.seconds)
     return exit_codes.SUCCESS
 
 
