@@ -158,12 +158,16 @@ def test_months_in_service_and_coverage(shaped):
 
 def test_sale_date_imputation_and_the_as_of_rule(shaped):
     suspensions = shaped.fit_suspensions.set_index(["product", "warranty_start_date"])
-    # median ship-to-sale lag over rows with both dates known by the as-of date: A rows 22 and 20 days,
-    # B row 10 days -> product A median 21 days; S3 (sold after as-of) uses B's median 10 days.
-    assert (("A", dt.date(2024, 2, 5)) in suspensions.index)  # 2024-01-15 + 21 days
-    assert (("B", dt.date(2024, 1, 20)) in suspensions.index)
+    # ship-to-sale lags known by the as-of date: A rows 22 and 20 days (100 units each), B rows 10 days. Every
+    # row is mature (shipped at least the longest lag before the as-of date), so G(D) = 1 for the rows without
+    # a sale date: wholly sold, on the median lag given a lag of at most D days (the lower median, A 20 days,
+    # B 10 days); m = 50/250 for A, 1/4 for B (not needed when G = 1).
+    assert (("A", dt.date(2024, 2, 4)) in suspensions.index)  # 2024-01-15 + 20 days
+    assert (("B", dt.date(2024, 1, 20)) in suspensions.index)  # S3 (sold after the as-of date) + 10 days
     assert shaped.run_facts["units_in_service_sale_date_imputed"] == 51  # 50 units of row 2 + S3
-    assert shaped.run_facts["units_sold_after_as_of_counted_unsold"] == 1
+    assert shaped.run_facts["units_sale_date_imputed"] == 51
+    assert shaped.run_facts["units_in_channel"] == 0
+    assert shaped.run_facts["units_sold_after_as_of_sale_date_imputed"] == 1
 
 
 def test_suspensions_share_group_survivors_and_observed_age_is_capped(shaped):

@@ -111,6 +111,11 @@ STG_CLAIMS = {
     "failure_code": "varchar", "serial": "varchar", "is_quarantined": "boolean", "problem_column": "varchar",
     "problem_reason": "varchar", "problem_detail": "varchar",
 }
+UNIT_PARTS = {
+    "product": "varchar", "build_month": "date", "sale_month": "date", "warranty_months": "integer",
+    "warranty_start_date": "date", "is_sale_date_imputed": "boolean", "is_in_channel": "boolean",
+    "units": "double", "observed_age_months": "double",
+}
 UNITS_AGED = {
     "serial": "varchar", "product": "varchar", "build_month": "date", "ship_date": "date", "known_sale_date": "date",
     "warranty_start_date": "date", "is_sale_date_imputed": "boolean", "sale_month": "date",
@@ -298,20 +303,24 @@ def test_newest_valid_dates(con):
 def test_units_aged_to_as_of(con):
     row = {"product": "A", "build_month": d("2024-01"), "units": 1, "warranty_months": 12, "is_quarantined": False}
     table(con, "stg_shipments", STG_SHIPMENTS, [
-        # A's lags known by the as-of date: 10, 20 and 60 days; median 20 (the mean would be 30)
+        # A's lags known by the as-of date: 10 (5 units), 20 and 60 days; the longest, 60 days, makes rows 1-4
+        # mature: G = 5/7 at 10 days, 6/7 at 20, 1 at 60; m = 10/17 (row 4's units). Hand arithmetic of the
+        # sold share and the conditional medians: tests/test_sale_date_imputation.py
         {**row, "source_row_number": 1, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-11"), "units": 5,
          "warranty_months": 24, "serial": "S1"},
         {**row, "source_row_number": 2, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-21"),
          "warranty_months": None},  # the default warranty
         {**row, "source_row_number": 3, "ship_date": d("2024-01-01"), "sale_date": d("2024-03-01")},
-        {**row, "source_row_number": 4, "ship_date": d("2024-06-01"), "units": 10},  # unsold: A's median lag
-        # sold after the as-of date: counts as unsold (its 45-day lag is not known), in service on A's clock
+        # 213 days ago: G = 1, sold; its clock the median lag given a lag of at most 213 days, 10 days
+        {**row, "source_row_number": 4, "ship_date": d("2024-06-01"), "units": 10},
+        # sold after the as-of date: its 45-day lag is not known then; 30 days ago, G(30) = 6/7: sold share 60/77,
+        # clock the median lag given at most 30 days (10 days)
         {**row, "source_row_number": 5, "ship_date": d("2024-12-01"), "sale_date": d("2025-01-15")},
-        {**row, "source_row_number": 6, "ship_date": d("2024-12-31")},  # imputed clock after the as-of: channel
+        {**row, "source_row_number": 6, "ship_date": d("2024-12-31")},  # G(0) = 0: in the channel, clock + 10 days
         {**row, "source_row_number": 7, "ship_date": d("2025-01-02")},  # shipped after the as-of date
         {**row, "source_row_number": 8, "ship_date": d("2024-01-01"), "sale_date": d("2024-01-02"),
          "is_quarantined": True},  # failed a staging check: neither a unit nor a lag
-        # B has no known sale date: all products' lags 10, 20, 60, 90, 90; median 60
+        # B has no known sale date: all products' mature rows' lags 10 (5 units), 20, 60, 90 (6 units); median 60
         {**row, "source_row_number": 9, "product": "B", "ship_date": d("2024-03-01"), "units": 3,
          "warranty_months": 6},  # 245 days = 8.05 months: observed age capped at the 6-month warranty
         {**row, "source_row_number": 10, "product": "C", "ship_date": d("2023-01-01"), "sale_date": d("2023-04-01"),
@@ -320,6 +329,7 @@ def test_units_aged_to_as_of(con):
          "units": 4},  # sold on the as-of date: known, age 0, in service
     ])
     parameters = {"as_of_date": AS_OF, "default_warranty_months": 12}
+    sql_runner.run_model(con, "intermediate/ship_to_sale_lag_distribution", parameters)
     got = run(
         con, "intermediate/units_aged_to_as_of",
         "source_row_number, known_sale_date, is_sold_after_as_of, is_sale_date_imputed, warranty_start_date,"
@@ -330,14 +340,14 @@ def test_units_aged_to_as_of(con):
         (1, d("2024-01-11"), False, False, d("2024-01-11"), d("2024-01"), 24, 5, "S1", False),
         (2, d("2024-01-21"), False, False, d("2024-01-21"), d("2024-01"), 12, 1, None, False),
         (3, d("2024-03-01"), False, False, d("2024-03-01"), d("2024-03"), 12, 1, None, False),
-        (4, None, False, True, d("2024-06-21"), d("2024-06"), 12, 10, None, False),
-        (5, None, True, True, d("2024-12-21"), d("2024-12"), 12, 1, None, False),
-        (6, None, False, True, d("2025-01-20"), d("2025-01"), 12, 1, None, True),
+        (4, None, False, True, d("2024-06-11"), d("2024-06"), 12, 10, None, False),
+        (5, None, True, True, d("2024-12-11"), d("2024-12"), 12, 1, None, False),
+        (6, None, False, True, d("2025-01-10"), d("2025-01"), 12, 1, None, True),
         (9, None, False, True, d("2024-04-30"), d("2024-04"), 6, 3, None, False),
         (10, d("2023-04-01"), False, False, d("2023-04-01"), d("2023-04"), 12, 2, None, False),
         (11, d("2024-12-31"), False, False, d("2024-12-31"), d("2024-12"), 12, 4, None, False),
     ]
-    days = {1: 355, 2: 345, 3: 305, 4: 193, 5: 10, 6: 0, 9: 245, 10: 640, 11: 0}  # start to 2024-12-31
+    days = {1: 355, 2: 345, 3: 305, 4: 203, 5: 20, 6: 0, 9: 245, 10: 640, 11: 0}  # start to 2024-12-31
     ages = run(
         con, "intermediate/units_aged_to_as_of", "source_row_number, age_months, observed_age_months", parameters
     )
@@ -362,6 +372,7 @@ def test_units_aged_to_as_of_start_at_the_ship_date_when_no_sale_date_is_known(c
         {**row, "source_row_number": 3, "ship_date": d("2024-11-01"), "sale_date": d("2024-11-06"),
          "is_quarantined": True},  # a 5-day lag, but on a row that failed a check
     ])
+    sql_runner.run_model(con, "intermediate/ship_to_sale_lag_distribution", {"as_of_date": AS_OF})
     got = run(
         con, "intermediate/units_aged_to_as_of",
         "source_row_number, is_sale_date_imputed, warranty_start_date, is_in_channel, observed_age_months",
@@ -376,8 +387,10 @@ def test_units_aged_to_as_of_start_at_the_ship_date_when_no_sale_date_is_known(c
 def test_sale_month_groups(con):
     unit = {"product": "A", "build_month": d("2024-01"), "sale_month": d("2024-12"), "warranty_months": 12,
             "is_in_channel": False}
-    table(con, "units_aged_to_as_of", UNITS_AGED, [
+    table(con, "units_sold_or_in_channel", UNIT_PARTS, [
         {**unit, "units": 10},
+        {**unit, "units": 4.75},  # the sold part of a row without a sale date
+        {**unit, "units": 0.25, "is_in_channel": True},  # its channel part, clock after a mid-month as-of date
         {**unit, "units": 5, "is_in_channel": True},  # same group; clock starts after a mid-month as-of date
         {**unit, "units": 7, "warranty_months": 24},  # another warranty length
         {**unit, "units": 2, "sale_month": d("2024-11")},  # another sale month
@@ -388,7 +401,7 @@ def test_sale_month_groups(con):
               "product, build_month, sale_month, warranty_months, units, units_in_channel")
     assert got == [
         ("A", d("2024-01"), d("2024-11"), 12, 2, 0),
-        ("A", d("2024-01"), d("2024-12"), 12, 15, 5),
+        ("A", d("2024-01"), d("2024-12"), 12, 20, 5.25),
         ("A", d("2024-01"), d("2024-12"), 24, 7, 0),
         ("A", d("2024-02"), d("2024-12"), 12, 4, 0),
         ("B", d("2024-01"), d("2024-12"), 12, 1, 0),
@@ -434,10 +447,10 @@ def test_sale_month_group_survivors(con):
 
 def test_suspensions_shared_by_start_date(con):
     unit = {**GROUP, "observed_age_months": 10.5, "is_in_channel": False}
-    table(con, "units_aged_to_as_of", UNITS_AGED, [
+    table(con, "units_sold_or_in_channel", UNIT_PARTS, [
         {**unit, "warranty_start_date": d("2024-02-01"), "units": 100},
-        {**unit, "warranty_start_date": d("2024-02-16"), "units": 30, "observed_age_months": 10.0},
-        {**unit, "warranty_start_date": d("2024-02-16"), "units": 20, "observed_age_months": 10.0},  # same start date
+        {**unit, "warranty_start_date": d("2024-02-16"), "units": 29.75, "observed_age_months": 10.0},  # sold parts:
+        {**unit, "warranty_start_date": d("2024-02-16"), "units": 20.25, "observed_age_months": 10.0},  # same date
     ])
     table(con, "sale_month_group_survivors", {
         **{column: kind for column, kind in SALE_MONTH_GROUPS.items() if not column.startswith("units")},
@@ -547,6 +560,15 @@ def test_cohort_summary(con):
         {**unit, "units": 10, "build_month": d("2024-02")},  # a cohort without claims
         {**unit, "units": 3, "product": "B", "warranty_months": 6},
     ])
+    part = {"product": "A", "build_month": d("2024-01"), "is_in_channel": False}
+    table(con, "units_sold_or_in_channel", UNIT_PARTS, [  # the expected units in the channel come from here
+        {**part, "units": 100},
+        {**part, "units": 18.5},  # the 20 imputed units: 18.5 sold, 1.5 in the channel
+        {**part, "units": 1.5, "is_in_channel": True},
+        {**part, "units": 5, "is_in_channel": True},
+        {**part, "units": 10, "build_month": d("2024-02")},
+        {**part, "units": 3, "product": "B"},
+    ])
     claim = {**RETURN, "product": "A", "build_month": d("2024-01")}
     table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
         {**claim, "cost": 50},
@@ -569,7 +591,7 @@ def test_cohort_summary(con):
         " claims_out_of_coverage, claims_not_counted",
     )
     assert got == [
-        ("A", d("2024-01"), 125, 5, 25, 12, 24, 2, 70.5, 1, 7.25, 1, 2),
+        ("A", d("2024-01"), 125, 6.5, 25, 12, 24, 2, 70.5, 1, 7.25, 1, 2),
         ("A", d("2024-02"), 10, 0, 0, 12, 12, 0, 0.0, 0, 0.0, 0, 0),
         ("B", d("2024-01"), 3, 0, 0, 6, 6, 1, 10.0, 0, 0.0, 0, 0),
     ]
@@ -638,6 +660,16 @@ def test_run_facts(con):
         {**unit, "units": 3, "is_sale_date_imputed": True, "is_sold_after_as_of": True},  # in service, imputed
         {**unit, "units": 2, "is_sale_date_imputed": True, "is_sold_after_as_of": True, "is_in_channel": True},
     ])
+    part = {"is_sale_date_imputed": True, "is_in_channel": False}
+    table(con, "units_sold_or_in_channel", UNIT_PARTS, [  # the 30 imputed units' parts
+        {**part, "units": 100, "is_sale_date_imputed": False},
+        {**part, "units": 18.75},
+        {**part, "units": 1.25, "is_in_channel": True},
+        {**part, "units": 5, "is_in_channel": True},
+        {**part, "units": 2.5},
+        {**part, "units": 0.5, "is_in_channel": True},
+        {**part, "units": 2, "is_in_channel": True},
+    ])
     table(con, "claims_assigned_to_sale_month_groups", ASSIGNED_CLAIMS, [
         {**RETURN, "is_sale_date_imputed": True},
         {**RETURN, "is_group_reassigned": True},
@@ -658,9 +690,10 @@ def test_run_facts(con):
     ])
     assert dict(run(con, "outputs/run_facts", "fact, count")) == {
         "units_total": 130,
-        "units_in_channel": 7,
-        "units_in_service_sale_date_imputed": 23,
-        "units_sold_after_as_of_counted_unsold": 5,
+        "units_sale_date_imputed": 30,
+        "units_in_channel": 9,  # 8.75 rounded
+        "units_in_service_sale_date_imputed": 21,  # 21.25 rounded
+        "units_sold_after_as_of_sale_date_imputed": 5,
         "returns_counted": 3,
         "repeat_claims_counted": 1,
         "claims_out_of_coverage": 1,
@@ -672,10 +705,11 @@ def test_run_facts(con):
         "claims_with_unknown_serial": 1,
         "groups_with_more_returns_than_units": 1,
     }
-    for name in ("units_aged_to_as_of", "claims_assigned_to_sale_month_groups", "sale_month_group_survivors"):
+    for name in ("units_aged_to_as_of", "units_sold_or_in_channel", "claims_assigned_to_sale_month_groups",
+                 "sale_month_group_survivors"):
         con.execute(f"delete from {name}")
     facts = run(con, "outputs/run_facts", "fact, count")  # nothing read: every fact is there, as 0
-    assert len(facts) == 14 and {count for _, count in facts} == {0}  # 14 with repeat_claims_counted
+    assert len(facts) == 15 and {count for _, count in facts} == {0}  # 15 with units_sale_date_imputed
 
 
 def test_claim_cost_by_product(con):

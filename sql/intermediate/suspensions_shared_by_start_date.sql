@@ -2,11 +2,12 @@
 -- right-censored part of the life model's input, and the base of the forecast.
 -- Grain: one row per product x build_month x sale_month x warranty_months x warranty_start_date.
 -- Parameters: none.
--- Reads: units_aged_to_as_of, sale_month_group_survivors.
+-- Reads: units_sold_or_in_channel, sale_month_group_survivors.
 -- observed_age_months is the lesser of the age at the as-of date and the end of the warranty's last month
 -- in service (month_end_age(warranty_months), macros/ages.sql) (0 for units
--- still in the channel). A group's survivors (units minus counted returns) are shared among its rows in
--- proportion to units, so suspensions may be fractional.
+-- still in the channel). units are the sold and channel parts of units_sold_or_in_channel (expected
+-- counts, may be fractional). A group's survivors (units minus counted returns) are shared among its rows
+-- in proportion to units, so suspensions may be fractional.
 with units_by_start_date as (
     select
         product,
@@ -17,7 +18,7 @@ with units_by_start_date as (
         observed_age_months,
         is_in_channel,
         units
-    from units_aged_to_as_of
+    from units_sold_or_in_channel
 ),
 
 units_per_start_date as (
@@ -29,7 +30,7 @@ units_per_start_date as (
         warranty_start_date,
         observed_age_months,
         is_in_channel,
-        sum(units)::bigint as units
+        sum(units)::double as units
     from units_by_start_date
     group by product, build_month, sale_month, warranty_months, warranty_start_date, observed_age_months, is_in_channel
 ),

@@ -1,12 +1,19 @@
 -- units_aged_to_as_of: shipment rows known at the as-of date, with their warranty clock and age.
 -- Grain: one row per valid shipments row with ship_date on or before the as-of date.
 -- Parameters: $as_of_date, $default_warranty_months.
--- Reads: stg_shipments.
--- Warranty clock (warranty_start_date): the sale date when known by the as-of date; otherwise the ship
--- date plus the median ship-to-sale lag in days of the product's rows whose two dates are both known by
--- then (all products' rows when the product has none; 0 days when no row has both). A sale date after
--- the as-of date was not yet known then: the row counts as unsold and gets an imputed clock like any
--- other. An imputed clock after the as-of date means the units are still in the channel (age 0).
+-- Reads: stg_shipments, ship_to_sale_lag_distribution.
+-- A row with a sale date known by the as-of date is sold: sold_share 1, its clock (warranty_start_date)
+-- the sale date. A row without one (no sale date, or one after the as-of date, not known then), shipped
+-- D days before the as-of date, was either sold with its sale date never reported (a share m of sold
+-- units) or not sold yet (lag above D). With G the product's lag distribution and m its missing share
+-- (ship_to_sale_lag_distribution), sold_share = m G(D) / (m G(D) + 1 - G(D)) (1 when G(D) = 1: no lag
+-- seen is longer), rounded to a multiple of 2^-20 so the sold and channel parts of units are exact binary
+-- fractions (their sums are exact in any order). The sold part's clock is ship_date + the lower median
+-- lag given a lag of at most D (the smallest lag l with G(l) >= G(D) / 2, so on or before the as-of
+-- date); the channel part's, channel_start_date, is ship_date + the lower median lag given a lag above D
+-- (G(l) >= (1 + G(D)) / 2, after the as-of date; NULL when sold_share is 1). warranty_start_date is the
+-- sold part's clock, or the channel clock when sold_share is 0 (then is_in_channel: age 0).
+-- units_sold_or_in_channel splits the rows into the two parts.
 -- Ages are whole days / (365.25/12) (macros/ages.sql). observed_age_months stops at the end of the
 -- warranty's last month in service, month_end_age(warranty_months) (the day grid: 730 days, 23.98 months,
 -- for 24 months), so a unit past its warranty is suspended where the counted returns stop.
@@ -39,19 +46,66 @@ shipped_by_as_of as (
     where ship_date <= $as_of_date
 ),
 
-ship_to_sale_lag_by_product as (
-    select
-        product,
-        median(date_diff('day', ship_date, known_sale_date)) as median_lag_days
-    from shipped_by_as_of
-    where known_sale_date is not null
-    group by product
+lag_distribution as (
+    select product, lag_days, share_sold_by_lag, missing_sale_date_share
+    from ship_to_sale_lag_distribution
 ),
 
-ship_to_sale_lag_all_products as (
-    select median(date_diff('day', ship_date, known_sale_date)) as median_lag_days
+unsold_or_unreported_rows as (
+    select
+        source_row_number,
+        product,
+        date_diff('day', ship_date, $as_of_date) as days_since_shipped
     from shipped_by_as_of
-    where known_sale_date is not null
+    where known_sale_date is null
+),
+
+share_sold_by_days_since_shipped as (
+    -- G(D): the share at the longest lag of at most D days (0 when every lag is longer; then m does not
+    -- matter). The product's m is on each of its lag rows.
+    select
+        unreported.source_row_number,
+        unreported.product,
+        coalesce(max(lag.share_sold_by_lag), 0.0)::double as share_sold_by_as_of,
+        coalesce(max(lag.missing_sale_date_share), 1.0)::double as missing_sale_date_share
+    from unsold_or_unreported_rows as unreported
+    left join lag_distribution as lag
+        on unreported.product = lag.product and lag.lag_days <= unreported.days_since_shipped
+    group by unreported.source_row_number, unreported.product
+),
+
+sold_share_of_unreported_rows as (
+    select
+        source_row_number,
+        product,
+        share_sold_by_as_of,
+        case
+            when share_sold_by_as_of >= 1.0 then 1.0::double
+            else round(
+                missing_sale_date_share * share_sold_by_as_of
+                    / (missing_sale_date_share * share_sold_by_as_of + 1.0 - share_sold_by_as_of)
+                    * 1048576
+            ) / 1048576
+        end as sold_share
+    from share_sold_by_days_since_shipped
+),
+
+sold_part_lag_by_row as (
+    select sold.source_row_number, min(lag.lag_days) as sold_lag_days
+    from sold_share_of_unreported_rows as sold
+    join lag_distribution as lag
+        on sold.product = lag.product and lag.share_sold_by_lag >= sold.share_sold_by_as_of / 2
+    where sold.sold_share > 0
+    group by sold.source_row_number
+),
+
+channel_part_lag_by_row as (
+    select sold.source_row_number, min(lag.lag_days) as channel_lag_days
+    from sold_share_of_unreported_rows as sold
+    join lag_distribution as lag
+        on sold.product = lag.product and lag.share_sold_by_lag >= (1.0 + sold.share_sold_by_as_of) / 2
+    where sold.sold_share < 1
+    group by sold.source_row_number
 ),
 
 clocked_units as (
@@ -65,14 +119,18 @@ clocked_units as (
         shipped.units,
         shipped.warranty_months,
         shipped.serial,
+        coalesce(sold.sold_share, 1.0::double) as sold_share,
         coalesce(
             shipped.known_sale_date,
-            shipped.ship_date + round(coalesce(by_product.median_lag_days, all_products.median_lag_days, 0))::integer
+            shipped.ship_date + sold_part.sold_lag_days,
+            shipped.ship_date + channel_part.channel_lag_days
         ) as warranty_start_date,
+        shipped.ship_date + channel_part.channel_lag_days as channel_start_date,
         shipped.known_sale_date is null as is_sale_date_imputed
     from shipped_by_as_of as shipped
-    left join ship_to_sale_lag_by_product as by_product on shipped.product = by_product.product
-    cross join ship_to_sale_lag_all_products as all_products
+    left join sold_share_of_unreported_rows as sold on shipped.source_row_number = sold.source_row_number
+    left join sold_part_lag_by_row as sold_part on shipped.source_row_number = sold_part.source_row_number
+    left join channel_part_lag_by_row as channel_part on shipped.source_row_number = channel_part.source_row_number
 )
 
 select
@@ -83,7 +141,9 @@ select
     known_sale_date,
     is_sold_after_as_of,
     is_sale_date_imputed,
+    sold_share,
     warranty_start_date,
+    channel_start_date,
     date_trunc('month', warranty_start_date)::date as sale_month,
     warranty_months,
     units,
