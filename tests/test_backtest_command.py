@@ -205,7 +205,9 @@ def test_interval_columns_are_used_when_the_run_has_them():
         }),
         pd.DataFrame({"product": ["P", "P"], "build_month": [jan, feb], "units": [100, 120]}),
     )
-    run = OriginRun(origin, forecast, reserve, interval, "reserve_by_product.parquet: x_12_lower, x_12_upper")
+    by_month = pd.DataFrame({"product": ["P", "P"], "month": [april, may], "lower": [2.0, 1.0], "upper": [4.0, 1.5]})
+    run = OriginRun(origin, forecast, reserve, interval, "reserve_by_product.parquet: x_12_lower, x_12_upper",
+                    by_month, "by_month.parquet")
     comparison = compare_origin(run, counted, horizon=12, confidence_level=0.95)
     row = comparison.by_product.iloc[0]
     assert row["forecast"] == 7.0 and row["came"] == 7.0 and row["covered"] == 1.0
@@ -215,11 +217,14 @@ def test_interval_columns_are_used_when_the_run_has_them():
     assert months.loc[april, "interval_cells"] == 2 and months.loc[april, "interval_cells_covered"] == 1
     assert months.loc[may, "interval_cells"] == 2 and months.loc[may, "interval_cells_covered"] == 2
     assert months.loc[dt.date(2025, 6, 1), "came"] == 0 and months.loc[dt.date(2025, 6, 1), "forecast"] == 0
+    # the per-product monthly interval: April came 5 not in [2, 4]; May came 2 not in [1, 1.5]; June none
+    assert list(months["covered"].iloc[:2]) == [0.0, 0.0] and months["covered"].iloc[2:].isna().all()
     without = compare_origin(
         OriginRun(origin, forecast.drop(columns=["returns_lower", "returns_median", "returns_upper"]), reserve, None, None),
         counted, horizon=12, confidence_level=0.95,
     )
     assert np.isnan(without.by_product.iloc[0]["covered"]) and (without.by_month["interval_cells"] == 0).all()
+    assert without.by_month["covered"].isna().all()
 
 
 def test_a_per_product_twelve_month_interval_is_found_in_the_runs_tables(tmp_path):
@@ -240,6 +245,17 @@ def test_a_per_product_twelve_month_interval_is_found_in_the_runs_tables(tmp_pat
         "reserve_by_product.parquet: returns_next_12_months_lower, returns_next_12_months_upper"
     )
     assert run.forecast["month"].iloc[0] == jan
+    assert run.month_interval is None
+    # a long table of horizons comes first; a per-month table gives the monthly interval
+    pd.DataFrame({"product": ["P", "P"], "horizon": ["next_12_months", "to_warranty_end"], "expected": [5.0, 9.0],
+                  "lower": [4.0, 7.0], "median": [5.0, 9.0], "upper": [6.0, 11.0]}).to_parquet(
+        tmp_path / "prediction_by_product.parquet")
+    pd.DataFrame({"product": ["P"], "month": [jan], "expected_returns": [1.0], "returns_lower": [0.0],
+                  "returns_median": [1.0], "returns_upper": [3.0]}).to_parquet(tmp_path / "prediction_by_month.parquet")
+    run = read_origin_run(tmp_path, dt.date(2025, 1, 31))
+    assert run.product_interval.to_dict("list") == {"product": ["P"], "lower": [4.0], "upper": [6.0]}
+    assert run.interval_source == "prediction_by_product.parquet: lower, upper where horizon = next_12_months"
+    assert run.month_interval.to_dict("list") == {"product": ["P"], "month": [jan], "lower": [0.0], "upper": [3.0]}
 
 
 @pytest.mark.parametrize("arguments", [["--origins", "0"], ["--horizon", "-1"], ["--origins", "121"]])

@@ -18,7 +18,10 @@ shipped by the origin: its reserve.parquet). came = those returns failing in the
 origin+horizon. Units of those build months shipped after the origin are not in the origin's forecast,
 yet their returns are in `came`: `units_shipped_after_origin` says how many there were. The forecast
 places each expected return in the calendar month holding the midpoint of its month in service
-(stages/forecast.py); `came` uses the failure date itself.
+(stages/forecast.py); `came` uses the failure date itself. The counts come from one extra pass of the
+run's SQL stage at the latest as-of date (`counted_returns`: `shaping._shape` on a connection of this
+module's, then one aggregate over the intermediate table), so this module imports DuckDB; an output
+model (returns by failure month and claim month) in sql/outputs would let it read ShapedData instead.
 
 Chain ladder. At each origin and product, the triangle of the same counted returns known at the origin
 (claims filed by the origin), build month x development month (1 + calendar months from the build month
@@ -27,12 +30,16 @@ to the failure), whole calendar months only (`chain_ladder.returns_triangle`), f
 Mack's standard error, and an interval forecast +- z standard errors (normal approximation; z from
 life_model.confidence_level).
 
-Intervals. When the origin's forecast.parquet has `returns_lower` / `returns_upper` (per product x build
-month x month), the by-month table counts the cells whose returns that came lie inside them. A per-product
-interval for the next 12 months is looked for in the origin's tables without a build_month column: a
-pair of columns `<prefix>_lower` / `<prefix>_upper` whose prefix holds "12" (the first such pair, by file
-and column name; the manifest names it); it is used only when horizon = 12. Without them the interval
-columns are NaN.
+Intervals, when the origin's run has them (looked for in its tables, so the names below are the contract;
+the manifest lists what was found at each origin); without them the interval columns are NaN (or 0):
+  * per product, the next 12 months (used only when horizon = 12): a long table with the columns product,
+    horizon, lower, upper and rows of horizon "next_12_months"; else a table of one row per product with
+    a pair `<prefix>_lower` / `<prefix>_upper` whose prefix holds "12" -> backtest.parquet's
+    forecast_lower, forecast_upper, covered;
+  * per product x calendar month: a table (no build_month) with product, month, returns_lower,
+    returns_upper -> backtest_by_month.parquet's forecast_lower, forecast_upper, covered;
+  * per product x build month x month: returns_lower / returns_upper in forecast.parquet -> the by-month
+    table counts the build months whose returns that came lie inside them (interval_cells, _covered).
 
 Counts are returns (units); ratios are forecast / came.
 """
@@ -128,13 +135,18 @@ MONTH_COLUMNS: dict[str, str] = {
     "ratio": "forecast / came (NaN when came = 0)",
     "chain_ladder_forecast": "chain ladder's increment on that diagonal",
     "chain_ladder_error": "chain_ladder_forecast - came",
+    "forecast_lower": "lower end of the run's interval for the product's returns that month, if it has one",
+    "forecast_upper": "upper end of that interval",
+    "covered": "came within [forecast_lower, forecast_upper] (NaN without the interval)",
     "interval_cells": (
-        "build months of the product with a returns_lower/returns_upper interval that month (0 without them)"
+        "build months of the product with a returns_lower/returns_upper interval that month in forecast.parquet"
+        " (0 without them)"
     ),
     "interval_cells_covered": "of those, build months whose returns that came lie within the interval",
 }
 
 _INTERVAL_PAIR = re.compile(r"^(?P<prefix>.*12.*)_lower$")
+NEXT_12_MONTHS = "next_12_months"  # the horizon label of a long per-product interval table
 
 
 # ------------------------------------------------------------------------------------------ months
@@ -222,6 +234,8 @@ class OriginRun:
     reserve: pd.DataFrame  # reserve.parquet
     product_interval: pd.DataFrame | None  # product, lower, upper (the next 12 months), if the run has one
     interval_source: str | None  # "file: lower, upper" of that interval
+    month_interval: pd.DataFrame | None = None  # product, month, lower, upper (per calendar month), if any
+    month_interval_source: str | None = None
 
 
 def read_origin_run(folder: Path, origin: dt.date) -> OriginRun:
@@ -230,12 +244,21 @@ def read_origin_run(folder: Path, origin: dt.date) -> OriginRun:
     forecast["month"] = pd.to_datetime(forecast["month"]).dt.date
     reserve = pd.read_parquet(folder / "reserve.parquet")
     interval, source = _product_interval(folder)
-    return OriginRun(origin, forecast, reserve, interval, source)
+    by_month, month_source = _month_interval(folder)
+    return OriginRun(origin, forecast, reserve, interval, source, by_month, month_source)
 
 
 def _product_interval(folder: Path) -> tuple[pd.DataFrame | None, str | None]:
     """The first `<prefix holding 12>_lower` / `_upper` pair in a table of one row per product (by file and
-    column name), as (product, lower, upper) and its source; (None, None) when there is none."""
+    column name), as (product, lower, upper) and its source; before that, a long table with the columns
+    product, horizon, lower, upper and rows of horizon "next_12_months". (None, None) when there is none."""
+    for path in sorted(folder.glob("*.parquet")):
+        columns = pq.read_schema(path).names
+        if {"product", "horizon", "lower", "upper"} <= set(columns) and "build_month" not in columns:
+            table = pd.read_parquet(path, columns=["product", "horizon", "lower", "upper"])
+            table = table[table["horizon"] == NEXT_12_MONTHS][["product", "lower", "upper"]]
+            if len(table) and not table["product"].duplicated().any():
+                return table.reset_index(drop=True), f"{path.name}: lower, upper where horizon = {NEXT_12_MONTHS}"
     for path in sorted(folder.glob("*.parquet")):
         columns = pq.read_schema(path).names
         if "product" not in columns or "build_month" in columns:
@@ -248,6 +271,21 @@ def _product_interval(folder: Path) -> tuple[pd.DataFrame | None, str | None]:
                 if table["product"].duplicated().any():  # not one row per product: another grain
                     continue
                 return table.rename(columns={column: "lower", upper: "upper"}), f"{path.name}: {column}, {upper}"
+    return None, None
+
+
+def _month_interval(folder: Path) -> tuple[pd.DataFrame | None, str | None]:
+    """A table of one row per product x calendar month with returns_lower / returns_upper and no build_month
+    (the run's interval for a product's returns in a month), as (product, month, lower, upper) and its
+    source; (None, None) when the run has none."""
+    for path in sorted(folder.glob("*.parquet")):
+        columns = pq.read_schema(path).names
+        if {"product", "month", "returns_lower", "returns_upper"} <= set(columns) and "build_month" not in columns:
+            table = pd.read_parquet(path, columns=["product", "month", "returns_lower", "returns_upper"])
+            if table.duplicated(["product", "month"]).any():
+                continue
+            table["month"] = pd.to_datetime(table["month"]).dt.date
+            return table.rename(columns={"returns_lower": "lower", "returns_upper": "upper"}), path.name
     return None, None
 
 
@@ -346,6 +384,11 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
                 cells = len(bounded)
                 covered_cells = int(np.sum((cell_came >= bounded["returns_lower"].to_numpy(dtype=float))
                                            & (cell_came <= bounded["returns_upper"].to_numpy(dtype=float))))
+            month_lower = month_upper = math.nan
+            if run.month_interval is not None:
+                found = run.month_interval[(run.month_interval["product"] == product) & (run.month_interval["month"] == month)]
+                if len(found):
+                    month_lower, month_upper = float(found["lower"].iloc[0]), float(found["upper"].iloc[0])
             cl_month = ladder["by_period"][t - 1] if ladder["by_period"] is not None else math.nan
             month_rows.append({
                 "origin": run.origin,
@@ -359,6 +402,9 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
                 "ratio": _ratio(month_forecast, month_came),
                 "chain_ladder_forecast": cl_month,
                 "chain_ladder_error": cl_month - month_came,
+                "forecast_lower": month_lower,
+                "forecast_upper": month_upper,
+                "covered": _within(month_came, month_lower, month_upper),
                 "interval_cells": cells,
                 "interval_cells_covered": covered_cells,
             })
@@ -467,8 +513,9 @@ def run_backtest(
         )
         run_nightly(config)
         run = read_origin_run(folder, origin)
-        if run.interval_source:
-            sources.append(f"{origin}: {run.interval_source}")
+        for found in (run.interval_source, run.month_interval_source):
+            if found:
+                sources.append(f"{origin}: {found}")
         comparison = compare_origin(run, counted, horizon, level)
         by_origin.append(comparison.by_product)
         by_month.append(comparison.by_month)
