@@ -13,6 +13,7 @@ import pytest
 from scipy import stats
 
 from warranty_forecast.config import AlertSettings, LifeModelSettings, load_config
+from warranty_forecast.lifecore.data import DAYS_PER_MONTH, month_interval_ends
 from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.stages.build_month_alerts import (
     BUILD_MONTH_ALERT_COLUMNS,
@@ -96,14 +97,17 @@ def _lives(rng: np.random.Generator, n: int, early_hazard_factor: float, k: floa
 
 def simulated_product(seed: int, warranty: float = 24.0) -> tuple[pd.DataFrame, pd.DataFrame]:
     """fit_returns- and fit_suspensions-shaped tables: 24 build months of 5,000 units sold at once, the
-    youngest 1 month in service, the bad month with twice the early (first 3 months) hazard."""
+    youngest 1 month in service, the bad month with twice the early (first 3 months) hazard. Day-granular
+    as the pipeline sees dates: a unit n whole months in service is observed to the end of month n on the
+    day grid; a failure at age T is dated floor(T L) days after the start, month max(1, ceil(d / L))."""
     rng = np.random.default_rng(seed)
     returns, suspensions = [], []
     for index, month in enumerate(BUILD_MONTHS):
-        window = min(float(len(BUILD_MONTHS) - index), warranty)
+        window = float(month_interval_ends(min(float(len(BUILD_MONTHS) - index), warranty))[1])
         life = _lives(rng, UNITS, 2.0 if month == BAD_MONTH else 1.0)
-        failed = life <= window
-        mis, counts = np.unique(np.ceil(life[failed]).astype(int), return_counts=True)
+        failed = life < window
+        day = np.floor(life[failed] * DAYS_PER_MONTH)
+        mis, counts = np.unique(np.maximum(1, np.ceil(day / DAYS_PER_MONTH)).astype(int), return_counts=True)
         returns += [("P", month, int(m), int(c)) for m, c in zip(mis, counts)]
         suspensions.append(("P", month, window, UNITS, float(UNITS - failed.sum())))
     return (

@@ -87,7 +87,7 @@ class Exponential:
 
 JAN, FEB, MAR = dt.date(2024, 1, 1), dt.date(2024, 2, 1), dt.date(2024, 3, 1)
 L = 365.25 / 12  # days in a month of age. Months in service on the day grid (hand arithmetic): month 1 is
-# days 1-30, month 2 days 31-60, month 3 days 61-91, month 4 days 92-121 (lifecore.data.month_interval_ends)
+# ages (0, 31] days, month 2 (31, 61], month 3 (61, 92], month 4 (92, 122] (lifecore.data.month_interval_ends)
 
 
 def age(days):
@@ -96,69 +96,69 @@ def age(days):
 
 
 def test_exposure_counts_the_newest_month_by_the_time_it_was_observed():
-    # 1,000 units observed to 75 days: months 1 and 2 fully (30 days each), month 3 for 15 of its 31 days
+    # 1,000 units observed to 75 days: months 1 and 2 fully (31 and 30 days), month 3 for 14 of its 31 days
     # (hand computation; unit-months = units x days / L)
     exposure = charts.exposure_by_month_in_service(suspensions([("P", JAN, age(75), 1000)]))
     assert exposure["months_in_service"].tolist() == [1, 2, 3]
-    assert exposure["exposure_unit_months"].tolist() == pytest.approx([1000 * 30 / L, 1000 * 30 / L, 1000 * 15 / L])
+    assert exposure["exposure_unit_months"].tolist() == pytest.approx([1000 * 31 / L, 1000 * 30 / L, 1000 * 14 / L])
     cells = charts.return_rate_cells(returns_table([("P", JAN, 3, 1)]), suspensions([("P", JAN, age(75), 1000)]))
     month_3 = cells[cells["months_in_service"] == 3].iloc[0]
-    # 1 return on 493 unit-months is 2.03 per 1,000 unit-months, not 1 per 1,000 units (hand computation)
-    assert month_3["rate_per_1000_unit_months"] == pytest.approx(1000 / (1000 * 15 / L))
-    assert cells["rate_per_1000_unit_months"].tolist() == pytest.approx([0.0, 0.0, L / 15])
+    # 1 return on 460 unit-months is 2.17 per 1,000 unit-months, not 1 per 1,000 units (hand computation)
+    assert month_3["rate_per_1000_unit_months"] == pytest.approx(1000 / (1000 * 14 / L))
+    assert cells["rate_per_1000_unit_months"].tolist() == pytest.approx([0.0, 0.0, L / 14])
 
 
 def test_exposure_takes_out_units_returned_in_earlier_months():
-    # one sale-month group of 1,000 units: 600 observed to 91 days (the end of month 3), 400 to 45 days;
+    # one sale-month group of 1,000 units: 600 observed to 92 days (the end of month 3), 400 to 45 days;
     # 10 returns in month 1 and 5 in month 2, shared in proportion to units (hand computation, in unit-days
     # then / L):
-    #   month 1: (600 + 400) x 30                             = 30,000
-    #   month 2: (600 x 30 + 400 x 15) x (1 - 10 / 1000)      = 23,760
+    #   month 1: (600 + 400) x 31                             = 31,000
+    #   month 2: (600 x 30 + 400 x 14) x (1 - 10 / 1000)      = 23,364
     #   month 3: 600 x 31 x (1 - 15 / 1000)                   = 18,321
-    units = suspensions([("P", JAN, age(91), 600), ("P", JAN, age(45), 400)])
+    units = suspensions([("P", JAN, age(92), 600), ("P", JAN, age(45), 400)])
     returned = returns_table([("P", JAN, 1, 10), ("P", JAN, 2, 5)])
     exposure = charts.exposure_by_month_in_service(units, returned)
-    assert exposure["exposure_unit_months"].tolist() == pytest.approx([30_000 / L, 23_760 / L, 18_321 / L])
+    assert exposure["exposure_unit_months"].tolist() == pytest.approx([31_000 / L, 23_364 / L, 18_321 / L])
     assert charts.exposure_by_month_in_service(units)["exposure_unit_months"].tolist() == pytest.approx(
-        [30_000 / L, 24_000 / L, 18_600 / L]
+        [31_000 / L, 23_600 / L, 18_600 / L]
     )
 
 
 def test_expected_returns_per_cell_add_up_to_the_whole_window():
     # units x (F(min(a, b_k)) - F(b_{k-1})) per month; the months add up to units x F(a), the alert stage's E
-    # (hand computation with the closed form of an exponential cdf; month ends 30, 60 days, a = 75 days)
+    # (hand computation with the closed form of an exponential cdf; month ends 31, 61 days, a = 75 days)
     baseline = Exponential(100.0)
     cells = charts.return_rate_cells(
         returns_table([("P", JAN, 3, 4)]), suspensions([("P", JAN, age(75), 1000)]), {"P": baseline}
     )
     f = lambda days: 1.0 - math.exp(-days / L / 100.0)  # noqa: E731
     assert cells["expected_returns"].tolist() == pytest.approx(
-        [1000 * f(30), 1000 * (f(60) - f(30)), 1000 * (f(75) - f(60))]
+        [1000 * f(31), 1000 * (f(61) - f(31)), 1000 * (f(75) - f(61))]
     )
     assert cells["expected_returns"].sum() == pytest.approx(1000 * f(75))
-    assert cells["observed_to_expected"].iloc[2] == pytest.approx(4 / (1000 * (f(75) - f(60))))
+    assert cells["observed_to_expected"].iloc[2] == pytest.approx(4 / (1000 * (f(75) - f(61))))
     assert cells["observed_to_expected"].iloc[0] == 0.0  # no returns where some were expected
     no_baseline = charts.return_rate_cells(returns_table([("P", JAN, 3, 4)]), suspensions([("P", JAN, age(75), 1000)]))
     assert no_baseline["expected_returns"].isna().all() and no_baseline["observed_to_expected"].isna().all()
 
 
 def test_thin_cells_are_marked():
-    # 1,000 units to 62 days: month 3 has 2 days, 66 unit-months, under MIN_EXPOSURE_UNIT_MONTHS = 100
+    # 1,000 units to 62 days: month 3 has 1 day, 33 unit-months, under MIN_EXPOSURE_UNIT_MONTHS = 100
     # (hand computation)
     assert charts.MIN_EXPOSURE_UNIT_MONTHS == 100.0
     cells = charts.return_rate_cells(returns_table([]), suspensions([("P", JAN, age(62), 1000)]), {"P": Exponential(10.0)})
-    assert cells["exposure_unit_months"].tolist() == pytest.approx([30_000 / L, 30_000 / L, 2_000 / L])
+    assert cells["exposure_unit_months"].tolist() == pytest.approx([31_000 / L, 30_000 / L, 1_000 / L])
     assert cells["is_thin"].tolist() == [False, False, True]
-    # the ratio also needs MIN_EXPECTED_RETURNS = 1: 1000 x (F(62 days) - F(60 days)) = 6.4 expected is
+    # the ratio also needs MIN_EXPECTED_RETURNS = 1: 1000 x (F(62 days) - F(61 days)) = 2.7 expected is
     # enough, but the cell is already thin
     assert cells["is_ratio_thin"].tolist() == [False, False, True]
 
 
 def heat_map_inputs():
     """P: three build months (Jan to 106 days, half of month 4, with returns; Feb to 75 days with no returns;
-    Mar to 31 days: month 2 thin); "$x$": one build month; E: units not yet in service (age 0)."""
+    Mar to 32 days: month 2 thin); "$x$": one build month; E: units not yet in service (age 0)."""
     units = suspensions([
-        ("P", JAN, age(106), 1000), ("P", FEB, age(75), 1000), ("P", MAR, age(31), 1000),
+        ("P", JAN, age(106), 1000), ("P", FEB, age(75), 1000), ("P", MAR, age(32), 1000),
         ("$x$", JAN, age(60), 500), ("E", JAN, 0.0, 300),
     ])
     returned = returns_table([("P", JAN, 1, 3), ("P", JAN, 3, 2), ("P", JAN, 4, 1), ("$x$", JAN, 2, 1)])
@@ -178,9 +178,9 @@ def test_heatmap_rates_per_unit_month_with_ratios_masks_and_labels():
     rates = rate_axis.images[0].get_array()
     # rows Jan, Feb, Mar; months in service 1..4 (hand computation: returns x 1,000 / unit-months, with
     # unit-months = units at risk x days observed in the month / L)
-    assert rates[0, 0] == pytest.approx(3.0 / (1000 * 30 / L) * 1000)
+    assert rates[0, 0] == pytest.approx(3.0 / (1000 * 31 / L) * 1000)
     assert rates[0, 2] == pytest.approx(2.0 / (997 * 31 / L) * 1000)
-    assert rates[0, 3] == pytest.approx(1.0 / (995 * 15 / L) * 1000)  # the newest half month of January
+    assert rates[0, 3] == pytest.approx(1.0 / (995 * 14 / L) * 1000)  # the newest half month of January
     assert rates[1].tolist()[:3] == [0.0, 0.0, 0.0]  # February: no returns, still drawn
     assert np.ma.is_masked(rates[2, 1])  # March month 2: 1 day, 33 unit-months, thin
     assert np.ma.is_masked(rates[2, 2])  # March month 3: not yet observed
@@ -193,8 +193,8 @@ def test_heatmap_rates_per_unit_month_with_ratios_masks_and_labels():
     assert "100 unit-months" in figure.get_suptitle()
     ratio_axis = next(a for a in figure.axes if a.get_title() == "P: observed / expected (baseline)")
     ratios = ratio_axis.images[0].get_array()
-    # January month 1: 3 returns against 1000 x F(30 days) of an exponential of mean 300 months (hand computation)
-    assert ratios[0, 0] == pytest.approx(3 / (1000 * (1 - math.exp(-30 / L / 300))))
+    # January month 1: 3 returns against 1000 x F(31 days) of an exponential of mean 300 months (hand computation)
+    assert ratios[0, 0] == pytest.approx(3 / (1000 * (1 - math.exp(-31 / L / 300))))
     assert ratios[1, 0] < 1 / charts.OBSERVED_TO_EXPECTED_COLOUR_LIMIT  # no returns: the colour bar's lower end
     assert ratio_axis.images[0].get_cmap().name == "RdBu_r" and ratio_axis.images[0].norm.vmin == pytest.approx(0.1)
     empty = [a for a in figure.axes if a.get_title() == "E"]
@@ -276,7 +276,7 @@ def test_observed_to_expected_chart_marks_and_labels_flagged_months():
 
 def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
     units = suspensions([
-        ("P", JAN, age(91), 1000), ("P", FEB, age(93), 1000), ("P", MAR, age(60), 1000), ("$x$", JAN, age(30), 400),
+        ("P", JAN, age(92), 1000), ("P", FEB, age(94), 1000), ("P", MAR, age(61), 1000), ("$x$", JAN, age(31), 400),
         ("E", JAN, 0.0, 50),
     ])
     returned = returns_table([("P", JAN, 1, 2), ("P", JAN, 2, 1), ("P", FEB, 1, 20), ("P", FEB, 2, 10)])
@@ -290,14 +290,14 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
         }
         flagged_line = lines["2024-02 (flagged)"]
         assert flagged_line.get_linewidth() > 2 and flagged_line.get_color() != "#9a9a9a"
-        # Feb: 1,000 units to 93 days, 20 + 10 returns; month 4 has 2 days, 64 unit-months (thin), so the line
-        # ends at 3 (hand computation: returns x 1,000 / unit-months, months 1-2 of 30 days, month 3 of 31)
+        # Feb: 1,000 units to 94 days, 20 + 10 returns; month 4 has 2 days, 66 unit-months (thin), so the line
+        # ends at 3 (hand computation: returns x 1,000 / unit-months, months of 31, 30 and 31 days)
         assert flagged_line.get_xdata().tolist() == [0, 1, 2, 3]
-        month_1, month_2 = 20 * 1000 / (1000 * 30 / L), 10 * 1000 / (980 * 30 / L)
+        month_1, month_2 = 20 * 1000 / (1000 * 31 / L), 10 * 1000 / (980 * 30 / L)
         assert flagged_line.get_ydata() == pytest.approx([0.0, month_1, month_1 + month_2, month_1 + month_2])
         greys = [line for line in panel.lines if line.get_color() == "#9a9a9a" and len(line.get_xdata())]
         january = next(line for line in greys if len(line.get_xdata()) == 4)
-        jan_1, jan_2 = 2 * 1000 / (1000 * 30 / L), 1 * 1000 / (998 * 30 / L)
+        jan_1, jan_2 = 2 * 1000 / (1000 * 31 / L), 1 * 1000 / (998 * 30 / L)
         assert january.get_ydata() == pytest.approx([0.0, jan_1, jan_1 + jan_2, jan_1 + jan_2])
         march = next(line for line in greys if len(line.get_xdata()) == 3)
         assert march.get_ydata().tolist() == [0.0, 0.0, 0.0]  # a month with no returns

@@ -70,10 +70,10 @@ def test_other_modes_returns_become_suspensions_at_mid_month():
     )
     product = LifeData.from_monthly_returns([1, 3, 3, 5], [2, 1, 4, 6], [10.0, 12.0], [100.0, 50.0])
     data = competing_risk_data(returns, ("A",), product)
-    days = 365.25 / 12  # the day grid (hand arithmetic): month 3 = (60, 91] days, month 5 = (121, 152] days
-    assert (data.interval_upper * days).round(9).tolist() == [30.0, 91.0] and data.interval_counts.tolist() == [2.0, 1.0]
+    days = 365.25 / 12  # the day grid (hand arithmetic): month 3 = (61, 92] days, month 5 = (122, 153] days
+    assert (data.interval_upper * days).round(9).tolist() == [31.0, 92.0] and data.interval_counts.tolist() == [2.0, 1.0]
     suspended = {round(age * days, 9): count for age, count in zip(data.suspension_ages, data.suspension_counts)}
-    assert suspended == {round(10 * days, 9): 100.0, round(12 * days, 9): 50.0, 75.5: 4.0, 136.5: 6.0}
+    assert suspended == {round(10 * days, 9): 100.0, round(12 * days, 9): 50.0, 76.5: 4.0, 137.5: 6.0}
     assert data.n_returns + data.n_suspensions == product.n_returns + product.n_suspensions
 
 

@@ -44,12 +44,12 @@ def suspension_rows(**columns) -> pd.DataFrame:
 def test_exponential_total_and_months_match_closed_form():
     # common practice, no source: with shape 1 the life is memoryless, so the expected returns over
     # the rest of the warranty are s * (1 - exp(-(W - a) / scale)) and month k gets the interval share.
-    # Months in service on the day grid (hand arithmetic, L = 30.4375 days): month 3 ends at 91 days,
-    # month 4 at 121, month 5 (the warranty's last) at 152 days = 4.9938 months.
+    # Months in service on the day grid (hand arithmetic, L = 30.4375 days): month 3 ends at 92 days of
+    # age, month 4 at 122, month 5 (the warranty's last) at 153 days = 5.0267 months.
     model = Weibull(1.0, 50.0)
     detail = expected_future_returns(suspension_rows(), {"P": model})
     assert detail["months_in_service"].tolist() == [3, 4, 5]
-    ends = [91 / DAYS, 121 / DAYS, 152 / DAYS]
+    ends = [92 / DAYS, 122 / DAYS, 153 / DAYS]
     expected_intervals = [(2.5, ends[0]), (ends[0], ends[1]), (ends[1], ends[2])]
     for (lo, hi), value in zip(expected_intervals, detail["expected_returns"]):
         assert value == pytest.approx(1000 * (np.exp(-(lo - 2.5) / 50) - np.exp(-(hi - 2.5) / 50)), rel=1e-12)
@@ -65,7 +65,7 @@ def test_weibull_conditional_probability_matches_direct_formula():
     shape, scale = 2.3, 40.0
     detail = expected_future_returns(suspension_rows(observed_age_months=0.4, warranty_months=3), {"P": Weibull(shape, scale)})
     survival = lambda t: np.exp(-((t / scale) ** shape))  # noqa: E731
-    ends = [30 / DAYS, 60 / DAYS, 91 / DAYS]  # months 1-3 on the day grid (hand arithmetic)
+    ends = [31 / DAYS, 61 / DAYS, 92 / DAYS]  # months 1-3 on the day grid (hand arithmetic)
     direct = [(survival(lo) - survival(hi)) / survival(0.4) * 1000
               for lo, hi in [(0.4, ends[0]), (ends[0], ends[1]), (ends[1], ends[2])]]
     assert detail["expected_returns"].tolist() == pytest.approx(direct, rel=1e-10)
@@ -74,7 +74,7 @@ def test_weibull_conditional_probability_matches_direct_formula():
 def test_mature_rows_products_without_model_and_channel_units():
     rows = pd.concat(
         [
-            suspension_rows(observed_age_months=152 / DAYS),  # at the end of month 5's cover: nothing left
+            suspension_rows(observed_age_months=153 / DAYS),  # at the end of month 5's cover: nothing left
             suspension_rows(product="Q"),  # no model for Q
             suspension_rows(observed_age_months=0.0, warranty_start_date=dt.date(2024, 2, 10)),  # in channel
         ],
@@ -83,7 +83,7 @@ def test_mature_rows_products_without_model_and_channel_units():
     detail = expected_future_returns(rows, {"P": Weibull(1.0, 50.0)})
     assert set(detail["product"]) == {"P"}
     assert detail["months_in_service"].tolist() == [1, 2, 3, 4, 5]
-    assert detail["expected_returns"].sum() == pytest.approx(1000 * -np.expm1(-(152 / DAYS) / 50), rel=1e-12)
+    assert detail["expected_returns"].sum() == pytest.approx(1000 * -np.expm1(-(153 / DAYS) / 50), rel=1e-12)
     by_month = forecast_by_month(detail)
     # 2024-02-10 is day 10 of 29: coordinate 1 + 9/29; midpoints 0.5..4.5 months -> Feb .. Jun
     assert by_month["month"].tolist() == [dt.date(2024, m, 1) for m in (2, 3, 4, 5, 6)]
@@ -111,7 +111,7 @@ def test_a_flagged_build_month_is_forecast_with_its_own_model_and_the_others_wit
     assert by_month[february] == pytest.approx(alone["expected_returns"].sum(), rel=1e-15)
     assert by_month[january] == pytest.approx(plain["expected_returns"].sum(), rel=1e-15)
     # memoryless closed form (common practice, no source): 1000 (1 - exp(-(b_5 - 2.5) / 10)) for the own
-    # life, b_5 = 152 days the end of the warranty's cover on the day grid
-    assert by_month[february] == pytest.approx(1000 * -np.expm1(-(152 / DAYS - 2.5) / 10), rel=1e-12)
+    # life, b_5 = 153 days the end of the warranty's cover on the day grid
+    assert by_month[february] == pytest.approx(1000 * -np.expm1(-(153 / DAYS - 2.5) / 10), rel=1e-12)
     # a month model for a product without a model forecasts nothing (the product is reported as such)
     assert expected_future_returns(rows, {}, {("P", february): own}).empty

@@ -302,15 +302,17 @@ def test_from_monthly_returns_maps_month_k_to_interval():
 
 
 def test_from_monthly_returns_puts_month_k_on_the_day_grid_by_default():
-    # common practice, no source: month k holds whole-day ages floor((k-1) L) + 1 .. floor(k L) days,
-    # L = 365.25 / 12 = 30.4375; so month 1 = (0, 30] days, month 2 = (30, 60], month 3 = (60, 91],
-    # month 24 = (700, 730] days (hand arithmetic: 23 L = 700.06, 24 L = 730.5).
+    # common practice, no source: the start date is day 1 of service, a failure d days after it is at an
+    # age in [d, d + 1) days, and month k holds the day counts floor((k-1) L) + 1 .. floor(k L) (d = 0 in
+    # month 1), L = 365.25 / 12 = 30.4375; so month 1 = (0, 31] days of age, month 2 = (31, 61],
+    # month 3 = (61, 92], month 24 = (701, 731] (hand arithmetic: 23 L = 700.06, 24 L = 730.5).
     data = LifeData.from_monthly_returns([1, 2, 3, 24], [1, 1, 1, 1], [6.0], [10])
     days = 365.25 / 12
-    np.testing.assert_allclose(data.interval_lower * days, [0.0, 30.0, 60.0, 700.0], rtol=0, atol=1e-9)
-    np.testing.assert_allclose(data.interval_upper * days, [30.0, 60.0, 91.0, 730.0], rtol=0, atol=1e-9)
-    lower, upper = month_interval_ends(np.arange(1, 121))
-    assert np.all(lower[1:] == upper[:-1]) and np.all(upper - lower > 0.98) and np.all(upper <= np.arange(1, 121))
+    np.testing.assert_allclose(data.interval_lower * days, [0.0, 31.0, 61.0, 701.0], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(data.interval_upper * days, [31.0, 61.0, 92.0, 731.0], rtol=0, atol=1e-9)
+    k = np.arange(1, 121)
+    lower, upper = month_interval_ends(k)
+    assert np.all(lower[1:] == upper[:-1]) and np.all(upper - lower > 0.98) and np.all(np.abs(upper - k) <= 1 / days + 1e-12)
 
 
 @pytest.mark.parametrize("months", [[0, 1], [1.5, 2], [np.nan, 1]])

@@ -34,11 +34,11 @@ class Weibull:
 
 
 def test_hazard_ratio_of_one_month_of_returns_has_its_closed_form():
-    # Hand computation: n returns in month 1 and s suspensions at its end b_1 (the day grid: 30 days =
-    # 30 / 30.4375 months) under an exponential base of mean 50 months (d = H0(b_1) = b_1 / 50):
+    # Hand computation: n returns in month 1 and s suspensions at its end b_1 (the day grid: 31 days =
+    # 31 / 30.4375 months) under an exponential base of mean 50 months (d = H0(b_1) = b_1 / 50):
     # l(c) = n log(1 - exp(-c d)) - c s d, maximal where exp(-c d) = s / (n + s), so
     # c_hat = -log(s / (n + s)) / d.
-    end = 30 / (365.25 / 12)
+    end = 31 / (365.25 / 12)
     n, s, d = 30.0, 970.0, end / 50
     test = hazard_ratio_test(Weibull(1.0, 50.0), MonthData.of([1], [n], [end], [s]))
     assert test.hazard_ratio == pytest.approx(-math.log(s / (n + s)) / d, rel=1e-9)

@@ -107,27 +107,28 @@ def test_thin_products_pool_all_products_and_thinner_data_get_no_correction():
 
 
 def test_reported_share_is_the_mean_of_g_over_the_days_of_each_cell():
-    # Hand computation on the day grid (month k holds days floor((k-1) L) + 1 .. floor(k L), L = 365.25/12;
-    # failure date = warranty start + day): G(0) = 0.5, G(1) = 0.75, G(2) = 1.
+    # Hand computation on the day grid (a failure d days after the start, age [d, d + 1) days, is in month
+    # max(1, ceil(d / L)), L = 365.25/12: month 1 holds d = 0..30, month 2 d = 31..60; a row D days past its
+    # start at the as-of date has D + 1 days in service, failures d = 0..D): G(0) = 0.5, G(1) = 0.75, G(2) = 1.
     delay = ReportingDelay("P", PRODUCT, np.array([0.5, 0.75, 1.0]), 10.0, 0.0, 180)
     rows = pd.DataFrame({
         "product": "P", "build_month": dt.date(2024, 11, 1), "sale_month": dt.date(2024, 11, 1),
         "warranty_months": [24, 1, 1],
-        # 40 days before the as-of date: days 39 and 40 (lags 1 and 0) lie in month 2 (days 31..60), which
-        # ends at the observed age 40 days: 10 days, 1 - w = (0.25 + 0.5) / 10.
-        # 31 days before, warranty 1 month (observed to day 30): day 30 has lag 1: 1 - w = 0.25 / 30 in month 1.
-        # 100 days before, warranty 1 month: days 1..30 have lags 70..99 >= 2: nothing.
+        # 40 days before the as-of date (41 days in service): d = 39 and 40 (lags 1 and 0) lie in month 2,
+        # which ends at the observed age 41 days: d = 31..40, 10 days, 1 - w = (0.25 + 0.5) / 10.
+        # 31 days before, warranty 1 month (observed to its end, 31 days): d = 30 has lag 1: 1 - w = 0.25 / 31
+        # in month 1 (d = 0..30). 100 days before, warranty 1 month: d = 0..30 have lags 70..100: nothing.
         "warranty_start_date": [AS_OF - dt.timedelta(days=days) for days in (40, 31, 100)],
-        "observed_age_months": [40 / DAYS_PER_MONTH, 30 / DAYS_PER_MONTH, 30 / DAYS_PER_MONTH],
+        "observed_age_months": [41 / DAYS_PER_MONTH, 31 / DAYS_PER_MONTH, 31 / DAYS_PER_MONTH],
         "suspensions": [100.0, 50.0, 10.0],
     }, index=[7, 8, 9])
     share = reported_share(rows, {"P": delay}, AS_OF)
     assert share["row"].tolist() == [7, 8]
     assert share["months_in_service"].tolist() == [2, 1]
-    assert share["days"].tolist() == [10, 30]
-    np.testing.assert_allclose(share["reported_share"], [1 - 0.75 / 10, 1 - 0.25 / 30])
-    np.testing.assert_allclose(share["interval_lower"], [30 / DAYS_PER_MONTH, 0.0])
-    np.testing.assert_allclose(share["interval_upper"], [40 / DAYS_PER_MONTH, 30 / DAYS_PER_MONTH])
+    assert share["days"].tolist() == [10, 31]
+    np.testing.assert_allclose(share["reported_share"], [1 - 0.75 / 10, 1 - 0.25 / 31])
+    np.testing.assert_allclose(share["interval_lower"], [31 / DAYS_PER_MONTH, 0.0])
+    np.testing.assert_allclose(share["interval_upper"], [41 / DAYS_PER_MONTH, 31 / DAYS_PER_MONTH])
 
 
 def test_an_observed_age_past_the_as_of_date_is_refused():
@@ -147,7 +148,8 @@ def test_an_observed_age_past_the_as_of_date_is_refused():
 def simulate(seed: int, shape: float, scale: float, *, build_months: int = 24, units_per_month: int = 3000,
              delay_mean_days: float = 30.0, warranty: int = 24):
     """Build months 2023-01 .. 2024-12 of `units_per_month` units each, warranty start 0-27 days into the
-    build month, Weibull lives (months), failure on day ceil(life L) of service, delay floor(Exp(mean))
+    build month, Weibull lives (months), failure dated d = floor(life L) days after the start (the day
+    grid: age [d, d + 1) days), observed through the as-of date (D + 1 days in service), delay floor(Exp(mean))
     whole days (G(d) = 1 - exp(-(d + 1) / mean)); a failure within the warranty window is a counted
     return when its claim comes by the as-of date, unreported otherwise. Returns the three frames as
     the SQL outputs hold them, the number of failures not yet reported, and of counted returns."""
@@ -155,19 +157,19 @@ def simulate(seed: int, shape: float, scale: float, *, build_months: int = 24, u
     as_of = np.datetime64(AS_OF, "D")
     build = np.repeat(np.datetime64("2023-01", "M") + np.arange(build_months), units_per_month)
     start = build.astype("datetime64[D]") + rng.integers(0, 28, build.size)
-    day = np.maximum(1, np.ceil(scale * rng.weibull(shape, build.size) * DAYS_PER_MONTH)).astype(np.int64)
+    day = np.floor(scale * rng.weibull(shape, build.size) * DAYS_PER_MONTH).astype(np.int64)
     delay = np.floor(rng.exponential(delay_mean_days, build.size)).astype(np.int64)
     window = np.minimum((as_of - start).astype(np.int64), int(np.floor(warranty * DAYS_PER_MONTH)))
     failed = day <= window
     counted = failed & (start + day + delay <= as_of)
-    month = (48 * day + 1460) // 1461
+    month = np.maximum(1, (48 * day + 1460) // 1461)
     build_month = build.astype("datetime64[D]").astype(object)
     returns = pd.DataFrame({"build_month": build_month[counted], "months_in_service": month[counted]})
     fit_returns = returns.groupby(["build_month", "months_in_service"], as_index=False).size()
     fit_returns = fit_returns.rename(columns={"size": "returns"})
     units = pd.DataFrame({
         "build_month": build_month, "warranty_start_date": start.astype(object),
-        "observed_age_months": window / DAYS_PER_MONTH, "counted": counted,
+        "observed_age_months": (window + 1) / DAYS_PER_MONTH, "counted": counted,
     })
     survival = units.groupby("build_month")["counted"].mean()  # survivors shared by units, as the SQL does
     fit_suspensions = units.groupby(

@@ -176,8 +176,9 @@ def test_suspensions_share_group_survivors_and_observed_age_is_capped(shaped):
     # group A/2024-01/sale 2024-02/12 months: 150 units, 2 returns -> 148 survivors shared 100:50
     assert group["suspensions"].sum() == pytest.approx(148.0)
     assert sorted(group["suspensions"].round(6)) == pytest.approx([148 / 3, 296 / 3])
-    # 2024-02-01 -> 2024-12-31 is 334 days = 10.97 months, below the 12-month warranty
-    assert group["observed_age_months"].max() == pytest.approx(334 / (365.25 / 12))
+    # 2024-02-01 -> 2024-12-31 is 334 days after the start, 335 days in service (the start date is day 1)
+    # = 11.01 months, below the 12-month warranty's 366 days
+    assert group["observed_age_months"].max() == pytest.approx(335 / (365.25 / 12))
 
 
 def test_age_in_service_matrix_units_at_risk(shaped):
@@ -190,9 +191,9 @@ def test_age_in_service_matrix_units_at_risk(shaped):
     assert a1.loc[3, "units_at_risk"] == pytest.approx(149)
     assert a1.loc[5, "units_at_risk"] == pytest.approx(148)
     assert a1.loc[2, "return_rate"] == pytest.approx(1 / 150)
-    # month 11 holds the days 305..334 (the day grid: floor(10 x 30.4375) = 304, floor(11 x 30.4375) = 334).
-    # The row observed 334 days ends exactly with month 11 (a whole-month survivor, not withdrawn); the
-    # 50-unit row observed 330 days (10.84 months) ends inside it: its 148/3 survivors are withdrawn there.
+    # month 11 holds the ages (305, 335] days (the day grid: floor(10 x 30.4375) + 1 = 305, floor(11 x
+    # 30.4375) + 1 = 335). The row 335 days in service ends exactly with month 11 (a whole-month survivor,
+    # not withdrawn); the 50-unit row 331 days in service ends inside it: its 148/3 survivors are withdrawn.
     assert a1.loc[11, "units_withdrawn"] == pytest.approx(148 / 3)
     assert a1.index.max() == 11
 

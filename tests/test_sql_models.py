@@ -352,12 +352,16 @@ def test_units_aged_to_as_of(con):
         con, "intermediate/units_aged_to_as_of", "source_row_number, age_months, observed_age_months", parameters
     )
     warranty = {1: 24, 9: 6}  # 12 months for the others
-    # observed ages stop at the end of the warranty's last month on the day grid: floor(W x 30.4375) days
-    # (182 days for 6 months, 365 for 12, 730 for 24; hand arithmetic)
-    cover_days = {6: 182, 12: 365, 24: 730}
+    # the start date is day 1 of service: D days after it, a unit has D + 1 days in service (a unit sold
+    # on the as-of date, 1 day); one still in the channel (row 6), none. Observed ages stop at the end of
+    # the warranty's last month on the day grid: floor(W x 30.4375) + 1 days (183 days for 6 months, 366
+    # for 12, 731 for 24; hand arithmetic)
+    cover_days = {6: 183, 12: 366, 24: 731}
+    in_service = {number: 0 if number == 6 else days[number] + 1 for number in days}
     assert ages == [
         pytest.approx(
-            (number, days[number] / MONTH, min(days[number], cover_days[warranty.get(number, 12)]) / MONTH), rel=1e-12
+            (number, in_service[number] / MONTH,
+             min(in_service[number], cover_days[warranty.get(number, 12)]) / MONTH), rel=1e-12
         )
         for number in sorted(days)
     ]
@@ -379,8 +383,8 @@ def test_units_aged_to_as_of_start_at_the_ship_date_when_no_sale_date_is_known(c
         {"as_of_date": AS_OF, "default_warranty_months": 12},
     )
     assert got == [
-        pytest.approx((1, True, d("2024-11-01"), False, 60 / MONTH)),  # lag 0 days
-        pytest.approx((2, True, d("2024-12-01"), False, 30 / MONTH)),
+        pytest.approx((1, True, d("2024-11-01"), False, 61 / MONTH)),  # lag 0 days; 60 days after: 61 in service
+        pytest.approx((2, True, d("2024-12-01"), False, 31 / MONTH)),
     ]
 
 
@@ -598,13 +602,16 @@ def test_cohort_summary(con):
 
 
 def test_age_in_service(con):
+    # ages on the day grid (macros/ages.sql): months 1-3 end at 31, 61 and 92 days of age; a 3-month
+    # warranty's cover ends at 92 days (END_3), where the observed ages of units past it stop
+    END_3 = 92 / MONTH
     table(con, "suspensions_shared_by_start_date", {
         **{column: kind for column, kind in SALE_MONTH_GROUPS.items() if not column.startswith("units")},
         "warranty_start_date": "date", "observed_age_months": "double", "units": "bigint", "suspensions": "double",
     }, [
         # A, sale month 02, 3-month warranty: 100 units, 15 returns, 85 survivors shared 60 : 40
         {**GROUP, "product": "A", "warranty_months": 3, "warranty_start_date": d("2024-02-01"),
-         "observed_age_months": 3.0, "units": 60, "suspensions": 51},  # saw the whole warranty: never withdrawn
+         "observed_age_months": END_3, "units": 60, "suspensions": 51},  # saw the whole warranty: never withdrawn
         {**GROUP, "product": "A", "warranty_months": 3, "warranty_start_date": d("2024-02-20"),
          "observed_age_months": 1.5, "units": 40, "suspensions": 34},  # into month 2 in part: withdrawn there
         # A, sale month 03, 4-month warranty: 20 units, 6 returns (one in month 4, on the claim's own clock)
@@ -615,9 +622,9 @@ def test_age_in_service(con):
          "warranty_start_date": d("2025-01-10"), "observed_age_months": 0.0, "units": 30, "suspensions": 30},
         # B: a group with more returns than units gives no negative units at risk
         {**GROUP, "product": "B", "warranty_months": 3, "warranty_start_date": d("2024-02-01"),
-         "observed_age_months": 3.0, "units": 2, "suspensions": 0},
+         "observed_age_months": END_3, "units": 2, "suspensions": 0},
         {**GROUP, "product": "B", "sale_month": d("2024-03"), "warranty_months": 3,
-         "warranty_start_date": d("2024-03-01"), "observed_age_months": 3.0, "units": 4, "suspensions": 4},
+         "warranty_start_date": d("2024-03-01"), "observed_age_months": END_3, "units": 4, "suspensions": 4},
     ])
     table(con, "returns_counted_by_group_and_month", {
         **{column: kind for column, kind in SALE_MONTH_GROUPS.items() if not column.startswith("units")},
@@ -721,6 +728,7 @@ def test_claim_cost_by_product(con):
         {**RETURN, "product": "A", "claim_date": d("2024-06-01"), "cost": 1000, "is_in_coverage": False,
          "is_return": False},  # not a return
         {**RETURN, "product": "B", "claim_date": d("2023-06-01"), "cost": 20},  # no return in the window
+        {**REPEAT, "product": "B", "claim_date": d("2023-07-01"), "cost": 40},  # a repeat claim is priced too
         {**RETURN, "product": "C", "claim_date": d("2024-06-01"), "cost": 10, "status": "rejected",
          "is_counted_status": False, "is_return": False},  # no return at all: no row
     ])
@@ -729,7 +737,8 @@ def test_claim_cost_by_product(con):
         "product, window_returns, window_mean_cost, all_time_returns, all_time_mean_cost",
         {"as_of_date": AS_OF, "cost_window_months": 12},
     )
-    assert got == [("A", 2, 75.0, 3, 60.0), ("B", 0, None, 1, 20.0)]
+    # hand computation: A (50 + 100) / 2 in the window, (50 + 100 + 30) / 3 all time; B (20 + 40) / 2
+    assert got == [("A", 2, 75.0, 3, 60.0), ("B", 0, None, 2, 30.0)]
 
 
 def test_returns_by_build_month_and_code(con):
@@ -754,17 +763,42 @@ def test_returns_by_build_month_and_code(con):
     ]
 
 
+def test_returns_by_failure_month(con):
+    table(con, "claims_assigned_to_sale_month_groups", {
+        "product": "varchar", "build_month": "date", "failure_date": "date", "claim_date": "date",
+        "is_return": "boolean",
+    }, [
+        {"product": "A", "build_month": d("2024-01"), "failure_date": d("2024-03-31"), "claim_date": d("2024-04-02"),
+         "is_return": True},  # failed in March, claimed in April
+        {"product": "A", "build_month": d("2024-01"), "failure_date": d("2024-03-01"), "claim_date": d("2024-04-30"),
+         "is_return": True},  # the same months
+        {"product": "A", "build_month": d("2024-01"), "failure_date": d("2024-03-15"), "claim_date": d("2024-03-20"),
+         "is_return": True},  # claimed in March
+        {"product": "A", "build_month": d("2024-01"), "failure_date": d("2024-03-15"), "claim_date": d("2024-03-20"),
+         "is_return": False},  # not a return
+        {"product": "B", "build_month": d("2024-02"), "failure_date": d("2024-02-29"), "claim_date": d("2024-02-29"),
+         "is_return": True},
+    ])
+    got = run(con, "outputs/returns_by_failure_month", "product, build_month, failure_month, claim_month, returns")
+    assert got == [
+        ("A", d("2024-01"), d("2024-03"), d("2024-03"), 1),
+        ("A", d("2024-01"), d("2024-03"), d("2024-04"), 2),
+        ("B", d("2024-02"), d("2024-02"), d("2024-02"), 1),
+    ]
+
+
 SAFETY_CLAIMS = {
     "source_row_number": "bigint", "claim_id": "varchar", "product": "varchar", "build_month": "date",
     "failure_date": "date", "claim_date": "date", "months_in_service": "integer", "failure_code": "varchar",
-    "status": "varchar", "is_return": "boolean", "cost": "decimal(18, 2)", "is_quarantined": "boolean",
+    "status": "varchar", "is_return": "boolean", "is_repeat_claim": "boolean", "cost": "decimal(18, 2)",
+    "is_quarantined": "boolean",
 }
 SAFETY_TERMS = ["overheat", "smok", "fire", "burn", "shock"]  # the default of alerts.safety_terms
 
 
 def test_safety_term_claims(con):
     claim = {"product": "A", "build_month": d("2024-01"), "status": "approved", "is_return": True,
-             "is_quarantined": False}
+             "is_repeat_claim": False, "is_quarantined": False}
     codes = {
         1: "OVERHEATING", 2: "overheated", 3: "BURNT", 4: "BURN_MARK", 5: "SMOKE_SMELL", 6: "ELECTRIC_SHOCK",
         7: "FIRMWARE_BUG",  # 'fire' is not where a word begins: FIRM...
@@ -781,24 +815,27 @@ def test_safety_term_claims(con):
         {**claim, "source_row_number": 12, "failure_code": "FIRE", "is_quarantined": True},  # failed a check
         {**claim, "source_row_number": 13, "failure_code": "FIRE_DAMAGE", "status": "rejected",
          "is_return": False},  # listed whatever its status
+        {**claim, "source_row_number": 17, "failure_code": "SMOKE", "is_return": False,
+         "is_repeat_claim": True},  # a unit's later claim: listed, marked as a repeat claim
     ])
-    columns = "source_row_number, failure_code, status, is_return, matched_terms"
+    columns = "source_row_number, failure_code, status, is_return, is_repeat_claim, matched_terms"
     got = run(con, "outputs/safety_term_claims", columns, {"safety_terms": SAFETY_TERMS})
     # expected rows: hand computation from the rule in the model's header
     assert got == [
-        (1, "OVERHEATING", "approved", True, ["overheat"]),
-        (2, "overheated", "approved", True, ["overheat"]),
-        (3, "BURNT", "approved", True, ["burn"]),
-        (4, "BURN_MARK", "approved", True, ["burn"]),
-        (5, "SMOKE_SMELL", "approved", True, ["smok"]),
-        (6, "ELECTRIC_SHOCK", "approved", True, ["shock"]),
-        (9, "Over-Heat", "approved", True, ["overheat"]),
-        (10, "SHOCK_THEN_FIRE", "approved", True, ["fire", "shock"]),
-        (13, "FIRE_DAMAGE", "rejected", False, ["fire"]),
-        (15, "2FIRE", "approved", True, ["fire"]),
+        (1, "OVERHEATING", "approved", True, False, ["overheat"]),
+        (2, "overheated", "approved", True, False, ["overheat"]),
+        (3, "BURNT", "approved", True, False, ["burn"]),
+        (4, "BURN_MARK", "approved", True, False, ["burn"]),
+        (5, "SMOKE_SMELL", "approved", True, False, ["smok"]),
+        (6, "ELECTRIC_SHOCK", "approved", True, False, ["shock"]),
+        (9, "Over-Heat", "approved", True, False, ["overheat"]),
+        (10, "SHOCK_THEN_FIRE", "approved", True, False, ["fire", "shock"]),
+        (13, "FIRE_DAMAGE", "rejected", False, False, ["fire"]),
+        (15, "2FIRE", "approved", True, False, ["fire"]),
+        (17, "SMOKE", "approved", False, True, ["smok"]),
     ]
     # terms in any case are matched in lower case; an empty list lists nothing (hand computation)
     assert run(con, "outputs/safety_term_claims", "source_row_number, matched_terms", {"safety_terms": ["Smok"]}) == [
-        (5, ["smok"]),
+        (5, ["smok"]), (17, ["smok"]),
     ]
     assert run(con, "outputs/safety_term_claims", "source_row_number", {"safety_terms": []}) == []

@@ -115,6 +115,23 @@ def _safety_terms(value: Any) -> tuple[str, ...]:
     return tuple(dict.fromkeys(t.lower() for t in value))
 
 
+def _boolean(value: Any) -> bool:
+    if not isinstance(value, bool):
+        raise ValueError("must be true or false")
+    return value
+
+
+def _prediction_levels(value: Any) -> tuple[float, float, float]:
+    """Three probabilities lower < median < upper, the quantiles of the prediction intervals."""
+    if (
+        not isinstance(value, list) or len(value) != 3
+        or any(isinstance(v, bool) or not isinstance(v, (int, float)) or not 0.0 < v < 1.0 for v in value)
+        or not value[0] < value[1] < value[2]
+    ):
+        raise ValueError("must be three probabilities in (0, 1), increasing: [lower, middle, upper], e.g. [0.05, 0.5, 0.95]")
+    return (float(value[0]), float(value[1]), float(value[2]))
+
+
 def _by_product(rule: Rule) -> Rule:
     """A table of product -> value, each value held to `rule`; kept as sorted (product, value) pairs."""
     def table_rule(value: Any) -> tuple[tuple[str, Any], ...]:
@@ -197,6 +214,24 @@ class LifeModelSettings:
 
 
 @dataclass(frozen=True)
+class ForecastSettings:
+    """[forecast]: what the forecast adds to the life model's expected returns, and its intervals."""
+
+    # claims of failures before the as-of date not yet filed: estimate the failure-to-claim delay, fit the
+    # life on the likelihood that allows for it and forecast those failures (expected_unreported_returns)
+    correct_reporting_delay: bool = _key(True, _boolean)
+    max_reporting_delay_days: int = _key(180, _integer(1, 3650))  # longer delays are left out of the estimate
+    min_delay_claims: int = _key(50, _integer(1))  # fewer claims: the product uses the pooled delays
+    # repeat claims of repaired serialised units (Nelson's mean cumulative function by months since the
+    # first claim) forecast beside the first failures (expected_repeat_claims)
+    forecast_repeat_claims: bool = _key(True, _boolean)
+    # prediction intervals: quantiles of future claims and reserve from a seeded predictive simulation
+    prediction_levels: tuple[float, float, float] = _key((0.05, 0.5, 0.95), _prediction_levels)
+    prediction_draws: int = _key(2000, _integer(200, 100_000))
+    prediction_seed: int = _key(20261203, _integer(0))
+
+
+@dataclass(frozen=True)
 class AlertSettings:
     """[alerts]: when a build month's returns are flagged against its product's baseline life model; which
     failure codes are listed apart as mentioning safety-relevant terms."""
@@ -232,6 +267,7 @@ class RunConfig:
     reserve: ReserveSettings = field(default_factory=ReserveSettings)
     life_model: LifeModelSettings = field(default_factory=LifeModelSettings)
     alerts: AlertSettings = field(default_factory=AlertSettings)
+    forecast: ForecastSettings = field(default_factory=ForecastSettings)
 
 
 def parse_date(text: str, what: str) -> dt.date:
@@ -319,6 +355,7 @@ SECTIONS: dict[str, type] = {
     "reserve": ReserveSettings,
     "life_model": LifeModelSettings,
     "alerts": AlertSettings,
+    "forecast": ForecastSettings,
 }
 
 

@@ -1,8 +1,9 @@
 """The nightly run, as a straight line of typed stage results:
 
-extracts -> shaped (DuckDB) -> screening fits -> build-month alerts -> lives (fits without the flagged
-build months) -> forecast (flagged months with their own life) -> reserve -> diagnostics and charts -> report,
-manifest -> publish (atomic)
+extracts -> shaped (DuckDB) -> reporting delay (fit frames completed with the failures not yet reported)
+-> screening fits -> build-month alerts (on the reported returns) -> lives (fits without the flagged build
+months) -> forecast (flagged months with their own life; not-yet-reported and repeat claims) -> reserve
+-> diagnostics and charts -> report, manifest -> publish (atomic)
 
 Every decision sits in the stage that owns it (which model forecasts: `stages.forecasting`; pricing:
 `stages.reserve`; what to warn about: each stage's `warnings`); this module only wires them together,
@@ -27,6 +28,7 @@ from warranty_forecast.stages.build_month_alerts import alert_build_months
 from warranty_forecast.stages.forecasting import forecast_returns
 from warranty_forecast.stages.life_models import fit_lives, keep_screening_where_refit_failed
 from warranty_forecast.stages.life_table import life_table
+from warranty_forecast.stages.reporting_delay import reporting_delay_stage
 from warranty_forecast.stages.reserve import book_reserve
 from warranty_forecast.stages.shaping import shape_extracts
 
@@ -72,7 +74,13 @@ def run_nightly(config: RunConfig) -> RunResult:
 
     shaped = clock.run("shaping", lambda: shape_extracts(config), lambda s: s.summary)
     check_products_in_data(config, shaped.known_products)
-    screening = clock.run("fit", lambda: fit_lives(shaped, config.life_model), lambda f: f.summary)
+    # the life fits and the forecast see the fit frames completed with the failures not yet reported; the
+    # alerts judge the returns as reported (an imputed fraction of a return is no evidence against a month)
+    delays = clock.run(
+        "delays", lambda: reporting_delay_stage(shaped, config.forecast, config.life_model), lambda d: d.summary
+    )
+    for_life = delays.shaped
+    screening = clock.run("fit", lambda: fit_lives(for_life, config.life_model), lambda f: f.summary)
     alerts = clock.run(
         "alerts",
         lambda: alert_build_months(
@@ -86,7 +94,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         clock.run(
             "refit",
             lambda: keep_screening_where_refit_failed(
-                fit_lives(shaped, config.life_model, left_out=alerts.flagged_by_product), screening
+                fit_lives(for_life, config.life_model, left_out=alerts.flagged_by_product), screening
             ),
             lambda f: f"{f.summary}, without the flagged build months",
         )
@@ -94,7 +102,11 @@ def run_nightly(config: RunConfig) -> RunResult:
     )
     forecast = clock.run(
         "forecast",
-        lambda: forecast_returns(shaped, lives, config.life_model, flagged=alerts.flagged_by_product),
+        lambda: forecast_returns(
+            for_life, lives, config.life_model, flagged=alerts.flagged_by_product,
+            unreported_by_claim_month=delays.unreported_by_claim_month,
+            repeat_claims=config.forecast.forecast_repeat_claims,
+        ),
         lambda f: f.summary,
     )
     reserve = clock.run(
@@ -133,7 +145,8 @@ def run_nightly(config: RunConfig) -> RunResult:
     )
 
     warnings = (
-        *shaped.warnings, *lives.warnings_given(alerts.concentrated_codes), *alerts.warnings, *forecast.warnings,
+        *shaped.warnings, *delays.warnings, *lives.warnings_given(alerts.concentrated_codes), *alerts.warnings,
+        *forecast.warnings,
         *reserve.warnings,
     )
     for text in warnings:
@@ -149,6 +162,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "build_month_causes": alerts.causes,
         "flagged_build_month_lives": forecast.flagged_month_lives,
         "safety_term_claims": shaped.safety_term_claims,
+        "reporting_delay": delays.table,
         "forecast": reserve.forecast,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,

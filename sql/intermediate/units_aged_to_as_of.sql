@@ -14,9 +14,11 @@
 -- (G(l) >= (1 + G(D)) / 2, after the as-of date; NULL when sold_share is 1). warranty_start_date is the
 -- sold part's clock, or the channel clock when sold_share is 0 (then is_in_channel: age 0).
 -- units_sold_or_in_channel splits the rows into the two parts.
--- Ages are whole days / (365.25/12) (macros/ages.sql). observed_age_months stops at the end of the
--- warranty's last month in service, month_end_age(warranty_months) (the day grid: 730 days, 23.98 months,
--- for 24 months), so a unit past its warranty is suspended where the counted returns stop.
+-- Ages on the day grid (macros/ages.sql): the start date is day 1 of service, so a unit D days past its
+-- start at the as-of date has been in service D + 1 days (age_through_day; a unit sold on the as-of date,
+-- one day). observed_age_months stops at the end of the warranty's last month in service,
+-- month_end_age(warranty_months) (731 days, 24.02 months, for 24 months: the day counts 0 .. 730 are
+-- months 1 .. 24), so a unit past its warranty is suspended where the counted returns stop.
 with valid_shipments as (
     select
         source_row_number,
@@ -149,8 +151,12 @@ select
     units,
     serial,
     warranty_start_date > $as_of_date as is_in_channel,
-    age_of_days(greatest(date_diff('day', warranty_start_date, $as_of_date), 0)) as age_months,
-    age_of_days(
-        least(greatest(date_diff('day', warranty_start_date, $as_of_date), 0), floor(warranty_months * (365.25 / 12)))
-    ) as observed_age_months
+    case
+        when warranty_start_date > $as_of_date then 0.0
+        else age_through_day(date_diff('day', warranty_start_date, $as_of_date))
+    end as age_months,
+    case
+        when warranty_start_date > $as_of_date then 0.0
+        else least(age_through_day(date_diff('day', warranty_start_date, $as_of_date)), month_end_age(warranty_months))
+    end as observed_age_months
 from clocked_units

@@ -5,7 +5,8 @@
 -- Reads: claims_assigned_to_sale_month_groups.
 -- Sort: product, claim_date, claim_id, source_row_number
 -- Claims of every status (approved, rejected, no_fault_found) and in or out of coverage are listed, with
--- status and is_return shown: a rejected claim or one past its warranty may still describe a hazard.
+-- status, is_return and is_repeat_claim shown: a rejected claim or one past its warranty may still
+-- describe a hazard.
 -- Claims that failed a check are not here (they are in quarantine, with the row as read), nor are claims
 -- filed after the as-of date. Only failure_code is searched: the claims contract has no free-text column.
 -- Matching, case-insensitive: the code's words are its runs of letters (any other character separates
@@ -24,6 +25,7 @@ with valid_claims as (
         failure_code,
         status,
         is_return,
+        is_repeat_claim,
         cost
     from claims_assigned_to_sale_month_groups
     where not is_quarantined
@@ -69,6 +71,7 @@ select
     failure_code,
     status,
     is_return,
+    is_repeat_claim,
     cost,
     matched_terms,
     source_row_number

@@ -24,20 +24,22 @@ DAYS_PER_MONTH = 365.25 / 12
 def month_interval_ends(months_in_service: npt.ArrayLike) -> tuple[FloatArray, FloatArray]:
     """The age interval (lower, upper], in months, of a return counted in month in service k.
 
-    Ages come from whole-day dates: a failure dated d days after the warranty start is taken to have
-    failed during its d-th day of service, age in (d - 1, d] days (d = 0, a failure on the start day,
-    counts as day 1). Month in service k = max(1, ceil(d / DAYS_PER_MONTH)) holds the days
-    floor((k - 1) L) + 1 .. floor(k L), L = DAYS_PER_MONTH, so its ages are
+    Ages come from whole-day dates. The warranty start date is day 1 of service: a failure dated d = 0, 1,
+    2, ... days after it happened during day d + 1, at an age in [d, d + 1) days. Month in service
+    k = max(1, ceil(d / L)), L = DAYS_PER_MONTH, holds the day counts floor((k - 1) L) + 1 .. floor(k L)
+    (and d = 0 in month 1), so its ages are
 
-        (floor((k - 1) L) / L, floor(k L) / L]   months,
+        (0, (floor(L) + 1) / L]  for k = 1,   ((floor((k - 1) L) + 1) / L, (floor(k L) + 1) / L]  for k >= 2,
 
-    not (k - 1, k]: month 1 is (0, 30/L], month 2 (30/L, 60/L], month 3 (60/L, 91/L], ... The
-    difference is under a day but systematic; with tens of thousands of returns it is enough to make a
-    goodness-of-fit test reject a true model.
+    in months, not (k - 1, k]: month 1 is days 0-30 (31 days of age), month 2 days 31-60, month 3 days
+    61-91, ... (whether an end is open or closed does not matter for continuous lives). The difference
+    from (k - 1, k] is under a day but systematic; with tens of thousands of returns it is enough to make
+    a goodness-of-fit test reject a true model. A unit observed through the as-of date, D days after its
+    start, has been in service D + 1 days (macros/ages.sql: age_through_day).
     """
     k = np.asarray(months_in_service, dtype=float)
-    lower = np.floor((k - 1.0) * DAYS_PER_MONTH) / DAYS_PER_MONTH
-    upper = np.floor(k * DAYS_PER_MONTH) / DAYS_PER_MONTH
+    lower = np.where(k <= 1.0, 0.0, (np.floor((k - 1.0) * DAYS_PER_MONTH) + 1.0) / DAYS_PER_MONTH)
+    upper = (np.floor(k * DAYS_PER_MONTH) + 1.0) / DAYS_PER_MONTH
     return lower, upper
 
 

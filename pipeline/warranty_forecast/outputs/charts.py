@@ -85,9 +85,9 @@ def _row_months(fit_suspensions: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, 
     min(observed_age, b_k), in months ((b_{k-1}, b_k] = month_interval_ends(k), the day grid)."""
     ages = np.nan_to_num(fit_suspensions["observed_age_months"].to_numpy(dtype=float), nan=0.0)
     ages = np.clip(ages, 0.0, None)
-    # the month holding age a > 0: the first k with b_k >= a (b_k <= k, so k >= ceil(a), and one more at most)
+    # the month holding age a > 0: the first k with b_k >= a (k <= b_k <= k + 1/L, so ceil(a) or one less)
     months = np.ceil(ages).astype(np.int64)
-    months += (months >= 1) & (month_interval_ends(months)[1] < ages)
+    months -= (months >= 2) & (month_interval_ends(np.maximum(months - 1, 1))[1] >= ages)
     row = np.repeat(np.arange(len(ages)), months)
     first = np.repeat(np.cumsum(months) - months, months)
     k = np.arange(len(row)) - first + 1

@@ -374,7 +374,13 @@ def _safety_term_lines(claims: pd.DataFrame | None, terms: Any) -> list[str]:
             "claim_id": shown["claim_id"],
             "failure_code": shown["failure_code"],
             "status": shown["status"],
-            "counted_return": shown["is_return"].map(lambda v: "n/a" if pd.isna(v) else "yes" if v else "no"),
+            "counted": [
+                "n/a" if pd.isna(first) else "repeat claim" if (repeat is True or repeat == 1) else "yes" if first else "no"
+                for first, repeat in zip(
+                    shown["is_return"],
+                    shown["is_repeat_claim"] if "is_repeat_claim" in shown else [False] * len(shown),
+                )
+            ],
             "matched_terms": shown["matched_terms"].map(lambda terms: ", ".join(str(t) for t in terms)),
         }
     )

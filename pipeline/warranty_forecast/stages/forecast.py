@@ -92,9 +92,9 @@ def _future_intervals(rows: pd.DataFrame) -> _FutureIntervals:
     survivors = rows["suspensions"].to_numpy(dtype=float)
     cover_end = month_interval_ends(warranty)[1]
     open_rows = np.flatnonzero((age < cover_end) & (survivors > 0))
-    # the month holding age a: the first k with b_k > a (b_k <= k, so k >= floor(a) + 1, and one more at most)
+    # the month holding age a: the first k with b_k > a (k <= b_k <= k + 1/L, so floor(a) + 1 or one less)
     first_month = np.floor(age[open_rows]).astype(np.int64) + 1
-    first_month += month_interval_ends(first_month)[1] <= age[open_rows]
+    first_month -= (first_month >= 2) & (month_interval_ends(np.maximum(first_month - 1, 1))[1] > age[open_rows])
     months_left = warranty[open_rows] - first_month + 1
     row_index = np.repeat(open_rows, months_left)
     # month in service k for each (row, future month): first_month, first_month + 1, ..., W

@@ -1,5 +1,7 @@
 """The forecast stage: which life model each product's forecast uses, the expected returns per build
-month and calendar month until warranty expiry, and each failure mode's share of them.
+month and calendar month until warranty expiry, each failure mode's share of them, and the claims on top
+of the first failures: failures already incurred but not yet reported (from the reporting-delay stage)
+and repeat claims of repaired units (stages.repeat_claims).
 
 The arithmetic is in `forecast` (pure functions of a life distribution); this module decides.
 """
@@ -24,10 +26,22 @@ from warranty_forecast.stages.forecast import (
 )
 from warranty_forecast.stages.life_models import FittedLives
 from warranty_forecast.stages.month_life import DEFECTIVE_SHARE, month_data_by_build_month, month_life_model
+from warranty_forecast.stages.repeat_claims import RepeatClaimsForecast, forecast_repeat_claims
 
 if TYPE_CHECKING:
     from warranty_forecast.stages.shaping import ShapedData
 
+
+BY_MONTH_COLUMNS = (
+    "product",
+    "build_month",
+    "month",
+    "expected_returns",
+    "expected_returns_product_model",
+    "expected_unreported_returns",
+    "expected_repeat_claims",
+    "expected_claims",
+)
 
 FLAGGED_MONTH_LIFE_COLUMNS = (
     "product",
@@ -46,11 +60,16 @@ FLAGGED_MONTH_LIFE_COLUMNS = (
 
 @dataclass(frozen=True)
 class ReturnsForecast:
-    """The stage's result. `by_month`: expected returns per product x build month x calendar month, with
-    `expected_returns_product_model`, what the product's model alone expects (different only in flagged
-    build months); `by_mode`: the life_model_by_mode table with each mode's share; `status`: a sentence per
-    product (the model used, or why there is no forecast); `flagged_month_lives`: the life model each
-    flagged build month's forecast uses (FLAGGED_MONTH_LIFE_COLUMNS)."""
+    """The stage's result. `by_month`: per product x build month x calendar month, BY_MONTH_COLUMNS:
+    expected_returns (the life model's first failures still to come), expected_returns_product_model
+    (what the product's model alone expects: different only in flagged build months),
+    expected_unreported_returns (failures before the as-of date whose claims are expected in that month),
+    expected_repeat_claims (later claims of repaired units) and expected_claims, their sum;
+    `by_mode`: the life_model_by_mode table with each mode's share; `status`: a sentence per product (the
+    model used, or why there is no forecast); `flagged_month_lives`: the life model each flagged build
+    month's forecast uses (FLAGGED_MONTH_LIFE_COLUMNS); `detail`: the first failures per suspension row x
+    month in service (forecast.FORECAST_DETAIL_COLUMNS); `month_models`: each flagged month's own life;
+    `repeats`: the repeat-claims forecast (None when turned off)."""
 
     models: Mapping[str, LifeDistribution]
     by_month: pd.DataFrame
@@ -60,11 +79,21 @@ class ReturnsForecast:
     flagged_month_lives: pd.DataFrame = field(
         default_factory=lambda: pd.DataFrame(columns=list(FLAGGED_MONTH_LIFE_COLUMNS))
     )
+    detail: pd.DataFrame | None = None
+    month_models: Mapping[tuple[str, object], LifeDistribution] = field(default_factory=dict)
+    repeats: RepeatClaimsForecast | None = None
 
     @property
     def summary(self) -> str:
         """One line for the run log."""
-        return f"{len(self.by_month)} rows, {self.by_month['expected_returns'].sum():,.1f} returns"
+        by_month = self.by_month
+        text = f"{len(by_month)} rows, {by_month['expected_returns'].sum():,.1f} returns"
+        if "expected_claims" in by_month:
+            text += (
+                f" + {by_month['expected_unreported_returns'].sum():,.1f} not yet reported"
+                f" + {by_month['expected_repeat_claims'].sum():,.1f} repeat = {by_month['expected_claims'].sum():,.1f} claims"
+            )
+        return text
 
 
 def forecast_returns(
@@ -72,10 +101,19 @@ def forecast_returns(
     lives: FittedLives,
     settings: LifeModelSettings,
     flagged: Mapping[str, Collection[object]] | None = None,
+    *,
+    unreported_by_claim_month: pd.DataFrame | None = None,
+    repeat_claims: bool = True,
 ) -> ReturnsForecast:
     """Forecast every product that has a usable life model, with the model `settings.forecast_model` asks
     for; each build month in `flagged` (product -> build months) with its own life on top of that model
-    (`month_life.month_life_model`: own scale or a defective share, by AIC)."""
+    (`month_life.month_life_model`: own scale or a defective share, by AIC).
+
+    `shaped.fit_suspensions` are the units still at risk (with the reporting-delay correction, the
+    completed frames: unreported failures already taken off). `unreported_by_claim_month` (product,
+    build_month, month, expected_unreported) adds the failures incurred but not yet reported, in the
+    month their claims are expected; `repeat_claims` adds the repeat claims of repaired units
+    (shaped.repeat_claims_by_age, shaped.repaired_units_under_warranty). Both only for forecast products."""
     complete_modes = complete_mode_models(lives.modes)
     models, names, notes = choose_forecast_models(lives.products, complete_modes, settings.forecast_model)
     by_mode = life_model_by_mode_table(
@@ -88,13 +126,24 @@ def forecast_returns(
     month_models, month_rows, month_notes = flagged_month_models(
         shaped.fit_returns, shaped.fit_suspensions, models, flagged or {}, settings.confidence_level
     )
-    by_month = forecast_by_month(expected_future_returns(shaped.fit_suspensions, models, month_models))
-    product_model = forecast_by_month(expected_future_returns(shaped.fit_suspensions, models))
+    detail = expected_future_returns(shaped.fit_suspensions, models, month_models)
+    by_month = forecast_by_month(detail)
+    product_model = (
+        forecast_by_month(expected_future_returns(shaped.fit_suspensions, models)) if month_models else
+        by_month.copy()
+    )
     by_month = by_month.merge(
         product_model.rename(columns={"expected_returns": "expected_returns_product_model"}),
         on=["product", "build_month", "month"], how="outer",
     ).fillna({"expected_returns": 0.0, "expected_returns_product_model": 0.0})
-    by_month = by_month.sort_values(["product", "build_month", "month"], ignore_index=True)
+    repeats = None
+    if repeat_claims:
+        repeats = forecast_repeat_claims(
+            shaped.repeat_claims_by_age, shaped.repaired_units_under_warranty, detail, shaped.as_of_date
+        )
+    by_month = _with_claims_beyond_first_failures(
+        by_month, set(models), unreported_by_claim_month, repeats.by_month if repeats is not None else None
+    )
     lives_table = _flagged_month_table(month_rows, by_month)
     return ReturnsForecast(
         models=models,
@@ -103,7 +152,42 @@ def forecast_returns(
         status=status,
         warnings=(*notes, *month_notes, *_flagged_month_warnings(lives_table)),
         flagged_month_lives=lives_table,
+        detail=detail,
+        month_models=month_models,
+        repeats=repeats,
     )
+
+
+def _with_claims_beyond_first_failures(
+    by_month: pd.DataFrame,
+    forecast_products: set[str],
+    unreported: pd.DataFrame | None,
+    repeats: pd.DataFrame | None,
+) -> pd.DataFrame:
+    """by_month with expected_unreported_returns and expected_repeat_claims (0 where none) for the products
+    that have a forecast, and expected_claims = first failures + unreported + repeat (BY_MONTH_COLUMNS)."""
+    keys = ["product", "build_month", "month"]
+    table = by_month
+    for frame, source, column in (
+        (unreported, "expected_unreported", "expected_unreported_returns"),
+        (repeats, "expected_repeat_claims", "expected_repeat_claims"),
+    ):
+        if frame is None or not len(frame):
+            table = table.assign(**{column: 0.0})
+            continue
+        part = frame.loc[frame["product"].isin(forecast_products), [*keys, source]].rename(columns={source: column})
+        part = part.assign(
+            month=pd.to_datetime(part["month"]).dt.date, build_month=pd.to_datetime(part["build_month"]).dt.date
+        ).groupby(keys, as_index=False)[column].sum()
+        table = table.assign(
+            month=pd.to_datetime(table["month"]).dt.date, build_month=pd.to_datetime(table["build_month"]).dt.date
+        ).merge(part, on=keys, how="outer")
+    fill = {c: 0.0 for c in BY_MONTH_COLUMNS if c not in keys}
+    table = table.fillna(fill)
+    table["expected_claims"] = (
+        table["expected_returns"] + table["expected_unreported_returns"] + table["expected_repeat_claims"]
+    )
+    return table.loc[:, list(BY_MONTH_COLUMNS)].sort_values(keys, ignore_index=True)
 
 
 def flagged_month_models(

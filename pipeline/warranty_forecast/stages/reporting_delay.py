@@ -32,9 +32,11 @@ This module
    interval-censored returns and taken off the row's suspensions; repeated until the parameters move
    less than a tolerance. The log-likelihood above is computed after every M-step (it never falls).
 
-The cells are on the exact day grid of `lifecore.data.month_interval_ends`: day of service j (failure
-date = warranty start + j) lies in month k = ceil(j / (365.25/12)); the month holding the as-of date
-(or the warranty end) ends at the row's observed age a, as its suspensions do.
+The cells are on the exact day grid of `lifecore.data.month_interval_ends`: a failure dated d = 0, 1, ...
+days after the warranty start (age [d, d + 1) days) lies in month k = max(1, ceil(d / (365.25/12))); a
+row observed to age a has a x 365.25/12 = D + 1 days in service, D the days from its start to the as-of
+date, so its failures are dated d = 0 .. D; the month holding the as-of date (or the warranty end) ends
+at the row's observed age a, as its suspensions do.
 
 The result per product: the corrected LifeData the fit used, the corrected fit_returns and
 fit_suspensions frames, the Weibull outcome (with likelihood-ratio bounds) before and after, and the
@@ -86,7 +88,8 @@ DEFAULT_MAX_ITERATIONS = 200
 PRODUCT, POOLED, NONE = "product", "pooled", "none"  # ReportingDelay.source
 ALL_PRODUCTS = "(all products)"
 
-# Month in service of day of service j: ceil(j / L) with L = 365.25 / 12 = 1461 / 48, in integers.
+# Month in service of a failure d days after the start: max(1, ceil(d / L)), L = 365.25 / 12 = 1461 / 48,
+# in integers.
 _DAYS_NUMERATOR, _DAYS_DENOMINATOR = 1461, 48
 
 DELAY_COLUMNS = ("delay_days", "observable_days", "claims")
@@ -306,7 +309,7 @@ class _Cells:
     days: np.ndarray  # days of service in the cell up to a
     unreported_share: FloatArray  # 1 - w: mean over the cell's days of 1 - G(as_of - failure date)
     day_cell: np.ndarray  # cell position of each day
-    day_of_service: np.ndarray  # j: failure date = warranty start + j
+    day_of_service: np.ndarray  # d: failure date = warranty start + d (age [d, d + 1) days)
     day_lag: np.ndarray  # as_of - failure date, days
     day_unreported: FloatArray  # 1 - G(day_lag)
 
@@ -315,8 +318,9 @@ def _cells(rows: pd.DataFrame, delay: ReportingDelay, as_of_date: dt.date) -> _C
     age = rows["observed_age_months"].to_numpy(dtype=float)
     start = np.array(rows["warranty_start_date"].tolist(), dtype="datetime64[D]")
     to_as_of = (np.datetime64(as_of_date, "D") - start).astype(np.int64)  # A, days from start to as-of
-    last_day = np.where(age > 0, np.floor(age * DAYS_PER_MONTH + 1e-6), 0).astype(np.int64)  # j max
-    inconsistent = (last_day > np.maximum(to_as_of, 0)) & (age > 0)
+    # d max: a unit a x L days in service was observed through the failure dates d = 0 .. a L - 1
+    last_day = np.where(age > 0, np.floor(age * DAYS_PER_MONTH + 1e-6) - 1, -1).astype(np.int64)
+    inconsistent = (last_day > to_as_of) & (age > 0)
     if np.any(inconsistent):
         i = int(np.flatnonzero(inconsistent)[0])
         raise ValueError(
@@ -324,7 +328,7 @@ def _cells(rows: pd.DataFrame, delay: ReportingDelay, as_of_date: dt.date) -> _C
             f" warranty start {rows['warranty_start_date'].iloc[i]}"
         )
     support = delay.support_days if delay.corrects else 0
-    first_day = np.maximum(1, to_as_of - support + 1)  # lag A - j <= support - 1
+    first_day = np.maximum(0, to_as_of - support + 1)  # lag A - d <= support - 1
     n_days = np.maximum(0, last_day - first_day + 1)
     total = int(n_days.sum())
     day_row = np.repeat(np.arange(len(rows)), n_days)
@@ -332,7 +336,7 @@ def _cells(rows: pd.DataFrame, delay: ReportingDelay, as_of_date: dt.date) -> _C
     day = np.repeat(first_day, n_days) + offsets
     lag = to_as_of[day_row] - day
     unreported = 1.0 - delay.reported_within(lag)
-    month = (_DAYS_DENOMINATOR * day + _DAYS_NUMERATOR - 1) // _DAYS_NUMERATOR
+    month = np.maximum(1, (_DAYS_DENOMINATOR * day + _DAYS_NUMERATOR - 1) // _DAYS_NUMERATOR)
     if total:
         new_cell = np.ones(total, dtype=bool)
         new_cell[1:] = (day_row[1:] != day_row[:-1]) | (month[1:] != month[:-1])
@@ -342,7 +346,7 @@ def _cells(rows: pd.DataFrame, delay: ReportingDelay, as_of_date: dt.date) -> _C
     day_cell = np.cumsum(new_cell) - 1 if total else np.zeros(0, dtype=np.int64)
     cell_row, k = day_row[starts], month[starts]
     summed = np.add.reduceat(unreported, starts) if total else np.zeros(0)
-    cell_first = (k - 1) * _DAYS_NUMERATOR // _DAYS_DENOMINATOR + 1
+    cell_first = np.where(k <= 1, 0, (k - 1) * _DAYS_NUMERATOR // _DAYS_DENOMINATOR + 1)
     cell_last = np.minimum(k * _DAYS_NUMERATOR // _DAYS_DENOMINATOR, last_day[cell_row])
     cell_days = cell_last - cell_first + 1
     lower, upper = month_interval_ends(k)
@@ -373,8 +377,8 @@ def reported_share(
     month in service before the row's observed age, where it is below 1.
 
     For a row with warranty start s0 observed to age a, month k holds the days of service j (failure date
-    s0 + j) of month_interval_ends(k) up to a; reported_share = mean over those days of
-    G(as_of - s0 - j), failures taken as uniform over the days of the cell. `row` is the row's index label
+    s0 + d, age [d, d + 1) days) of month_interval_ends(k) up to a; reported_share = mean over those days of
+    G(as_of - s0 - d), failures taken as uniform over the days of the cell. `row` is the row's index label
     in `fit_suspensions`; interval_lower / interval_upper the cell's ages (months; the upper end stops at
     a); days the days of service in it. Products without a delay distribution are left out.
     REPORTED_SHARE_COLUMNS.
@@ -842,3 +846,70 @@ def _summary_row(fit: DelayCorrectedFit) -> dict[str, object]:
 
 def _join(first: str, second: str) -> str:
     return f"{first}; {second}" if first and second else first or second
+
+
+# ---------------------------------------------------------------------------------------- the stage
+
+
+@dataclass(frozen=True)
+class DelayStage:
+    """The reporting-delay stage of the nightly run. `shaped`: the shaped data the life fits and the
+    forecast use (fit_returns / fit_suspensions completed with the expected unreported failures when the
+    correction ran; the run's own data otherwise); `correction`: None when turned off
+    (`forecast.correct_reporting_delay = false`); `table`: SUMMARY_COLUMNS per product (empty when off)."""
+
+    shaped: object  # stages.shaping.ShapedData
+    correction: ReportingDelayCorrection | None
+
+    @property
+    def table(self) -> pd.DataFrame:
+        if self.correction is None:
+            return pd.DataFrame({column: [] for column in SUMMARY_COLUMNS})
+        return self.correction.table
+
+    @property
+    def unreported_by_claim_month(self) -> pd.DataFrame | None:
+        return None if self.correction is None else self.correction.unreported_by_claim_month
+
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        return () if self.correction is None else self.correction.notes
+
+    @property
+    def summary(self) -> str:
+        """One line for the run log."""
+        if self.correction is None:
+            return "turned off (forecast.correct_reporting_delay = false)"
+        table = self.correction.table
+        return (
+            f"{table['expected_unreported'].sum():,.1f} failures not yet reported"
+            f" (mean delay {', '.join(f'{p} {d:.1f}' for p, d in zip(table['product'], table['delay_mean_days']))} days)"
+        )
+
+
+def reporting_delay_stage(shaped, settings, life_model: LifeModelSettings) -> DelayStage:  # type: ignore[no-untyped-def]
+    """The run's reporting-delay step: estimate each product's failure-to-claim delay from
+    shaped.claim_reporting_delays, fit on the likelihood that allows for it (Kalbfleisch, Lawless &
+    Robinson 1991) and complete the fit frames; `settings` is the run's ForecastSettings."""
+    import dataclasses
+
+    if not settings.correct_reporting_delay:
+        return DelayStage(shaped=shaped, correction=None)
+    warranty = shaped.cohort_summary.groupby("product")["max_warranty_months"].max().to_dict()
+    correction = correct_for_reporting_delay(
+        shaped.fit_returns, shaped.fit_suspensions, shaped.claim_reporting_delays, shaped.as_of_date, life_model,
+        {product: int(months) for product, months in warranty.items()},
+        min_claims=settings.min_delay_claims, max_delay_days=settings.max_reporting_delay_days,
+    )
+    def like(frame: pd.DataFrame, template: pd.DataFrame) -> pd.DataFrame:
+        """The completed frame with the run's columns (the run's own empty frame when nothing was completed)."""
+        if not len(frame) or not set(template.columns) <= set(frame.columns):
+            return template if not len(frame) else frame.reindex(columns=list(template.columns))
+        return frame.loc[:, list(template.columns)]
+
+    completed = dataclasses.replace(
+        shaped,
+        fit_returns=like(correction.fit_returns, shaped.fit_returns),
+        fit_suspensions=like(correction.fit_suspensions, shaped.fit_suspensions),
+    )
+    return DelayStage(shaped=completed, correction=correction)

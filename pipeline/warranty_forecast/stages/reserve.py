@@ -1,7 +1,9 @@
 """Cost per claim and the warranty reserve per build month (currency units of the claims extract).
 
-reserve = expected future returns x cost per claim, undiscounted and without inflation; the figures
-are estimates for review by finance and auditors, not booked amounts. A flagged build month's expected
+reserve = expected future claims x cost per claim, undiscounted and without inflation; the figures
+are estimates for review by finance and auditors, not booked amounts. Expected future claims = the life
+model's first failures still to come (expected_future_returns) + failures already incurred but not yet
+reported (expected_unreported_returns) + repeat claims of repaired units (expected_repeat_claims). A flagged build month's expected
 returns come from its own life (see stages.forecasting); reserve_added_by_flagged_month is its reserve
 less what the product's model alone would give.
 
@@ -30,8 +32,12 @@ RESERVE_COLUMNS = (
     "units",
     "units_in_channel",
     "returns_to_date",
+    "repeat_claims_to_date",
     "cost_to_date",
     "expected_future_returns",
+    "expected_unreported_returns",
+    "expected_repeat_claims",
+    "expected_future_claims",
     "cost_per_claim",
     "reserve",
     "expected_future_returns_product_model",
@@ -91,15 +97,22 @@ def reserve_by_build_month(
     """The reserve per product x build month.
 
     `cohort_summary` has the columns of the cohort_summary model; `forecast` is expected returns per
-    product x build month x month for the products in `forecast_products`; `forecast_status` is a
-    sentence per product (which model, or why there is no forecast). Products without a forecast get
-    empty expected returns and reserve.
+    product x build month x month for the products in `forecast_products` (with, when present,
+    expected_unreported_returns and expected_repeat_claims: see forecasting.BY_MONTH_COLUMNS);
+    `forecast_status` is a sentence per product (which model, or why there is no forecast). Products
+    without a forecast get empty expected returns and reserve. cost_to_date is every counted claim's cost
+    (first claims and repeat claims).
     """
-    if "expected_returns_product_model" not in forecast.columns:
-        forecast = forecast.assign(expected_returns_product_model=forecast["expected_returns"])
+    defaults = {
+        "expected_returns_product_model": forecast["expected_returns"],
+        "expected_unreported_returns": 0.0,
+        "expected_repeat_claims": 0.0,
+    }
+    forecast = forecast.assign(**{c: v for c, v in defaults.items() if c not in forecast.columns})
     expected = (
         forecast.groupby(["product", "build_month"], as_index=False)[
-            ["expected_returns", "expected_returns_product_model"]
+            ["expected_returns", "expected_returns_product_model", "expected_unreported_returns",
+             "expected_repeat_claims"]
         ]
         .sum()
         .rename(columns={
@@ -107,17 +120,23 @@ def reserve_by_build_month(
             "expected_returns_product_model": "expected_future_returns_product_model",
         })
     )
-    table = cohort_summary.merge(expected, on=["product", "build_month"], how="left")
+    summary = cohort_summary.assign(
+        **{c: 0 for c in ("repeat_claims_to_date", "repeat_cost_to_date") if c not in cohort_summary.columns}
+    )
+    summary = summary.assign(cost_to_date=summary["cost_to_date"] + summary["repeat_cost_to_date"])
+    table = summary.merge(expected, on=["product", "build_month"], how="left")
     table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
     table["forecast_status"] = table["product"].map(forecast_status).fillna("no forecast")
     has_forecast = table["product"].isin(list(forecast_products))
     table["expected_future_returns"] = np.where(
         has_forecast, table["expected_future_returns"].fillna(0.0), np.nan
     )
-    table["expected_future_returns_product_model"] = np.where(
-        has_forecast, table["expected_future_returns_product_model"].fillna(0.0), np.nan
+    for column in ("expected_future_returns_product_model", "expected_unreported_returns", "expected_repeat_claims"):
+        table[column] = np.where(has_forecast, table[column].fillna(0.0), np.nan)
+    table["expected_future_claims"] = (
+        table["expected_future_returns"] + table["expected_unreported_returns"] + table["expected_repeat_claims"]
     )
-    table["reserve"] = table["expected_future_returns"] * table["cost_per_claim"]
+    table["reserve"] = table["expected_future_claims"] * table["cost_per_claim"]
     # what a flagged build month's own life adds to (or takes from) the reserve its product's model gives
     table["reserve_added_by_flagged_month"] = (
         table["expected_future_returns"] - table["expected_future_returns_product_model"]
@@ -131,8 +150,12 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
         build_months=("build_month", "count"),
         units=("units", "sum"),
         returns_to_date=("returns_to_date", "sum"),
+        repeat_claims_to_date=("repeat_claims_to_date", "sum"),
         cost_to_date=("cost_to_date", "sum"),
         expected_future_returns=("expected_future_returns", lambda s: s.sum(min_count=len(s))),
+        expected_unreported_returns=("expected_unreported_returns", lambda s: s.sum(min_count=len(s))),
+        expected_repeat_claims=("expected_repeat_claims", lambda s: s.sum(min_count=len(s))),
+        expected_future_claims=("expected_future_claims", lambda s: s.sum(min_count=len(s))),
         reserve=("reserve", lambda s: s.sum(min_count=len(s))),
         reserve_added_by_flagged_months=("reserve_added_by_flagged_month", lambda s: s.sum(min_count=len(s))),
         cost_per_claim=("cost_per_claim", "first"),
@@ -144,9 +167,11 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
 
 def costed_forecast(forecast: pd.DataFrame, costs: pd.DataFrame) -> pd.DataFrame:
     """`forecast` (expected returns per product x build month x month) with expected_cost in currency units:
-    expected returns x the product's cost per claim (empty where the product has no cost per claim)."""
+    expected claims (first failures + not yet reported + repeat; expected returns when the forecast has no
+    expected_claims) x the product's cost per claim (empty where the product has no cost per claim)."""
     priced = forecast.merge(costs[["product", "cost_per_claim"]], on="product", how="left")
-    priced["expected_cost"] = priced["expected_returns"] * priced["cost_per_claim"]
+    claims = priced["expected_claims"] if "expected_claims" in priced else priced["expected_returns"]
+    priced["expected_cost"] = claims * priced["cost_per_claim"]
     return priced.drop(columns="cost_per_claim")
 
 

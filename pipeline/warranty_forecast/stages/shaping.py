@@ -129,6 +129,7 @@ class ShapedData:
     fit_returns: pd.DataFrame
     returns_by_failure_mode: pd.DataFrame
     returns_by_build_month_and_code: pd.DataFrame
+    returns_by_failure_month: pd.DataFrame  # counted returns by product x build month x failure month x claim month
     safety_term_claims: pd.DataFrame  # valid claims whose failure code mentions an alerts.safety_terms term
     repeat_claims_by_age: pd.DataFrame  # repeat claims and serialised repaired units at risk, by months since first claim
     repaired_units_under_warranty: pd.DataFrame  # returns whose unit is still under warranty (repeat claims to come)

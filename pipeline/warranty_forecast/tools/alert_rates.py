@@ -14,7 +14,7 @@ The simulated product (numpy only):
   1 month, the oldest 36). Warranty 24 months, so observed age = the end of month in service
   min(months in service, 24) on the day grid (lifecore.data.month_interval_ends: 730 days for 24).
 * Life: Weibull (shape, scale) in months, drawn per unit by inverting the cumulative hazard at an
-  Exp(1) draw. A unit whose life T ends by its observed age is a return dated d = ceil(T x 365.25/12)
+  Exp(1) draw. A unit whose life T ends before its observed age is a return dated d = floor(T x 365.25/12)
   days after its start, in month in service k = max(1, ceil(d / (365.25/12))), as the pipeline counts
   whole-day dates; every other unit is a suspension at its observed age.
 * The frames are shaped as the pipeline's fit_returns (product, build_month, months_in_service,
@@ -125,8 +125,8 @@ def simulate_product(
         life = simulate_lives(rng, units, scenario.shape, scenario.scale, scenario.defective and month == BAD_MONTH)
         if scenario.process_change and month in CHANGED:
             life = life / CHANGE_RATIO ** (1.0 / scenario.shape)  # cumulative hazard times CHANGE_RATIO
-        failed = life <= age
-        days = np.ceil(life[failed] * DAYS_PER_MONTH)
+        failed = life < age
+        days = np.floor(life[failed] * DAYS_PER_MONTH)
         mis, counts = np.unique(np.maximum(np.ceil(days / DAYS_PER_MONTH), 1).astype(int), return_counts=True)
         returns += [(PRODUCT, month, int(k), int(c)) for k, c in zip(mis, counts)]
         suspensions.append((PRODUCT, month, age, units, float(units - failed.sum())))
@@ -216,7 +216,7 @@ def report(
     lines = [
         "Build-month alerts: false-alarm and detection rates (simulation)",
         f"  product: {BUILD_MONTH_COUNT} build months x {units:,} units, in service 1..{BUILD_MONTH_COUNT} whole months,"
-        f" warranty {WARRANTY_MONTHS:g} months, returns in MIS ceil(ceil(life in days) / (365.25/12))",
+        f" warranty {WARRANTY_MONTHS:g} months, returns in MIS max(1, ceil(floor(life in days) / (365.25/12)))",
         f"  baseline: two-parameter Weibull fitted to all the product's data (confidence_level"
         f" {life_model.confidence_level:g}, min_returns {life_model.min_returns})",
         f"  alerts: early_life_months {alerts.early_life_months}, false_discovery_rate {alerts.false_discovery_rate:g},"

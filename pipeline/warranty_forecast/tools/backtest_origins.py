@@ -19,9 +19,7 @@ origin+horizon. Units of those build months shipped after the origin are not in 
 yet their returns are in `came`: `units_shipped_after_origin` says how many there were. The forecast
 places each expected return in the calendar month holding the midpoint of its month in service
 (stages/forecast.py); `came` uses the failure date itself. The counts come from one extra pass of the
-run's SQL stage at the latest as-of date (`counted_returns`: `shaping._shape` on a connection of this
-module's, then one aggregate over the intermediate table), so this module imports DuckDB; an output
-model (returns by failure month and claim month) in sql/outputs would let it read ShapedData instead.
+run's SQL stage at the latest as-of date (`counted_returns`: the output model returns_by_failure_month).
 
 Chain ladder. At each origin and product, the triangle of the same counted returns known at the origin
 (claims filed by the origin), build month x development month (1 + calendar months from the build month
@@ -58,7 +56,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
 
-import duckdb
 import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
@@ -69,7 +66,7 @@ from warranty_forecast.config import RunConfig, load_config
 from warranty_forecast.errors import ConfigError
 from warranty_forecast.outputs.publish import lock_output_folder, publish_outputs
 from warranty_forecast.outputs.safe_text import chart_text, one_line
-from warranty_forecast.stages import shaping
+from warranty_forecast.stages.shaping import shape_extracts
 from warranty_forecast.stages.chain_ladder import (
     chain_ladder,
     last_whole_month,
@@ -177,22 +174,6 @@ def origin_dates(latest_as_of: dt.date, origins: int, horizon: int) -> list[dt.d
 
 # ------------------------------------------------------------------------------ what came (DuckDB)
 
-# The pipeline's counted returns by failure month and claim month, read from its own intermediate table
-# after the whole SQL stage has run (same parameters, same checks). One aggregate; the rows are the run's.
-COUNTED_RETURNS_SQL = """
-select
-    product,
-    build_month,
-    date_trunc('month', failure_date)::date as failure_month,
-    date_trunc('month', claim_date)::date as claim_month,
-    count(*) as returns
-from claims_assigned_to_sale_month_groups
-where is_return
-group by product, build_month, failure_month, claim_month
-order by product, build_month, failure_month, claim_month
-"""
-
-
 @dataclass(frozen=True)
 class CountedReturns:
     """Counted returns as known at `as_of_date`: `by_month` (product, build_month, failure_month,
@@ -204,17 +185,10 @@ class CountedReturns:
 
 
 def counted_returns(config: RunConfig) -> CountedReturns:
-    """Run the nightly job's SQL stage for `config` and count its returns by failure and claim month."""
-    spill_folder = shaping.make_spill_folder()
-    try:
-        con = duckdb.connect(":memory:", config={"temp_directory": str(spill_folder)})
-        try:
-            shaped = shaping._shape(con, config)  # every model and check of the run, as the run does them
-            table = con.execute(COUNTED_RETURNS_SQL).df()
-        finally:
-            con.close()
-    finally:
-        shutil.rmtree(spill_folder, ignore_errors=True)
+    """Run the nightly job's SQL stage for `config` and take its counted returns by failure and claim month
+    (the output model returns_by_failure_month) and the build months' units."""
+    shaped = shape_extracts(config)
+    table = shaped.returns_by_failure_month.copy()
     for column in ("build_month", "failure_month", "claim_month"):
         table[column] = pd.to_datetime(table[column]).dt.date
     table["returns"] = table["returns"].astype(np.int64)
