@@ -32,7 +32,7 @@ EXPECTED_FILES = {
     "expected_returns_by_month.png", "report.md", "manifest.json", "life_model_by_mode.parquet",
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
     "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
-    "reporting_delay.parquet",
+    "reporting_delay.parquet", "forecast_by_calendar_month.parquet", "forecast_intervals.parquet",
     "cumulative_returns_per_unit.png",
 }
 

@@ -33,7 +33,7 @@ def claim_costs():
 def test_cost_per_claim_precedence():
     costs = cost_per_claim_by_product(claim_costs(), ["A", "B", "C", "D"], ReserveSettings()).set_index("product")
     assert costs.loc["A", "cost_per_claim"] == 50.0 and costs.loc["A", "basis_returns"] == 4
-    assert costs.loc["B", "cost_per_claim"] == 70.0 and "all returns" in costs.loc["B", "cost_basis"]
+    assert costs.loc["B", "cost_per_claim"] == 70.0 and "all claims" in costs.loc["B", "cost_basis"]
     assert math.isnan(costs.loc["C", "cost_per_claim"]) and math.isnan(costs.loc["D", "cost_per_claim"])
     configured = ReserveSettings(cost_per_claim=30.0, cost_per_claim_by_product=(("B", 99.0),))
     costs = cost_per_claim_by_product(claim_costs(), ["A", "B"], configured).set_index("product")

@@ -29,7 +29,8 @@ from warranty_forecast.stages.forecasting import forecast_returns
 from warranty_forecast.stages.life_models import fit_lives, keep_screening_where_refit_failed
 from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reporting_delay import reporting_delay_stage
-from warranty_forecast.stages.reserve import book_reserve
+from warranty_forecast.stages.prediction import claim_costs_by_product, predict_returns
+from warranty_forecast.stages.reserve import book_reserve, with_prediction_intervals
 from warranty_forecast.stages.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
@@ -117,6 +118,16 @@ def run_nightly(config: RunConfig) -> RunResult:
         ),
         lambda r: f"total {r.total:,.2f}",
     )
+    prediction = clock.run(
+        "intervals",
+        lambda: predict_returns(
+            for_life.fit_suspensions, forecast.models, shaped.as_of_date, forecast.month_models,
+            claim_costs=claim_costs_by_product(reserve.costs), draws=config.forecast.prediction_draws,
+            levels=config.forecast.prediction_levels, seed=config.forecast.prediction_seed,
+        ),
+        lambda p: f"{p.draws} draws per product at levels {', '.join(f'{v:g}' for v in p.levels)}",
+    )
+    reserve, by_calendar_month = with_prediction_intervals(reserve, prediction)
     life_table_by_month = clock.run(
         "diagnostics",
         lambda: life_table(shaped.age_in_service, config.life_model.confidence_level),
@@ -146,7 +157,7 @@ def run_nightly(config: RunConfig) -> RunResult:
 
     warnings = (
         *shaped.warnings, *delays.warnings, *lives.warnings_given(alerts.concentrated_codes), *alerts.warnings,
-        *forecast.warnings,
+        *forecast.warnings, *prediction.notes,
         *reserve.warnings,
     )
     for text in warnings:
@@ -164,6 +175,8 @@ def run_nightly(config: RunConfig) -> RunResult:
         "safety_term_claims": shaped.safety_term_claims,
         "reporting_delay": delays.table,
         "forecast": reserve.forecast,
+        "forecast_by_calendar_month": by_calendar_month,
+        "forecast_intervals": prediction.by_product,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,
         "quarantine": shaped.quarantine,

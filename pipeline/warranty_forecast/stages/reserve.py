@@ -50,7 +50,9 @@ RESERVE_COLUMNS = (
 def cost_per_claim_by_product(
     claim_costs: pd.DataFrame, products: Iterable[str], settings: ReserveSettings
 ) -> pd.DataFrame:
-    """One row per product: cost_per_claim (currency units), cost_basis (words), basis_returns (count).
+    """One row per product: cost_per_claim (currency units), cost_basis (words), basis_returns (count),
+    cost_sd (the sample standard deviation of the claims behind an observed mean; NaN for a configured
+    cost or a single claim).
 
     `claim_costs` has the columns of the claim_cost_by_product model.
     """
@@ -59,7 +61,7 @@ def cost_per_claim_by_product(
     for product in sorted(set(products)):
         override = settings.override_for(product)
         if override is not None:
-            rows.append((product, override, "configured", 0))
+            rows.append((product, override, "configured", 0, math.nan))
             continue
         if product in observed.index:
             costs = observed.loc[product]
@@ -68,8 +70,9 @@ def cost_per_claim_by_product(
                     (
                         product,
                         float(costs["window_mean_cost"]),
-                        f"mean of returns filed in the {settings.cost_window_months} months to the as-of date",
+                        f"mean of claims filed in the {settings.cost_window_months} months to the as-of date",
                         int(costs["window_returns"]),
+                        _sd(costs, "window_cost_sd"),
                     )
                 )
                 continue
@@ -78,13 +81,19 @@ def cost_per_claim_by_product(
                     (
                         product,
                         float(costs["all_time_mean_cost"]),
-                        "mean of all returns (none in the trailing window)",
+                        "mean of all claims (none in the trailing window)",
                         int(costs["all_time_returns"]),
+                        _sd(costs, "all_time_cost_sd"),
                     )
                 )
                 continue
-        rows.append((product, math.nan, "none: no counted return to price; set reserve.cost_per_claim", 0))
-    return pd.DataFrame(rows, columns=["product", "cost_per_claim", "cost_basis", "basis_returns"])
+        rows.append((product, math.nan, "none: no counted return to price; set reserve.cost_per_claim", 0, math.nan))
+    return pd.DataFrame(rows, columns=["product", "cost_per_claim", "cost_basis", "basis_returns", "cost_sd"])
+
+
+def _sd(costs: pd.Series, column: str) -> float:
+    value = costs.get(column, math.nan)
+    return float(value) if value is not None and pd.notna(value) else math.nan
 
 
 def reserve_by_build_month(
@@ -216,4 +225,54 @@ def book_reserve(
         forecast=costed_forecast(forecast, costs),
         by_build_month=by_build_month,
         by_product=reserve_by_product(by_build_month),
+    )
+
+
+INTERVAL_COLUMNS = ("returns_lower", "returns_median", "returns_upper", "reserve_lower", "reserve_median", "reserve_upper")
+CALENDAR_MONTH_COLUMNS = (
+    "product", "month", "expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims",
+    "returns_lower", "returns_median", "returns_upper",
+)
+
+
+def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[ReserveResult, pd.DataFrame]:  # type: ignore[no-untyped-def]
+    """The reserve tables with prediction intervals (stages.prediction.ReturnsPrediction), and the forecast
+    per product x calendar month (CALENDAR_MONTH_COLUMNS).
+
+    returns_lower / _median / _upper: quantiles of the first failures still to come (whole counts: the
+    predictive distribution combines the fit's parameter uncertainty and the counts' Poisson randomness).
+    reserve_lower / _median / _upper: quantiles of those failures' total cost (with the spread of single
+    claim costs and of their mean) plus the expected cost of the claims not yet reported and of the repeat
+    claims, which enter at their expectation (about 1-2% of the reserve on the demo; their own spread is
+    left out), to the cent. Products or build months without an interval keep NaN."""
+    keys = ["product", "build_month"]
+    intervals = prediction.by_build_month.loc[:, [*keys, *INTERVAL_COLUMNS]].copy()
+    intervals["build_month"] = pd.to_datetime(intervals["build_month"]).dt.date
+    by_build_month = result.by_build_month.drop(columns=[c for c in INTERVAL_COLUMNS if c in result.by_build_month])
+    by_build_month = by_build_month.merge(intervals, on=keys, how="left")
+    beyond_first = (by_build_month["expected_unreported_returns"] + by_build_month["expected_repeat_claims"]) * (
+        by_build_month["cost_per_claim"]
+    )
+    # quantiles of simulated currency sums, kept to the cent: the simulation's sums may differ in their last
+    # bits between processes (summation order), and a rerun must write identical tables
+    for column in ("reserve_lower", "reserve_median", "reserve_upper"):
+        by_build_month[column] = (by_build_month[column].astype(float) + beyond_first).round(2)
+    product_reserve = prediction.reserve_by_product.loc[:, ["product", "reserve_lower", "reserve_median", "reserve_upper"]]
+    horizon = prediction.by_product[prediction.by_product["horizon"] == "to_warranty_end"].rename(
+        columns={"lower": "returns_lower", "median": "returns_median", "upper": "returns_upper"}
+    )[["product", "returns_lower", "returns_median", "returns_upper"]]
+    by_product = result.by_product.drop(columns=[c for c in INTERVAL_COLUMNS if c in result.by_product])
+    by_product = by_product.merge(horizon, on="product", how="left").merge(product_reserve, on="product", how="left")
+    beyond = by_product["reserve"] - by_product["expected_future_returns"] * by_product["cost_per_claim"]
+    for column in ("reserve_lower", "reserve_median", "reserve_upper"):
+        by_product[column] = (by_product[column].astype(float) + beyond).round(2)
+    calendar = result.forecast.assign(month=pd.to_datetime(result.forecast["month"]).dt.date).groupby(
+        ["product", "month"], as_index=False
+    )[["expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims"]].sum()
+    months = prediction.by_month.loc[:, ["product", "month", "returns_lower", "returns_median", "returns_upper"]].copy()
+    months["month"] = pd.to_datetime(months["month"]).dt.date
+    calendar = calendar.merge(months, on=["product", "month"], how="left").loc[:, list(CALENDAR_MONTH_COLUMNS)]
+    return (
+        ReserveResult(costs=result.costs, forecast=result.forecast, by_build_month=by_build_month, by_product=by_product),
+        calendar.sort_values(["product", "month"], ignore_index=True),
     )
