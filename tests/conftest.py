@@ -30,3 +30,17 @@ def demo_run_copy(_demo_run_once, tmp_path_factory) -> Path:
     parent = tmp_path_factory.mktemp("demo") / "run"
     shutil.copytree(_demo_run_once.parent, parent)
     return parent / _demo_run_once.name
+
+
+@pytest.fixture
+def con():
+    """An in-memory DuckDB connection with the project's SQL macros, for tests of single models."""
+    import duckdb
+
+    from warranty_forecast.stages import sql_runner
+
+    connection = duckdb.connect(":memory:")
+    for macros in sql_runner.MACRO_FILES:
+        sql_runner.run_statements(connection, macros)
+    yield connection
+    connection.close()

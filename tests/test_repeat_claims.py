@@ -18,6 +18,7 @@ import pandas as pd
 import pytest
 
 from warranty_forecast.stages import sql_runner
+from sql_tables import d, table  # tests/sql_tables.py
 from warranty_forecast.stages.forecast import expected_future_returns, forecast_by_month
 from warranty_forecast.stages.repeat_claims import (
     REPEAT_FORECAST_COLUMNS,
@@ -44,28 +45,6 @@ SALE_MONTH_GROUPS = {
     "product": "varchar", "build_month": "date", "sale_month": "date", "warranty_months": "integer",
     "units": "bigint", "units_in_channel": "bigint",
 }
-
-
-def d(text: str) -> dt.date:
-    return dt.date.fromisoformat(text if len(text) > 7 else f"{text}-01")
-
-
-@pytest.fixture
-def con():
-    connection = duckdb.connect(":memory:")
-    for macros in sql_runner.MACRO_FILES:
-        sql_runner.run_statements(connection, macros)
-    yield connection
-    connection.close()
-
-
-def table(con, name: str, columns: dict[str, str], rows: list[dict]) -> None:
-    """Create `name` with `columns` holding `rows` (missing keys are NULL)."""
-    spec = ", ".join(f'"{column}" {kind}' for column, kind in columns.items())
-    con.execute(f"create table {name} ({spec})")
-    if rows:
-        marks = ", ".join("?" for _ in columns)
-        con.executemany(f"insert into {name} values ({marks})", [[row.get(c) for c in columns] for row in rows])
 
 
 def table_from_frame(con, name: str, columns: dict[str, str], frame: pd.DataFrame) -> None:

@@ -13,13 +13,13 @@ from __future__ import annotations
 
 import datetime as dt
 
-import duckdb
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
 
 from warranty_forecast.stages import sql_runner
+from sql_tables import d, table  # tests/sql_tables.py
 
 AS_OF = dt.date(2024, 12, 31)
 STEP = 2.0**-20  # sold shares are multiples of 2^-20
@@ -28,28 +28,6 @@ STG_SHIPMENTS = {
     "sale_date": "date", "units": "bigint", "warranty_months": "integer", "serial": "varchar",
     "is_quarantined": "boolean",
 }
-
-
-def d(text: str) -> dt.date:
-    return dt.date.fromisoformat(text)
-
-
-@pytest.fixture
-def con():
-    connection = duckdb.connect(":memory:")
-    for macros in sql_runner.MACRO_FILES:
-        sql_runner.run_statements(connection, macros)
-    yield connection
-    connection.close()
-
-
-def table(con, name: str, columns: dict[str, str], rows: list[dict]) -> None:
-    """Create `name` with `columns` (name -> DuckDB type) holding `rows` (missing keys are NULL)."""
-    spec = ", ".join(f'"{column}" {kind}' for column, kind in columns.items())
-    con.execute(f"create table {name} ({spec})")
-    if rows:
-        marks = ", ".join("?" for _ in columns)
-        con.executemany(f"insert into {name} values ({marks})", [[row.get(c) for c in columns] for row in rows])
 
 
 def quantised(share: float) -> float:

@@ -10,44 +10,15 @@ import dataclasses
 import datetime as dt
 import json
 
-import duckdb
 import pytest
 
 from warranty_forecast.stages import sql_runner
+from sql_tables import d, run, table  # tests/sql_tables.py
 from warranty_forecast.stages.shaping import ShapedData
 
 AS_OF = dt.date(2024, 12, 31)
 RAW_TABLES = ("raw_shipments", "raw_shipments_malformed", "raw_claims", "raw_claims_malformed")
 MONTH = 365.25 / 12  # days in a month of service
-
-
-def d(text: str) -> dt.date:
-    return dt.date.fromisoformat(text if len(text) > 7 else f"{text}-01")
-
-
-@pytest.fixture
-def con():
-    connection = duckdb.connect(":memory:")
-    for macros in sql_runner.MACRO_FILES:
-        sql_runner.run_statements(connection, macros)
-    yield connection
-    connection.close()
-
-
-def table(con, name: str, columns: dict[str, str], rows: list[dict]) -> None:
-    """Create `name` with `columns` (name -> DuckDB type) holding `rows` (missing keys are NULL)."""
-    spec = ", ".join(f'"{column}" {kind}' for column, kind in columns.items())
-    con.execute(f"create table {name} ({spec})")
-    if rows:
-        marks = ", ".join("?" for _ in columns)
-        con.executemany(f"insert into {name} values ({marks})", [[row.get(c) for c in columns] for row in rows])
-
-
-def run(con, model: str, columns: str, parameters: dict | None = None) -> list[tuple]:
-    """Run one model and return the chosen columns of its rows, ordered by those columns."""
-    sql_runner.run_model(con, model, parameters or {})
-    names = [c.strip() for c in columns.split(",")]
-    return con.table(model.rsplit("/", 1)[-1]).select(*names).order(", ".join(names)).fetchall()
 
 
 # --------------------------------------------------------------------------------------- the runner
