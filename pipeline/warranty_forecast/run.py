@@ -201,6 +201,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         safety_term_claims=shaped.safety_term_claims,
         flagged_month_lives=forecast.flagged_month_lives,
         charts_drawn=config.draw_charts,
+        reporting_delay=delays.table,
         reserve_totals=reserve.by_product,
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,

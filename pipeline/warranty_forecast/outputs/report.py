@@ -81,6 +81,7 @@ def render_report(
     safety_term_claims: pd.DataFrame | None = None,
     flagged_month_lives: pd.DataFrame | None = None,
     charts_drawn: bool = True,
+    reporting_delay: pd.DataFrame | None = None,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -108,28 +109,49 @@ def render_report(
         lines += ["## Warnings", "", *[f"- {text}" for text in warnings], ""]
 
     lines += ["## Reserve by product", ""]
+
+    def column(name: str) -> pd.Series:
+        return reserve_totals[name] if name in reserve_totals else pd.Series(np.nan, index=reserve_totals.index)
+
+    def interval(lower: str, upper: str, show) -> pd.Series:  # type: ignore[no-untyped-def]
+        return pd.Series(
+            ["n/a" if pd.isna(a) or pd.isna(b) else f"{show(a)} to {show(b)}" for a, b in zip(column(lower), column(upper))],
+            index=reserve_totals.index,
+        )
+
     shown = reserve_totals.assign(
         units=reserve_totals["units"].map(lambda v: f"{int(v):,}"),
-        returns_to_date=reserve_totals["returns_to_date"].map(lambda v: f"{int(v):,}"),
+        claims_to_date=(reserve_totals["returns_to_date"] + column("repeat_claims_to_date").fillna(0)).map(
+            lambda v: f"{int(v):,}"
+        ),
         cost_to_date=reserve_totals["cost_to_date"].map(_money),
-        expected_future_returns=reserve_totals["expected_future_returns"].map(lambda v: _number(v, 6)),
+        future_returns=reserve_totals["expected_future_returns"].map(lambda v: _number(v, 6)),
+        returns_interval=interval("returns_lower", "returns_upper", lambda v: f"{int(v):,}"),
+        not_yet_reported=column("expected_unreported_returns").map(lambda v: _number(v, 4)),
+        repeat_claims=column("expected_repeat_claims").map(lambda v: _number(v, 4)),
         cost_per_claim=reserve_totals["cost_per_claim"].map(_money),
         reserve=reserve_totals["reserve"].map(_money),
-        added_by_flagged_months=(
-            reserve_totals["reserve_added_by_flagged_months"] if "reserve_added_by_flagged_months" in reserve_totals
-            else pd.Series(np.nan, index=reserve_totals.index)
-        ).map(_money),
-    )[["product", "units", "returns_to_date", "cost_to_date", "expected_future_returns", "cost_per_claim",
-       "reserve", "added_by_flagged_months", "forecast_status", "cost_basis"]]
+        reserve_interval=interval("reserve_lower", "reserve_upper", _money),
+        added_by_flagged_months=column("reserve_added_by_flagged_months").map(_money),
+    )[["product", "units", "claims_to_date", "cost_to_date", "future_returns", "returns_interval",
+       "not_yet_reported", "repeat_claims", "cost_per_claim", "reserve", "reserve_interval",
+       "added_by_flagged_months", "forecast_status", "cost_basis"]]
     total = reserve_totals["reserve"].sum(min_count=1)
     lines += [
         _table(shown),
         "",
         f"Total reserve over products with a forecast: {_money(total)} (currency units of the claims extract). "
-        "Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`. added_by_flagged_months: the"
-        " part of the reserve that comes from forecasting the flagged build months with their own life rather"
-        " than with their product's model (see Build-month alerts).",
+        "reserve = (future_returns + not_yet_reported + repeat_claims) x cost_per_claim: the first failures still to"
+        " come, the failures already incurred whose claims are not yet filed, and the repeat claims of repaired"
+        " units. returns_interval and reserve_interval are prediction intervals (by default 5% to 95%: see the"
+        " README) for the first failures until the warranties end and for the reserve; they carry the fitted"
+        " model's uncertainty and the counts' randomness, not the risk that the model itself is wrong."
+        " Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`,"
+        " `forecast_by_calendar_month.parquet`; next 12 months: `forecast_intervals.parquet`."
+        " added_by_flagged_months: the part of the reserve that comes from forecasting the flagged build months"
+        " with their own life rather than with their product's model (see Build-month alerts).",
         "",
+        *_reporting_delay_lines(reporting_delay),
         *_flagged_month_life_lines(flagged_month_lives),
         "## Life model (Weibull, maximum likelihood on grouped data)",
         "",
@@ -423,3 +445,30 @@ def _bounded(estimate: float, lower: float, upper: float) -> str:
     if not math.isfinite(estimate):
         return "n/a"
     return f"{estimate:.4g} [{lower:.4g}, {upper:.4g}]"
+
+
+def _reporting_delay_lines(table: pd.DataFrame | None) -> list[str]:
+    """The failure-to-claim delay per product and the failures not yet reported (reporting_delay.parquet)."""
+    if table is None or not len(table):
+        return []
+    table = _text_escaped(table)
+    shown = pd.DataFrame({
+        "product": table["product"],
+        "delay_from": table["delay_source"],
+        "claims": table["delay_claims"].map(lambda v: f"{v:,.0f}"),
+        "mean_days": table["delay_mean_days"].map(lambda v: "n/a" if pd.isna(v) else f"{v:.1f}"),
+        "median_days": table["delay_median_days"].map(lambda v: "n/a" if pd.isna(v) else f"{v:.0f}"),
+        "p99_days": table["delay_p99_days"].map(lambda v: "n/a" if pd.isna(v) else f"{v:.0f}"),
+        "not_yet_reported": table["expected_unreported"].map(lambda v: "n/a" if pd.isna(v) else f"{v:,.1f}"),
+        "note": table["note"],
+    })
+    return [
+        "## Claims not yet reported",
+        "",
+        "Failures before the as-of date whose claims are not filed yet, from the failure-to-claim delay of the"
+        " counted returns (claim_date − failure_date, allowing for the as-of date cutting it short). The life"
+        " fits allow for them and the forecast adds them in the month their claims are expected.",
+        "",
+        _table(shown),
+        "",
+    ]
