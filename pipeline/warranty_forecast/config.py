@@ -182,17 +182,69 @@ class ClaimSettings:
     counted_statuses: tuple[str, ...] = _key(("approved",), _statuses)
 
 
+def _currency(value: Any) -> str:
+    """A three-letter currency code (ISO 4217 style), kept upper case."""
+    if not isinstance(value, str) or len(value) != 3 or not (value.isascii() and value.isalpha()):
+        raise ValueError('must be a three-letter currency code such as "EUR" (ISO 4217)')
+    return value.upper()
+
+
+# yearly rates for inflation and discounting: 0.03 is 3% a year
+RATE_LIMITS = (-0.5, 1.0)
+_YEARLY_RATE = " (a yearly rate: 0.03 is 3%)"
+
+
+def _rates_by_year(value: Any) -> tuple[float, ...]:
+    """Yearly discount rates for years 1, 2, ... after the as-of date (at most 100); [] means none."""
+    low, high = RATE_LIMITS
+    if (
+        not isinstance(value, list) or len(value) > 100
+        or any(isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or not low <= v <= high
+               for v in value)
+    ):
+        raise ValueError(
+            f"must be a list of at most 100 yearly rates, each a number in [{low:g}, {high:g}] (0.06 is 6%),"
+            " for years 1, 2, ... after the as-of date; [] uses annual_discount_rate"
+        )
+    return tuple(float(v) for v in value)
+
+
 @dataclass(frozen=True)
 class ReserveSettings:
-    """[reserve]: the cost per claim (currency units)."""
+    """[reserve]: the cost per claim (currency units), the currency's code, cost inflation and discounting.
+
+    Rates are yearly fractions (0.03 is 3% a year), compounded annually over the time from the as-of date to
+    the middle of each expected claim's calendar month (stages.reserve.years_from_as_of)."""
 
     cost_per_claim: float | None = _key(None, _non_negative(" (currency units)"))  # None: observed costs
     cost_window_months: int = _key(12, _integer(1))  # trailing window for the observed mean cost
     cost_per_claim_by_product: tuple[tuple[str, float], ...] = _key((), _by_product(_non_negative(" (currency units)")))
+    # the claims extract's currency, shown beside every amount; "XXX" is ISO 4217's code for "no currency":
+    # the amounts are in whatever currency the claims extract's costs are in, until this names it
+    currency: str = _key("XXX", _currency)
+    # cost per claim grows by this each year from the as-of date to the month of each expected claim
+    annual_inflation_rate: float = _key(0.0, _number_in(*RATE_LIMITS, high_included=True, unit=_YEARLY_RATE))
+    # reserve_discounted: each claim's cost discounted to the as-of date at this yearly rate ...
+    annual_discount_rate: float = _key(0.0, _number_in(*RATE_LIMITS, high_included=True, unit=_YEARLY_RATE))
+    # ... or at these rates, one per year after the as-of date (spot rates; beyond the list, the last one)
+    discount_rate_by_year: tuple[float, ...] = _key((), _rates_by_year)
+
+    def check(self) -> None:
+        if self.discount_rate_by_year and self.annual_discount_rate != 0.0:
+            raise ValueError(
+                "discount_rate_by_year and annual_discount_rate are both set: set one of them"
+            )
 
     def override_for(self, product: str) -> float | None:
         """The configured cost per claim (currency units) for a product, or None to use observed costs."""
         return dict(self.cost_per_claim_by_product).get(product, self.cost_per_claim)
+
+    def discount_rate_for_year(self, year: int) -> float:
+        """The yearly discount rate for claims in year `year` (1 = the first year after the as-of date)."""
+        if year < 1:
+            raise ValueError(f"year must be >= 1, got {year!r}")
+        rates = self.discount_rate_by_year
+        return rates[min(year, len(rates)) - 1] if rates else self.annual_discount_rate
 
 
 @dataclass(frozen=True)

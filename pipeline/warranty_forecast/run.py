@@ -114,7 +114,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "reserve",
         lambda: book_reserve(
             shaped.cohort_summary, shaped.claim_cost_by_product, forecast.by_month, forecast.status,
-            forecast.models.keys(), config.reserve,
+            forecast.models.keys(), config.reserve, as_of_date=shaped.as_of_date,
         ),
         lambda r: f"total {r.total:,.2f}",
     )

@@ -119,37 +119,76 @@ def render_report(
             index=reserve_totals.index,
         )
 
+    # the currency's code beside every amount (reserve.currency; tables keep exact amounts and a currency column)
+    codes = column("currency").dropna()
+    currency = str(codes.iloc[0]) if len(codes) else ""
+
+    def money(value: Any) -> str:
+        text = _money(value)
+        return f"{text} {currency}" if currency and text != "n/a" else text
+
     shown = reserve_totals.assign(
         units=reserve_totals["units"].map(lambda v: f"{int(v):,}"),
         claims_to_date=(reserve_totals["returns_to_date"] + column("repeat_claims_to_date").fillna(0)).map(
             lambda v: f"{int(v):,}"
         ),
-        cost_to_date=reserve_totals["cost_to_date"].map(_money),
+        cost_to_date=reserve_totals["cost_to_date"].map(money),
         future_returns=reserve_totals["expected_future_returns"].map(lambda v: _number(v, 6)),
         returns_interval=interval("returns_lower", "returns_upper", lambda v: f"{int(v):,}"),
         not_yet_reported=column("expected_unreported_returns").map(lambda v: _number(v, 4)),
         repeat_claims=column("expected_repeat_claims").map(lambda v: _number(v, 4)),
-        cost_per_claim=reserve_totals["cost_per_claim"].map(_money),
-        reserve=reserve_totals["reserve"].map(_money),
-        reserve_interval=interval("reserve_lower", "reserve_upper", _money),
-        added_by_flagged_months=column("reserve_added_by_flagged_months").map(_money),
+        cost_per_claim=reserve_totals["cost_per_claim"].map(money),
+        reserve=reserve_totals["reserve"].map(money),
+        reserve_interval=interval("reserve_lower", "reserve_upper", _money).map(
+            lambda text: f"{text} {currency}" if currency and text != "n/a" else text
+        ),
+        added_by_flagged_months=column("reserve_added_by_flagged_months").map(money),
     )[["product", "units", "claims_to_date", "cost_to_date", "future_returns", "returns_interval",
        "not_yet_reported", "repeat_claims", "cost_per_claim", "reserve", "reserve_interval",
        "added_by_flagged_months", "forecast_status", "cost_basis"]]
     total = reserve_totals["reserve"].sum(min_count=1)
+    rates = dict(manifest.settings.get("reserve", {})) if getattr(manifest, "settings", None) else {}
+    inflation = float(rates.get("annual_inflation_rate", 0.0) or 0.0)
+    by_year = [float(r) for r in rates.get("discount_rate_by_year", []) or []]
+    discount = float(rates.get("annual_discount_rate", 0.0) or 0.0)
+    discount_text = (
+        "discounted at " + ", ".join(f"{r:.2%}" for r in by_year) + " a year for years 1, 2, ... after the as-of date"
+        " (the last rate beyond)" if by_year else f"discounted at {discount:.2%} a year"
+    )
+    timing = reserve_totals.assign(
+        reserve=reserve_totals["reserve"].map(money),
+        current=column("reserve_current").map(money),
+        non_current=column("reserve_non_current").map(money),
+        reserve_discounted=column("reserve_discounted").map(money),
+        current_discounted=column("reserve_current_discounted").map(money),
+        non_current_discounted=column("reserve_non_current_discounted").map(money),
+    )[["product", "reserve", "current", "non_current", "reserve_discounted", "current_discounted",
+       "non_current_discounted"]]
+    currency_text = f"{currency} (reserve.currency)" if currency else "currency units of the claims extract"
     lines += [
         _table(shown),
         "",
-        f"Total reserve over products with a forecast: {_money(total)} (currency units of the claims extract). "
-        "reserve = (future_returns + not_yet_reported + repeat_claims) x cost_per_claim: the first failures still to"
-        " come, the failures already incurred whose claims are not yet filed, and the repeat claims of repaired"
-        " units. returns_interval and reserve_interval are prediction intervals (by default 5% to 95%: see the"
-        " README) for the first failures until the warranties end and for the reserve; they carry the fitted"
+        f"Total reserve over products with a forecast: {money(total)}; discounted:"
+        f" {money(column('reserve_discounted').sum(min_count=1))}. Amounts in {currency_text}"
+        + ("; XXX is ISO 4217's code for no currency: set reserve.currency to the claims extract's" if currency == "XXX" else "")
+        + ". reserve = the sum over calendar months of (future_returns + not_yet_reported + repeat_claims) x"
+        f" cost_per_claim x (1 + {inflation:.2%}) ^ years from the as-of date to the middle of the month"
+        " (reserve.annual_inflation_rate, compounded annually; at 0 the reserve is claims x cost_per_claim): the"
+        " first failures still to come, the failures already incurred whose claims are not yet filed, and the"
+        " repeat claims of repaired units. returns_interval and reserve_interval are prediction intervals (by"
+        " default 5% to 95%: see the README) for the first failures until the warranties end and for the reserve"
+        " (inflated like it, not discounted); they carry the fitted"
         " model's uncertainty and the counts' randomness, not the risk that the model itself is wrong."
         " Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`,"
         " `forecast_by_calendar_month.parquet`; next 12 months: `forecast_intervals.parquet`."
         " added_by_flagged_months: the part of the reserve that comes from forecasting the flagged build months"
         " with their own life rather than with their product's model (see Build-month alerts).",
+        "",
+        "When the claims fall due: current = the as-of date's month and the 12 calendar months after it,"
+        f" non_current = later; reserve_discounted = each month's amount {discount_text} from the middle of the"
+        " month to the as-of date ((1 + rate) ^ -years, compounded annually).",
+        "",
+        _table(timing),
         "",
         *_reporting_delay_lines(reporting_delay),
         *_flagged_month_life_lines(flagged_month_lives),

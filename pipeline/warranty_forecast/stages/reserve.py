@@ -1,7 +1,22 @@
-"""Cost per claim and the warranty reserve per build month (currency units of the claims extract).
+"""Cost per claim and the warranty reserve per build month (currency units of the claims extract, whose
+code is `reserve.currency`).
 
-reserve = expected future claims x cost per claim, undiscounted and without inflation; the figures
-are estimates for review by finance and auditors, not booked amounts. Expected future claims = the life
+reserve = the sum over the calendar months of expected claims x cost per claim x inflation factor;
+reserve_discounted the same, each month also discounted to the as-of date; reserve_current /
+reserve_non_current split both by when the claims are expected: in the as-of date's month and the 12
+calendar months after it, or later. The figures are estimates for review by finance and auditors, not
+booked amounts. Time from the as-of date to a claim, in years (`years_from_as_of`), on the month grid:
+every calendar month is 1/12 year; the as-of date sits at its month's index + day / days in the month (the
+as-of day counted as finished), a claim at the middle of its calendar month (index + 0.5):
+
+    t = max(0, (index(claim month) + 0.5 - index(as-of month) - day / days_in_month) / 12)
+    inflation factor = (1 + reserve.annual_inflation_rate) ** t            (compounded annually)
+    discount factor  = (1 + r_k) ** -t, k = ceil(t) (the year after the as-of date the claim falls in),
+                       r_k = reserve.discount_rate_by_year[k - 1] (the last one beyond the list), else
+                       reserve.annual_discount_rate
+
+With both rates 0 every factor is exactly 1 and the reserve is expected future claims x cost per claim.
+Expected future claims = the life
 model's first failures still to come (expected_future_returns) + failures already incurred but not yet
 reported (expected_unreported_returns) + repeat claims of repaired units (expected_repeat_claims). A flagged build month's expected
 returns come from its own life (see stages.forecasting); reserve_added_by_flagged_month is its reserve
@@ -17,6 +32,7 @@ Cost per claim, per product, first that applies:
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 from dataclasses import dataclass
 from typing import Collection, Iterable, Mapping
@@ -39,7 +55,13 @@ RESERVE_COLUMNS = (
     "expected_repeat_claims",
     "expected_future_claims",
     "cost_per_claim",
+    "currency",
     "reserve",
+    "reserve_discounted",
+    "reserve_current",
+    "reserve_non_current",
+    "reserve_current_discounted",
+    "reserve_non_current_discounted",
     "expected_future_returns_product_model",
     "reserve_added_by_flagged_month",
     "cost_basis",
@@ -96,28 +118,139 @@ def _sd(costs: pd.Series, column: str) -> float:
     return float(value) if value is not None and pd.notna(value) else math.nan
 
 
-def reserve_by_build_month(
-    cohort_summary: pd.DataFrame,
-    forecast: pd.DataFrame,
-    costs: pd.DataFrame,
-    forecast_status: Mapping[str, str],
-    forecast_products: Collection[str],
-) -> pd.DataFrame:
-    """The reserve per product x build month.
+CURRENT_MONTHS = 12  # reserve_current: claims in the as-of date's month and the 12 calendar months after it
 
-    `cohort_summary` has the columns of the cohort_summary model; `forecast` is expected returns per
-    product x build month x month for the products in `forecast_products` (with, when present,
-    expected_unreported_returns and expected_repeat_claims: see forecasting.BY_MONTH_COLUMNS);
-    `forecast_status` is a sentence per product (which model, or why there is no forecast). Products
-    without a forecast get empty expected returns and reserve. cost_to_date is every counted claim's cost
-    (first claims and repeat claims).
-    """
+TIMING_COLUMNS = ("month", "years_from_as_of", "inflation_factor", "discount_factor", "is_current")
+
+
+def _month_index(value: object) -> int:
+    stamp = pd.Timestamp(value)
+    return stamp.year * 12 + stamp.month - 1
+
+
+def years_from_as_of(months: Iterable[object], as_of_date: dt.date) -> np.ndarray:
+    """Years from the end of `as_of_date` to the middle of each calendar month in `months` (dates, any day
+    of the month), on the month grid (a calendar month is 1/12 year); 0 for months at or before it."""
+    if not isinstance(as_of_date, dt.date):
+        raise ValueError(f"as_of_date must be a date, got {as_of_date!r}")
+    as_of = pd.Timestamp(as_of_date)
+    position = _month_index(as_of) + as_of.day / as_of.days_in_month
+    indices = np.array([_month_index(month) for month in months], dtype=float)
+    return np.maximum((indices + 0.5 - position) / 12.0, 0.0)
+
+
+def inflation_factors(years: np.ndarray, annual_rate: float) -> np.ndarray:
+    """(1 + annual_rate) ** years, compounded annually (years >= 0); exactly 1 where the rate is 0."""
+    if not math.isfinite(annual_rate) or annual_rate <= -1.0:
+        raise ValueError(f"annual_rate must be a number above -1, got {annual_rate!r}")
+    return np.exp(np.asarray(years, dtype=float) * math.log1p(annual_rate))
+
+
+def discount_factors(years: np.ndarray, settings: ReserveSettings) -> np.ndarray:
+    """(1 + r_k) ** -years with k = ceil(years) the year after the as-of date a claim falls in (year 1 for
+    years = 0) and r_k its rate (ReserveSettings.discount_rate_for_year); exactly 1 where r_k is 0."""
+    years = np.asarray(years, dtype=float)
+    # a claim exactly at the end of year k belongs to year k (1e-9 years is about 30 ms)
+    year = np.maximum(np.ceil(years - 1e-9), 1).astype(int)
+    rates = np.array([settings.discount_rate_for_year(int(k)) for k in year], dtype=float)
+    if np.any(rates <= -1.0):
+        raise ValueError("settings: a discount rate must be above -1")
+    return np.exp(-years * np.log1p(rates))
+
+
+def claim_timing(months: Iterable[object], as_of_date: dt.date | None, settings: ReserveSettings) -> pd.DataFrame:
+    """Per distinct calendar month (TIMING_COLUMNS): years_from_as_of, inflation_factor, discount_factor and
+    is_current (the as-of date's month or one of the CURRENT_MONTHS calendar months after it).
+
+    Without an as-of date (a caller that only prices, rates 0) the factors are 1 and is_current is empty
+    (missing); with a non-zero rate the as-of date is required."""
+    distinct = sorted(set(pd.to_datetime(pd.Series(list(months), dtype=object)).dt.date))
+    if as_of_date is None:
+        if settings.annual_inflation_rate or settings.annual_discount_rate or any(settings.discount_rate_by_year):
+            raise ValueError("as_of_date is required to inflate or discount the reserve (a rate is not 0)")
+        ones = np.ones(len(distinct))
+        return pd.DataFrame({
+            "month": pd.Series(distinct, dtype=object), "years_from_as_of": np.full(len(distinct), np.nan), "inflation_factor": ones,
+            "discount_factor": ones, "is_current": pd.array([pd.NA] * len(distinct), dtype="boolean"),
+        })
+    years = years_from_as_of(distinct, as_of_date)
+    last_current = _month_index(as_of_date) + CURRENT_MONTHS
+    return pd.DataFrame({
+        "month": pd.Series(distinct, dtype=object),
+        "years_from_as_of": years,
+        "inflation_factor": inflation_factors(years, settings.annual_inflation_rate),
+        "discount_factor": discount_factors(years, settings),
+        "is_current": pd.array([_month_index(m) <= last_current for m in distinct], dtype="boolean"),
+    })
+
+
+def _timed_claims(forecast: pd.DataFrame, timing: pd.DataFrame) -> pd.DataFrame:
+    """Per product x build month: the expected claims (claims), and their cost weights: claims x inflation
+    factor (inflated), x discount factor too (discounted), each also for the current and later months
+    (NaN when is_current is unknown)."""
+    keys = ["product", "build_month"]
+    rows = forecast.assign(month=pd.to_datetime(forecast["month"]).dt.date).merge(timing, on="month", how="left")
+    claims = rows["expected_claims"].astype(float)
+    inflated = claims * rows["inflation_factor"]
+    discounted = inflated * rows["discount_factor"]
+    current = rows["is_current"].astype("float64")  # 1, 0 or NaN (unknown)
+    weights = pd.DataFrame({
+        "product": rows["product"], "build_month": rows["build_month"], "claims": claims, "inflated": inflated,
+        "discounted": discounted, "current": inflated * current, "non_current": inflated * (1.0 - current),
+        "current_discounted": discounted * current, "non_current_discounted": discounted * (1.0 - current),
+    })
+    return weights.groupby(keys, as_index=False).agg(
+        claims=("claims", "sum"), inflated=("inflated", "sum"), discounted=("discounted", "sum"),
+        **{c: (c, lambda s: s.sum(min_count=len(s))) for c in
+           ("current", "non_current", "current_discounted", "non_current_discounted")},
+    )
+
+
+def _with_claim_columns(forecast: pd.DataFrame) -> pd.DataFrame:
+    """`forecast` with expected_returns_product_model, expected_unreported_returns, expected_repeat_claims
+    (0 when absent) and expected_claims (their sum with expected_returns when absent)."""
     defaults = {
         "expected_returns_product_model": forecast["expected_returns"],
         "expected_unreported_returns": 0.0,
         "expected_repeat_claims": 0.0,
     }
     forecast = forecast.assign(**{c: v for c, v in defaults.items() if c not in forecast.columns})
+    if "expected_claims" not in forecast.columns:
+        forecast = forecast.assign(
+            expected_claims=forecast["expected_returns"] + forecast["expected_unreported_returns"]
+            + forecast["expected_repeat_claims"]
+        )
+    return forecast
+
+
+def reserve_by_build_month(
+    cohort_summary: pd.DataFrame,
+    forecast: pd.DataFrame,
+    costs: pd.DataFrame,
+    forecast_status: Mapping[str, str],
+    forecast_products: Collection[str],
+    *,
+    settings: ReserveSettings | None = None,
+    as_of_date: dt.date | None = None,
+) -> pd.DataFrame:
+    """The reserve per product x build month (RESERVE_COLUMNS; amounts in `settings.currency`).
+
+    `cohort_summary` has the columns of the cohort_summary model; `forecast` is expected returns per
+    product x build month x calendar month for the products in `forecast_products` (with, when present,
+    expected_unreported_returns, expected_repeat_claims and expected_claims: see
+    forecasting.BY_MONTH_COLUMNS); `forecast_status` is a sentence per product (which model, or why there
+    is no forecast). Products without a forecast get empty expected returns and reserve. cost_to_date is
+    every counted claim's cost (first claims and repeat claims).
+
+    reserve = expected_future_claims x cost_per_claim x the claims-weighted mean of the months' inflation
+    factors (= the sum over months of claims x cost x factor; exactly claims x cost at rate 0);
+    reserve_discounted likewise with inflation x discount factors; reserve_current / _non_current (and
+    _discounted) the parts in the as-of date's month and the 12 calendar months after it / later, empty
+    without `as_of_date`. `settings` defaults to ReserveSettings() (rates 0).
+    """
+    settings = settings if settings is not None else ReserveSettings()
+    forecast = _with_claim_columns(forecast)
+    timing = claim_timing(forecast["month"], as_of_date, settings)
     expected = (
         forecast.groupby(["product", "build_month"], as_index=False)[
             ["expected_returns", "expected_returns_product_model", "expected_unreported_returns",
@@ -134,6 +267,7 @@ def reserve_by_build_month(
     )
     summary = summary.assign(cost_to_date=summary["cost_to_date"] + summary["repeat_cost_to_date"])
     table = summary.merge(expected, on=["product", "build_month"], how="left")
+    table = table.merge(_timed_claims(forecast, timing), on=["product", "build_month"], how="left")
     table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
     table["forecast_status"] = table["product"].map(forecast_status).fillna("no forecast")
     has_forecast = table["product"].isin(list(forecast_products))
@@ -145,7 +279,21 @@ def reserve_by_build_month(
     table["expected_future_claims"] = (
         table["expected_future_returns"] + table["expected_unreported_returns"] + table["expected_repeat_claims"]
     )
-    table["reserve"] = table["expected_future_claims"] * table["cost_per_claim"]
+    # the months' factors as a claims-weighted mean: a build month's reserve is exactly claims x cost at
+    # rate 0 (x / x is 1 in floating point), and sum(claims x cost x factor) otherwise
+    claims = table["claims"].fillna(0.0)
+    has_claims = claims > 0
+
+    def mean_factor(column: str) -> pd.Series:
+        return pd.Series(np.where(has_claims, table[column] / claims.where(has_claims, 1.0), 1.0), index=table.index)
+
+    priced = table["expected_future_claims"] * table["cost_per_claim"]
+    table["reserve"] = priced * mean_factor("inflated")
+    table["reserve_discounted"] = priced * mean_factor("discounted")
+    for column in ("current", "non_current", "current_discounted", "non_current_discounted"):
+        part = table[column].where(has_claims, 0.0 if as_of_date is not None else np.nan)
+        table[f"reserve_{column}"] = np.where(has_forecast, part * table["cost_per_claim"], np.nan)
+    table["currency"] = settings.currency
     # what a flagged build month's own life adds to (or takes from) the reserve its product's model gives
     table["reserve_added_by_flagged_month"] = (
         table["expected_future_returns"] - table["expected_future_returns_product_model"]
@@ -166,27 +314,43 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
         expected_repeat_claims=("expected_repeat_claims", lambda s: s.sum(min_count=len(s))),
         expected_future_claims=("expected_future_claims", lambda s: s.sum(min_count=len(s))),
         reserve=("reserve", lambda s: s.sum(min_count=len(s))),
+        **{c: (c, lambda s: s.sum(min_count=len(s))) for c in (
+            "reserve_discounted", "reserve_current", "reserve_non_current", "reserve_current_discounted",
+            "reserve_non_current_discounted",
+        )},
         reserve_added_by_flagged_months=("reserve_added_by_flagged_month", lambda s: s.sum(min_count=len(s))),
         cost_per_claim=("cost_per_claim", "first"),
+        currency=("currency", "first"),
         cost_basis=("cost_basis", "first"),
         forecast_status=("forecast_status", "first"),
     )
     return sums
 
 
-def costed_forecast(forecast: pd.DataFrame, costs: pd.DataFrame) -> pd.DataFrame:
+def costed_forecast(
+    forecast: pd.DataFrame,
+    costs: pd.DataFrame,
+    settings: ReserveSettings | None = None,
+    as_of_date: dt.date | None = None,
+) -> pd.DataFrame:
     """`forecast` (expected returns per product x build month x month) with expected_cost in currency units:
     expected claims (first failures + not yet reported + repeat; expected returns when the forecast has no
-    expected_claims) x the product's cost per claim (empty where the product has no cost per claim)."""
+    expected_claims) x the product's cost per claim x the month's inflation factor (empty where the product
+    has no cost per claim), and expected_cost_discounted (x the month's discount factor too); see
+    claim_timing. `settings` defaults to ReserveSettings() (rates 0: factors 1)."""
+    settings = settings if settings is not None else ReserveSettings()
     priced = forecast.merge(costs[["product", "cost_per_claim"]], on="product", how="left")
     claims = priced["expected_claims"] if "expected_claims" in priced else priced["expected_returns"]
-    priced["expected_cost"] = claims * priced["cost_per_claim"]
+    timing = claim_timing(priced["month"], as_of_date, settings)
+    factors = pd.to_datetime(priced["month"]).dt.date.to_frame().merge(timing, on="month", how="left")
+    priced["expected_cost"] = claims * priced["cost_per_claim"] * factors["inflation_factor"].to_numpy()
+    priced["expected_cost_discounted"] = priced["expected_cost"] * factors["discount_factor"].to_numpy()
     return priced.drop(columns="cost_per_claim")
 
 
 @dataclass(frozen=True)
 class ReserveResult:
-    """The reserve stage's tables (currency units of the claims extract)."""
+    """The reserve stage's tables (currency units of the claims extract, code in their currency column)."""
 
     costs: pd.DataFrame  # cost per claim by product, with its basis
     forecast: pd.DataFrame  # expected returns and their cost per product x build month x calendar month
@@ -216,13 +380,19 @@ def book_reserve(
     forecast_status: Mapping[str, str],
     forecast_products: Collection[str],
     settings: ReserveSettings,
+    as_of_date: dt.date | None = None,
 ) -> ReserveResult:
-    """The whole reserve stage: cost per claim, the costed forecast, the reserve per build month and product."""
+    """The whole reserve stage: cost per claim, the costed forecast, the reserve per build month and product.
+
+    `as_of_date`: where inflation and discounting start and the current / non-current split falls; required
+    when a rate is not 0 (without it the split columns are empty)."""
     costs = cost_per_claim_by_product(claim_costs, cohort_summary["product"], settings)
-    by_build_month = reserve_by_build_month(cohort_summary, forecast, costs, forecast_status, forecast_products)
+    by_build_month = reserve_by_build_month(
+        cohort_summary, forecast, costs, forecast_status, forecast_products, settings=settings, as_of_date=as_of_date
+    )
     return ReserveResult(
         costs=costs,
-        forecast=costed_forecast(forecast, costs),
+        forecast=costed_forecast(forecast, costs, settings, as_of_date),
         by_build_month=by_build_month,
         by_product=reserve_by_product(by_build_month),
     )
@@ -244,7 +414,9 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     reserve_lower / _median / _upper: quantiles of those failures' total cost (with the spread of single
     claim costs and of their mean) plus the expected cost of the claims not yet reported and of the repeat
     claims, which enter at their expectation (about 1-2% of the reserve on the demo; their own spread is
-    left out), to the cent. Products or build months without an interval keep NaN."""
+    left out), times the reserve's inflation factor (reserve over expected_future_claims x cost_per_claim:
+    exact for the expected timing of the claims, 1 at rate 0), to the cent. They are not discounted: set
+    them beside `reserve`, not `reserve_discounted`. Products or build months without an interval keep NaN."""
     keys = ["product", "build_month"]
     intervals = prediction.by_build_month.loc[:, [*keys, *INTERVAL_COLUMNS]].copy()
     intervals["build_month"] = pd.to_datetime(intervals["build_month"]).dt.date
@@ -253,19 +425,30 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     beyond_first = (by_build_month["expected_unreported_returns"] + by_build_month["expected_repeat_claims"]) * (
         by_build_month["cost_per_claim"]
     )
+    inflation = _inflation_factor(by_build_month["reserve"], by_build_month["expected_future_claims"] * by_build_month["cost_per_claim"])
     # quantiles of simulated currency sums, kept to the cent: the simulation's sums may differ in their last
     # bits between processes (summation order), and a rerun must write identical tables
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
-        by_build_month[column] = (by_build_month[column].astype(float) + beyond_first).round(2)
+        by_build_month[column] = ((by_build_month[column].astype(float) + beyond_first) * inflation).round(2)
     product_reserve = prediction.reserve_by_product.loc[:, ["product", "reserve_lower", "reserve_median", "reserve_upper"]]
     horizon = prediction.by_product[prediction.by_product["horizon"] == "to_warranty_end"].rename(
         columns={"lower": "returns_lower", "median": "returns_median", "upper": "returns_upper"}
     )[["product", "returns_lower", "returns_median", "returns_upper"]]
     by_product = result.by_product.drop(columns=[c for c in INTERVAL_COLUMNS if c in result.by_product])
     by_product = by_product.merge(horizon, on="product", how="left").merge(product_reserve, on="product", how="left")
-    beyond = by_product["reserve"] - by_product["expected_future_returns"] * by_product["cost_per_claim"]
+    # the product's reserve without inflation, summed as reserve_by_product sums the reserve (the same bits
+    # at rate 0)
+    uninflated = (
+        result.by_build_month.assign(
+            uninflated=result.by_build_month["expected_future_claims"] * result.by_build_month["cost_per_claim"]
+        )
+        .groupby("product")["uninflated"].agg(lambda s: s.sum(min_count=len(s)))
+    )
+    product_uninflated = by_product["product"].map(uninflated).astype(float)
+    beyond = product_uninflated - by_product["expected_future_returns"] * by_product["cost_per_claim"]
+    inflation = _inflation_factor(by_product["reserve"], product_uninflated)
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
-        by_product[column] = (by_product[column].astype(float) + beyond).round(2)
+        by_product[column] = ((by_product[column].astype(float) + beyond) * inflation).round(2)
     calendar = result.forecast.assign(month=pd.to_datetime(result.forecast["month"]).dt.date).groupby(
         ["product", "month"], as_index=False
     )[["expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims"]].sum()
@@ -275,4 +458,12 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     return (
         ReserveResult(costs=result.costs, forecast=result.forecast, by_build_month=by_build_month, by_product=by_product),
         calendar.sort_values(["product", "month"], ignore_index=True),
+    )
+
+
+def _inflation_factor(reserve: pd.Series, uninflated: pd.Series) -> pd.Series:
+    """reserve / uninflated where the uninflated amount is positive, else 1 (exactly 1 at rate 0)."""
+    positive = uninflated.fillna(0.0) > 0
+    return pd.Series(
+        np.where(positive, reserve / uninflated.where(positive, 1.0), 1.0), index=reserve.index
     )
