@@ -213,6 +213,7 @@ def test_thin_data_configuration_uses_fixed_shapes_and_alternative_forecasts(tmp
     config.write_text(
         "[life_model]\nmin_returns = 100000\nforecast_model = \"lognormal\"\n"
         "[life_model.fixed_shape_by_product]\nQHT-360 = 2.5\n"
+        "[forecast]\nprediction_draws = 200\n"  # the intervals are not what this test reads
     )
     out = tmp_path / "out"
     assert run("--config", str(config), "--out", str(out), "--no-charts") == exit_codes.SUCCESS
@@ -233,7 +234,7 @@ def test_thin_data_configuration_uses_fixed_shapes_and_alternative_forecasts(tmp
 @pytest.mark.parametrize("forecast_model", ["lognormal", "failure_modes"])
 def test_forecast_model_choice(tmp_path, demo_out, forecast_model):
     config = tmp_path / "settings.toml"
-    config.write_text(f"[life_model]\nforecast_model = \"{forecast_model}\"\n")
+    config.write_text(f"[life_model]\nforecast_model = \"{forecast_model}\"\n[forecast]\nprediction_draws = 200\n")
     out = tmp_path / "out"
     assert run("--config", str(config), "--out", str(out), "--no-charts") == exit_codes.SUCCESS
     totals = pd.read_parquet(out / "reserve_by_product.parquet").set_index("product")
