@@ -12,6 +12,13 @@ $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e '.[test]'
+	@# the headless browser of tests/test_html_report.py (Debian's chromium), installed when missing and we
+	@# are root with apt-get; otherwise skipped quietly (the browser tests then skip, or fail when CI is set)
+	@if [ ! -x /usr/bin/chromium ] && command -v apt-get >/dev/null 2>&1 && [ "$$(id -u)" = 0 ]; then \
+		echo "installing chromium (apt-get) for the report.html browser tests"; \
+		{ apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; } \
+			|| echo "chromium could not be installed: the report.html browser tests will skip (or fail under CI)"; \
+	fi
 	touch $(STAMP)
 
 setup: $(STAMP)

@@ -33,7 +33,7 @@ EXPECTED_FILES = {
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
     "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
     "reporting_delay.parquet", "forecast_by_calendar_month.parquet", "forecast_intervals.parquet",
-    "cumulative_returns_per_unit.png",
+    "cumulative_returns_per_unit.png", "report.html",
 }
 
 

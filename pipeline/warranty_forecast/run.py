@@ -22,7 +22,8 @@ from typing import Callable, TypeVar
 from warranty_forecast.config import RunConfig, check_products_in_data
 from warranty_forecast.outputs import charts
 from warranty_forecast.outputs.manifest import RunManifest, run_manifest
-from warranty_forecast.outputs.publish import publish_outputs
+from warranty_forecast.outputs.html_report import render_html_report
+from warranty_forecast.outputs.publish import figure_png, publish_outputs
 from warranty_forecast.outputs.report import render_report
 from warranty_forecast.stages.build_month_alerts import alert_build_months
 from warranty_forecast.stages.forecasting import forecast_returns
@@ -207,7 +208,27 @@ def run_nightly(config: RunConfig) -> RunResult:
         quarantine=shaped.quarantine,
         warnings=list(warnings),
     )
-    written = publish_outputs(config.out_dir, tables, figures, {"report.md": report}, manifest.to_document())
+    # each chart drawn to PNG once: the same bytes go to <name>.png and into report.html, in one publish
+    pngs = {name: figure_png(figure) for name, figure in figures.items()}
+    report_html = render_html_report(
+        manifest=manifest,
+        life_model=lives.table,
+        build_month_alerts=alerts.table,
+        reserve_totals=reserve.by_product,
+        reconciliation=shaped.reconciliation,
+        quarantine=shaped.quarantine,
+        warnings=list(warnings),
+        charts=pngs,
+        charts_drawn=config.draw_charts,
+        build_month_causes=alerts.causes,
+        flagged_month_lives=forecast.flagged_month_lives,
+        reporting_delay=delays.table,
+        forecast_intervals=prediction.by_product,
+        safety_term_claims=shaped.safety_term_claims,
+    )
+    written = publish_outputs(
+        config.out_dir, tables, pngs, {"report.md": report, "report.html": report_html}, manifest.to_document()
+    )
     log.info("stage %-9s %d files to %s in %.2f s", "publish", len(written) + 1, config.out_dir,
              time.perf_counter() - started)
     return RunResult(config.out_dir, shaped.as_of_date, manifest, warnings)

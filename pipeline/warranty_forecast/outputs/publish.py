@@ -22,6 +22,7 @@ import ctypes
 import errno
 import fcntl
 import hashlib
+import io
 import json
 import logging
 import os
@@ -62,6 +63,13 @@ def sha256_of(path: Path) -> str:
         for block in iter(lambda: handle.read(1 << 20), b""):
             digest.update(block)
     return digest.hexdigest()
+
+
+def figure_png(figure: Figure) -> bytes:
+    """The PNG bytes the run publishes for a figure (110 dpi, no software stamp, so reruns match)."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=110, metadata={"Software": None})
+    return buffer.getvalue()
 
 
 def producer() -> dict[str, str]:
@@ -230,13 +238,14 @@ def recover_leftovers(folder: Path) -> list[str]:
 def publish_outputs(
     out_dir: Path,
     tables: Mapping[str, pd.DataFrame],
-    figures: Mapping[str, Figure],
+    figures: Mapping[str, Figure | bytes],
     texts: Mapping[str, str],
     manifest: Mapping[str, Any],
 ) -> dict[str, dict[str, Any]]:
     """Write all outputs to `out_dir` atomically; return what was written (file -> sha256, bytes, rows).
 
-    Tables go to `<name>.parquet`, figures to `<name>.png`, texts to the given file names; the
+    Tables go to `<name>.parquet`, figures to `<name>.png` (a Figure is drawn with `figure_png`; bytes, its
+    PNG drawn earlier, are written as they are), texts to the given file names; the
     manifest (with the producer marker first and the written files under "outputs") goes to
     manifest.json, last. Takes the folder's lock unless this process already holds it.
     """
@@ -251,7 +260,7 @@ def publish_outputs(
                 written[path.name] = {"rows": int(len(frame))}
             for name, figure in figures.items():
                 path = incoming / f"{name}.png"
-                figure.savefig(path, dpi=110, metadata={"Software": None})
+                path.write_bytes(figure if isinstance(figure, bytes) else figure_png(figure))
                 written[path.name] = {}
             for file_name, text in texts.items():
                 (incoming / file_name).write_text(text, encoding="utf-8")
