@@ -12,6 +12,7 @@ an exception, so every clean-up runs, and exit 128 + the signal number.
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import logging
 import signal
 import sys
@@ -237,10 +238,43 @@ class OneLineFormatter(logging.Formatter):
         return one_line(super().formatMessage(record))
 
 
-def configure_logging(*, verbose: bool) -> None:
-    """Log to stderr, one line per record, for the whole process (the only place that configures logging)."""
-    handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(OneLineFormatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+class ScheduledFormatter(OneLineFormatter):
+    """One line per record for a scheduler's log: ISO 8601 local time with its UTC offset (the zone), level,
+    logger, message; e.g. `2026-12-03T07:05:12.345+01:00 INFO warranty_forecast.run: stage fit ...`."""
+
+    def __init__(self) -> None:
+        super().__init__("%(asctime)s %(levelname)s %(name)s: %(message)s")
+
+    def formatTime(self, record: logging.LogRecord, datefmt: str | None = None) -> str:  # noqa: N802
+        return dt.datetime.fromtimestamp(record.created).astimezone().isoformat(timespec="milliseconds")
+
+
+class TerminalFormatter(OneLineFormatter):
+    """Stage-by-stage progress for a person at a terminal: the time of day, then the message (warnings and
+    errors named as such); still one line per record."""
+
+    def __init__(self) -> None:
+        super().__init__("%(asctime)s %(message)s", datefmt="%H:%M:%S")
+
+    def formatMessage(self, record: logging.LogRecord) -> str:  # noqa: N802
+        text = super().formatMessage(record)
+        if record.levelno >= logging.WARNING:
+            time_of_day, _, message = text.partition(" ")
+            text = f"{time_of_day} {record.levelname}: {message}"
+        return text
+
+
+def configure_logging(*, verbose: bool, stream=None, interactive: bool | None = None) -> None:  # type: ignore[no-untyped-def]
+    """Log to stderr (or `stream`), one line per record, for the whole process (the only place that
+    configures logging). On a terminal (`interactive`, default: the stream is a TTY) the lines are short
+    stage-by-stage progress; otherwise (a scheduled run) each line carries its timestamp with the UTC
+    offset of the zone it was written in."""
+    stream = sys.stderr if stream is None else stream
+    if interactive is None:
+        is_tty = getattr(stream, "isatty", None)
+        interactive = bool(is_tty()) if callable(is_tty) else False
+    handler = logging.StreamHandler(stream)
+    handler.setFormatter(TerminalFormatter() if interactive else ScheduledFormatter())
     logging.basicConfig(level=logging.DEBUG if verbose else logging.INFO, handlers=[handler], force=True)
     logging.getLogger("matplotlib").setLevel(logging.WARNING)
 
