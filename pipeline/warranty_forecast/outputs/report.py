@@ -15,14 +15,15 @@ from warranty_forecast.outputs.manifest import RunManifest
 from warranty_forecast.outputs.safe_text import markdown_text
 
 CAUTIONS = (
-    "Reserve figures are statistical estimates (expected future returns x cost per claim, undiscounted, "
-    "no inflation, no prediction interval yet). They are for review by finance and auditors before anything "
-    "is booked, under the accounting rules that apply to you.",
+    "Reserve figures are statistical estimates (expected future claims x cost per claim, inflated and "
+    "discounted only as configured in [reserve]; their prediction intervals leave out the risk that the model "
+    "itself is wrong). They are for review by finance and auditors before anything is booked, under the "
+    "accounting rules that apply to you.",
     "A flagged build month or a poor fit is a statistical signal, not a finding. Anything that may touch "
     "safety goes to qualified engineers and is handled under local regulations; do not wait for this report.",
-    "The model assumes one Weibull life per product, independent units and a complete claims extract up to "
-    "the as-of date. Claims still in the reporting pipeline, recalls, design changes and field campaigns "
-    "are not in the data and can make the forecast too low.",
+    "The model assumes one Weibull life per product, independent units and a claims extract complete up to "
+    "the as-of date but for the usual filing delay (estimated and allowed for). Recalls, design changes, "
+    "field campaigns and a change of filing habits are not in the data and can make the forecast too low.",
 )
 
 
