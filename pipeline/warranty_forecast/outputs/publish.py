@@ -244,7 +244,7 @@ def publish_outputs(
 ) -> dict[str, dict[str, Any]]:
     """Write all outputs to `out_dir` atomically; return what was written (file -> sha256, bytes, rows).
 
-    Tables go to `<name>.parquet`, figures to `<name>.png` (a Figure is drawn with `figure_png`; bytes, its
+    Tables go to `<name>.parquet`, figures to `<name>.png` (a Figure is drawn as `figure_png` draws it; bytes, its
     PNG drawn earlier, are written as they are), texts to the given file names; the
     manifest (with the producer marker first and the written files under "outputs") goes to
     manifest.json, last. Takes the folder's lock unless this process already holds it.
@@ -260,7 +260,10 @@ def publish_outputs(
                 written[path.name] = {"rows": int(len(frame))}
             for name, figure in figures.items():
                 path = incoming / f"{name}.png"
-                path.write_bytes(figure if isinstance(figure, bytes) else figure_png(figure))
+                if isinstance(figure, bytes):
+                    path.write_bytes(figure)
+                else:  # the same settings as figure_png
+                    figure.savefig(path, dpi=110, metadata={"Software": None})
                 written[path.name] = {}
             for file_name, text in texts.items():
                 (incoming / file_name).write_text(text, encoding="utf-8")
