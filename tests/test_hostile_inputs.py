@@ -398,6 +398,8 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
     assert manifest["as_of_date"] <= dt.date.today().isoformat()
     report = (out / "report.md").read_text(encoding="utf-8")
     assert "<script>" not in report
+    page = (out / "report.html").read_text(encoding="utf-8")  # the HTML report: no tag from the data survives
+    assert "<script" not in page.lower() and "onerror=" not in page.lower()
     for line in log.splitlines():  # every log record is one line that starts with its timestamp
         assert line[:4].isdigit() or line.startswith(("usage:", "warranty-forecast:")), line
 
