@@ -212,6 +212,7 @@ def test_likelihood_ratio_bounds_respect_reparameterisation():
 # ---------------------------------------------------------------------------------------------
 
 
+@pytest.mark.slow  # a coverage simulation (10-15 s each): `pytest -m slow` runs it
 @pytest.mark.parametrize(("shape", "scale"), [(1.5, 60.0), (0.8, 200.0)])
 def test_coverage_of_likelihood_ratio_intervals(shape, scale):
     """300 seeded warranty data sets (36 sale months, monthly interval-censored returns, 24-month
