@@ -368,9 +368,10 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
     shutil.copytree(previous_outputs, out)
     before = _snapshot(out)
 
-    # charts are drawn where the hostile text reaches them (names, codes); elsewhere skipped to keep the
-    # suite fast (the charts' own escaping is tested in test_safe_text and test_charts)
-    charts = [] if any(word in kind for word in ("product", "code", "markup", "line break", "bytes")) else ["--no-charts"]
+    # charts (and their place in report.html) are drawn in the one case whose product name holds a pipe,
+    # a newline and a script tag together; elsewhere skipped to keep the suite fast (the charts' own
+    # escaping of every kind of hostile name is tested in test_safe_text and test_charts)
+    charts = [] if kind == "product with pipe, newline and script" else ["--no-charts"]
     code = main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), *case.arguments,
                  *charts])
     log = capsys.readouterr().err
