@@ -33,7 +33,7 @@ EXPECTED_FILES = {
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
     "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
     "reporting_delay.parquet", "forecast_by_calendar_month.parquet", "forecast_intervals.parquet",
-    "cumulative_returns_per_unit.png", "report.html",
+    "cumulative_returns_per_unit.png", "report.html", "reserve_by_product.csv", "reserve.csv",
 }
 
 
@@ -51,6 +51,17 @@ def test_demo_run_writes_every_output(demo_out):
     assert {p.name for p in demo_out.iterdir()} == EXPECTED_FILES
     assert [p.name for p in demo_out.parent.iterdir() if p.name.startswith(".")] == [".out.lock"]  # no leftovers
     assert json.loads((demo_out / "manifest.json").read_text())["producer"]["name"] == "warranty-forecast"
+    # every table says which run wrote it (README, Outputs): the manifest's run_id and the as-of date first
+    run_id = json.loads((demo_out / "manifest.json").read_text())["run_id"]
+    assert run_id.startswith("2026-11-30-") and len(run_id) == len("2026-11-30-") + 12
+    for path in demo_out.glob("*.parquet"):
+        frame = pd.read_parquet(path)
+        assert list(frame.columns[:2]) == ["run_id", "as_of_date"], path.name
+        assert (frame["run_id"] == run_id).all() and (frame["as_of_date"] == pd.Timestamp("2026-11-30").date()).all()
+    spreadsheet = pd.read_csv(demo_out / "reserve_by_product.csv")
+    parquet = pd.read_parquet(demo_out / "reserve_by_product.parquet")
+    assert list(spreadsheet.columns) == list(parquet.columns)
+    assert spreadsheet["reserve"].tolist() == pytest.approx(parquet["reserve"].tolist(), rel=1e-15)
     manifest = json.loads((demo_out / "manifest.json").read_text())
     assert manifest["as_of_date"] == "2026-11-30"
     assert set(manifest["outputs"]) == EXPECTED_FILES - {"manifest.json"}

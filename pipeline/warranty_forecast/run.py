@@ -69,6 +69,12 @@ class _StageClock:
         return time.perf_counter() - self._started
 
 
+def stamped(frame, run_id: str, as_of_date: dt.date):  # type: ignore[no-untyped-def]
+    """`frame` with the run's id and as-of date as its first two columns (run_id, as_of_date)."""
+    body = frame.drop(columns=[c for c in ("run_id", "as_of_date") if c in frame.columns])
+    return body.assign(run_id=run_id, as_of_date=as_of_date)[["run_id", "as_of_date", *body.columns]]
+
+
 def run_nightly(config: RunConfig) -> RunResult:
     """Run every stage for one configuration and publish the outputs atomically."""
     clock = _StageClock()
@@ -226,9 +232,15 @@ def run_nightly(config: RunConfig) -> RunResult:
         forecast_intervals=prediction.by_product,
         safety_term_claims=shaped.safety_term_claims,
     )
-    written = publish_outputs(
-        config.out_dir, tables, pngs, {"report.md": report, "report.html": report_html}, manifest.to_document()
-    )
+    # every published table says which run wrote it, so nightly outputs can be stacked; the reserve also as
+    # CSV for people who open files in a spreadsheet
+    tables = {name: stamped(frame, manifest.run_id, manifest.as_of_date) for name, frame in tables.items()}
+    texts = {
+        "report.md": report, "report.html": report_html,
+        "reserve_by_product.csv": tables["reserve_by_product"].to_csv(index=False, lineterminator="\n"),
+        "reserve.csv": tables["reserve"].to_csv(index=False, lineterminator="\n"),
+    }
+    written = publish_outputs(config.out_dir, tables, pngs, texts, manifest.to_document())
     log.info("stage %-9s %d files to %s in %.2f s", "publish", len(written) + 1, config.out_dir,
              time.perf_counter() - started)
     return RunResult(config.out_dir, shaped.as_of_date, manifest, warnings)

@@ -6,6 +6,8 @@ producer marker and the written files added; the report reads it.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+import json
 import platform
 from dataclasses import dataclass
 from importlib import metadata
@@ -56,9 +58,26 @@ class RunManifest:
     seconds_by_sql_layer: Mapping[str, float]
     versions: Mapping[str, str]
 
+    @property
+    def run_id(self) -> str:
+        """The run's id: its as-of date and a fingerprint of what it computed from (the extracts' SHA-256, the
+        settings in force, the package version), e.g. `2026-11-30-3f9a0c1b2d4e`. A rerun with the same
+        inputs, settings and as-of date has the same id; the run date and the timings do not enter it."""
+        basis = json.dumps(
+            {
+                "as_of_date": self.as_of_date.isoformat(),
+                "inputs": [[item.extract, item.sha256] for item in self.inputs],
+                "settings": self.settings,
+                "version": self.versions.get("warranty-forecast", ""),
+            },
+            sort_keys=True, default=str,
+        )
+        return f"{self.as_of_date.isoformat()}-{hashlib.sha256(basis.encode('utf-8')).hexdigest()[:12]}"
+
     def to_document(self) -> dict[str, Any]:
         """The manifest as JSON-ready data, in the order manifest.json shows it."""
         return {
+            "run_id": self.run_id,
             "as_of_date": self.as_of_date.isoformat(),
             "as_of_source": self.as_of_source,
             "run_date": self.run_date.isoformat(),
