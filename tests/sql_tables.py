@@ -10,6 +10,21 @@ import datetime as dt
 from warranty_forecast.stages import sql_runner
 
 
+# column types of two intermediate models, for tables standing in for them
+CLOCKED_CLAIMS = {
+    "source_row_number": "bigint", "claim_id": "varchar", "product": "varchar", "build_month": "date",
+    "failure_date": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
+    "failure_code": "varchar", "serial": "varchar", "is_unit_found": "boolean", "unit_sale_month": "date",
+    "unit_warranty_months": "integer", "warranty_start_date": "date", "is_sale_date_imputed": "boolean",
+    "claim_sale_month": "date", "age_months": "double", "months_in_service": "integer", "is_quarantined": "boolean",
+    "problem_column": "varchar", "problem_reason": "varchar", "problem_detail": "varchar",
+}
+SALE_MONTH_GROUPS = {
+    "product": "varchar", "build_month": "date", "sale_month": "date", "warranty_months": "integer",
+    "units": "bigint", "units_in_channel": "bigint",
+}
+
+
 def d(text: str) -> dt.date:
     return dt.date.fromisoformat(text if len(text) > 7 else f"{text}-01")
 

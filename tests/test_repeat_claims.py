@@ -18,7 +18,7 @@ import pandas as pd
 import pytest
 
 from warranty_forecast.stages import sql_runner
-from sql_tables import d, table  # tests/sql_tables.py
+from sql_tables import CLOCKED_CLAIMS, SALE_MONTH_GROUPS, d, table  # tests/sql_tables.py
 from warranty_forecast.stages.forecast import expected_future_returns, forecast_by_month
 from warranty_forecast.stages.repeat_claims import (
     REPEAT_FORECAST_COLUMNS,
@@ -33,18 +33,6 @@ from warranty_forecast.stages.repeat_claims import (
 MONTH = 365.25 / 12  # days in a month of service
 AS_OF = dt.date(2024, 12, 31)
 
-CLOCKED_CLAIMS = {
-    "source_row_number": "bigint", "claim_id": "varchar", "product": "varchar", "build_month": "date",
-    "failure_date": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
-    "failure_code": "varchar", "serial": "varchar", "is_unit_found": "boolean", "unit_sale_month": "date",
-    "unit_warranty_months": "integer", "warranty_start_date": "date", "is_sale_date_imputed": "boolean",
-    "claim_sale_month": "date", "age_months": "double", "months_in_service": "integer", "is_quarantined": "boolean",
-    "problem_column": "varchar", "problem_reason": "varchar", "problem_detail": "varchar",
-}
-SALE_MONTH_GROUPS = {
-    "product": "varchar", "build_month": "date", "sale_month": "date", "warranty_months": "integer",
-    "units": "bigint", "units_in_channel": "bigint",
-}
 
 
 def table_from_frame(con, name: str, columns: dict[str, str], frame: pd.DataFrame) -> None:

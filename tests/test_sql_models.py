@@ -13,7 +13,7 @@ import json
 import pytest
 
 from warranty_forecast.stages import sql_runner
-from sql_tables import d, run, table  # tests/sql_tables.py
+from sql_tables import CLOCKED_CLAIMS, SALE_MONTH_GROUPS, d, run, table  # tests/sql_tables.py
 from warranty_forecast.stages.shaping import ShapedData
 
 AS_OF = dt.date(2024, 12, 31)
@@ -184,18 +184,6 @@ def test_claims_on_warranty_clock(con):
     assert ages[1] == pytest.approx(43 / MONTH, rel=1e-12) and ages[3] == 0
 
 
-CLOCKED_CLAIMS = {
-    "source_row_number": "bigint", "claim_id": "varchar", "product": "varchar", "build_month": "date",
-    "failure_date": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
-    "failure_code": "varchar", "serial": "varchar", "is_unit_found": "boolean", "unit_sale_month": "date",
-    "unit_warranty_months": "integer", "warranty_start_date": "date", "is_sale_date_imputed": "boolean",
-    "claim_sale_month": "date", "age_months": "double", "months_in_service": "integer", "is_quarantined": "boolean",
-    "problem_column": "varchar", "problem_reason": "varchar", "problem_detail": "varchar",
-}
-SALE_MONTH_GROUPS = {
-    "product": "varchar", "build_month": "date", "sale_month": "date", "warranty_months": "integer",
-    "units": "bigint", "units_in_channel": "bigint",
-}
 
 
 def test_claims_assigned_to_sale_month_groups(con):
