@@ -3,7 +3,8 @@
 extracts -> shaped (DuckDB) -> reporting delay (fit frames completed with the failures not yet reported)
 -> screening fits -> build-month alerts (on the reported returns) -> lives (fits without the flagged build
 months) -> forecast (flagged months with their own life; not-yet-reported and repeat claims) -> reserve
--> diagnostics and charts -> report, manifest -> publish (atomic)
+-> prediction intervals -> diagnostics and charts -> reports (Markdown, HTML), manifest -> publish (atomic;
+every table stamped with the run id and as-of date)
 
 Every decision sits in the stage that owns it (which model forecasts: `stages.forecasting`; pricing:
 `stages.reserve`; what to warn about: each stage's `warnings`); this module only wires them together,

@@ -128,10 +128,16 @@ def forecast_returns(
     )
     detail = expected_future_returns(shaped.fit_suspensions, models, month_models)
     by_month = forecast_by_month(detail)
-    product_model = (
-        forecast_by_month(expected_future_returns(shaped.fit_suspensions, models)) if month_models else
-        by_month.copy()
-    )
+    product_model = by_month.copy()
+    if month_models:
+        # only the flagged build months differ under the product's model alone: recompute those rows only
+        def flagged(frame: pd.DataFrame) -> list[bool]:
+            return [key in month_models for key in zip(frame["product"], frame["build_month"])]
+
+        suspensions = shaped.fit_suspensions
+        flagged_alone = forecast_by_month(expected_future_returns(suspensions[flagged(suspensions)], models))
+        unflagged = product_model[[not f for f in flagged(product_model)]]
+        product_model = pd.concat([unflagged, flagged_alone], ignore_index=True)
     by_month = by_month.merge(
         product_model.rename(columns={"expected_returns": "expected_returns_product_model"}),
         on=["product", "build_month", "month"], how="outer",

@@ -57,6 +57,7 @@ taken as known (no variance from its estimate). Ages in months of 365.25/12 days
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import logging
 import math
@@ -891,8 +892,6 @@ def reporting_delay_stage(shaped, settings, life_model: LifeModelSettings) -> De
     """The run's reporting-delay step: estimate each product's failure-to-claim delay from
     shaped.claim_reporting_delays, fit on the likelihood that allows for it (Kalbfleisch, Lawless &
     Robinson 1991) and complete the fit frames; `settings` is the run's ForecastSettings."""
-    import dataclasses
-
     if not settings.correct_reporting_delay:
         return DelayStage(shaped=shaped, correction=None)
     warranty = shaped.cohort_summary.groupby("product")["max_warranty_months"].max().to_dict()
