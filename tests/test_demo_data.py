@@ -22,7 +22,9 @@ from warranty_forecast.tools.demo_scenario import CLAIM_COLUMNS, DEFAULT_SEED, S
 AS_OF = pd.Timestamp("2026-11-30")
 DAYS_PER_MONTH = 365.25 / 12
 FILES = ["shipments.parquet", "claims.csv", "planted_defects.csv", "truth.json", "README.md"]
-STATUSES = {"approved", "rejected", "no_fault_found"}
+STATUSES = {"approved", "rejected", "no_fault_found", "open", "pending"}
+OPEN = {"open", "pending"}  # filed, not yet decided: cost may be empty (its estimate not given yet)
+APPROVED_OR_OPEN = ["approved", "open", "pending"]  # the demo's open claims are all to be approved
 REPO_DATA = Path(__file__).resolve().parents[1] / "data_demo"
 
 
@@ -105,6 +107,7 @@ def claim_violations(claims: pd.DataFrame, good_shipments: pd.DataFrame) -> pd.D
     out: dict[tuple[str, str], pd.Series] = {}
     for col in ("claim_id", "product", "build_month", "failure_date", "claim_date", "cost", "status"):
         out[("missing_value", col)] = claims[col].isna()
+    out[("missing_value", "cost")] &= ~claims["status"].str.lower().isin(OPEN).fillna(False)
     out[("unparseable_value", "build_month")] = claims["build_month"].notna() & start.isna()
     for col, parsed in (("sale_date", sale), ("failure_date", failure), ("claim_date", claim)):
         out[("unparseable_value", col)] = claims[col].notna() & parsed.isna()
@@ -304,6 +307,20 @@ def test_claims_content(claims_file: pd.DataFrame, planted: pd.DataFrame, demo: 
     assert lag.between(0, 60).all() and 4 < lag.mean() < 8
 
 
+def test_open_claims_are_recent_with_estimates(claims_file: pd.DataFrame, planted: pd.DataFrame) -> None:
+    # the demo's open claims: filed within its decision window (28 days) before the as-of date, some
+    # pending, most with an estimated cost (a whole multiple of 10), some without
+    good = _good(claims_file, planted, "claims.csv")
+    still_open = good[good["status"].isin(OPEN)]
+    assert 100 < len(still_open) < 1000 and set(still_open["status"]) == OPEN
+    filed = _parse_dates(still_open["claim_date"])
+    assert ((AS_OF - filed).dt.days <= 28).all()
+    estimate = still_open["cost"].dropna().astype(float)
+    assert 0.6 < len(estimate) / len(still_open) < 0.95
+    assert ((estimate % 10) == 0).all() and (estimate >= 10).all()
+    assert good.loc[~good["status"].isin(OPEN), "cost"].notna().all()
+
+
 # --- the generator against its own closed form ----------------------------------------------------
 
 def _cohort_units(shipments: pd.DataFrame, planted: pd.DataFrame, product: str) -> pd.Series:
@@ -320,7 +337,7 @@ def test_in_warranty_fraction_of_mature_line_1_cohorts(demo: DemoData, shipments
     w = line["warranty_months"]
     p = 1.0 - np.exp(-((w / line["scale_months"]) ** line["shape"]))
     good = _good(claims_file, planted, "claims.csv")
-    mine = good[(good["product"] == product) & (good["status"] == "approved")]
+    mine = good[(good["product"] == product) & good["status"].isin(APPROVED_OR_OPEN)]
     age = (_parse_dates(mine["failure_date"]) - _parse_dates(mine["sale_date"])).dt.days
     in_warranty = mine[age.isna() | (age <= w * DAYS_PER_MONTH)]  # no sale date: counted (goodwill is ~0.1%)
     units = _cohort_units(shipments_file, planted, product)
@@ -336,7 +353,7 @@ def test_defect_build_month_returns_early(demo: DemoData, shipments_file: pd.Dat
     defect = demo.truth["defect"]
     units = _cohort_units(shipments_file, planted, defect["product"])
     good = _good(claims_file, planted, "claims.csv")
-    mine = good[(good["product"] == defect["product"]) & (good["status"] == "approved")]
+    mine = good[(good["product"] == defect["product"]) & good["status"].isin(APPROVED_OR_OPEN)]
     months_from_build = (_parse_dates(mine["failure_date"]) - _build_start(mine["build_month"])).dt.days / DAYS_PER_MONTH
     early = mine[months_from_build <= 8].groupby("build_month").size().reindex(units.index, fill_value=0) / units
     at = list(units.index).index(defect["build_month"])
@@ -350,7 +367,7 @@ def test_defect_build_month_returns_early(demo: DemoData, shipments_file: pd.Dat
 def test_failure_code_shares(demo: DemoData, claims_file: pd.DataFrame, planted: pd.DataFrame) -> None:
     # common practice, no source: code counts are multinomial with the fixed shares (4 standard errors)
     good = _good(claims_file, planted, "claims.csv")
-    approved = good[good["status"] == "approved"]
+    approved = good[good["status"].isin(APPROVED_OR_OPEN)]
     for product, line in demo.truth["product_lines"].items():
         codes = approved.loc[approved["product"] == product, "failure_code"]
         codes = codes[codes.isin(line["failure_code_shares"])]
@@ -368,7 +385,7 @@ def test_rejected_and_no_fault_units_are_survivors(shipments_file: pd.DataFrame,
     assert len(mine) == good["serial"].notna().sum()
     sale = _parse_dates(mine["sale_date_x"]).fillna(mine["sale_date_y"])
     age = (_parse_dates(mine["failure_date"]) - sale).dt.days / DAYS_PER_MONTH
-    failed = mine.loc[(mine["status"] == "approved") & ~(age > mine["warranty_months"]), "serial"]
+    failed = mine.loc[mine["status"].isin(APPROVED_OR_OPEN) & ~(age > mine["warranty_months"]), "serial"]
     spurious = mine.loc[mine["status"].isin(["rejected", "no_fault_found"]), "serial"]
     assert len(failed) > 1000 and len(spurious) > 100
     assert not set(failed) & set(spurious)

@@ -50,7 +50,7 @@ CLAIMS = [
     "C7,A,2024-01,2024-02-01,2024-01-15,2024-03-20,50.00,approved,X,",  # 8 failure before sale
     "C8,A,2024-01,2024-02-01,2024-03-15,2024-03-20,-5,approved,X,",  # 9 negative cost
     "C9,A,2024-01,2024-02-01,2024-03-15,2024-03-10,5,approved,X,",  # 10 claim before failure
-    "C10,A,2024-01,2024-02-01,2024-03-15,2024-03-20,5,pending,X,",  # 11 unknown status
+    "C10,A,2024-01,2024-02-01,2024-03-15,2024-03-20,5,lost,X,",  # 11 unknown status (open, pending are known)
     "C11,A,2024-01,,2023-12-15,2024-03-20,5,approved,X,",  # 12 failure before build month
     "C12,A,2024-01,2024-02-01,2024-02-30,2024-03-20,5,approved,X,",  # 13 unparseable failure date
     ",A,2024-01,2024-02-01,2024-03-15,2024-03-20,5,approved,X,",  # 14 claim_id missing

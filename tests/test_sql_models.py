@@ -504,11 +504,13 @@ ASSIGNED_CLAIMS = {
     "product": "varchar", "build_month": "date", "claim_date": "date", "cost": "decimal(18, 2)", "status": "varchar",
     "is_sale_date_imputed": "boolean", "is_group_reassigned": "boolean", "is_serial_unknown": "boolean",
     "is_counted_status": "boolean", "is_in_coverage": "boolean", "is_return": "boolean", "is_quarantined": "boolean",
-    "is_repeat_claim": "boolean",
+    "is_repeat_claim": "boolean", "is_open_claim": "boolean", "estimated_cost": "decimal(18, 2)",
 }
 RETURN = {"status": "approved", "is_sale_date_imputed": False, "is_group_reassigned": False,
           "is_serial_unknown": False, "is_counted_status": True, "is_in_coverage": True, "is_return": True,
-          "is_quarantined": False, "is_repeat_claim": False}
+          "is_quarantined": False, "is_repeat_claim": False, "is_open_claim": False}
+# a claim filed, not yet decided: counted, its settled cost empty, its extract cost an estimate
+OPEN_RETURN = {**RETURN, "status": "open", "is_open_claim": True, "cost": None}
 # a unit's later counted claim: a claim to pay, not a failed unit (is_return is the unit's first counted claim)
 REPEAT = {**RETURN, "is_return": False, "is_repeat_claim": True}
 
@@ -647,6 +649,7 @@ def test_run_facts(con):
         {**RETURN, "status": "rejected", "is_counted_status": False, "is_in_coverage": False, "is_return": False},
         {**RETURN, "status": "rejected", "is_sale_date_imputed": True, "is_in_coverage": None, "is_return": False,
          "is_quarantined": True},  # left out of every count
+        {**OPEN_RETURN, "status": "pending"},  # filed, not yet decided: a counted return, and an open claim
     ])
     survivors = {"group_units": "bigint", "group_returns": "hugeint"}
     table(con, "sale_month_group_survivors", survivors, [
@@ -660,11 +663,12 @@ def test_run_facts(con):
         "units_in_channel": 9,  # 8.75 rounded
         "units_in_service_sale_date_imputed": 21,  # 21.25 rounded
         "units_sold_after_as_of_sale_date_imputed": 5,
-        "returns_counted": 3,
+        "returns_counted": 4,
         "repeat_claims_counted": 1,
         "claims_out_of_coverage": 1,
         "claims_rejected": 2,
         "claims_no_fault_found": 1,
+        "claims_open": 1,
         "claims_status_not_counted": 3,
         "claims_sale_date_imputed": 1,
         "claims_assigned_to_nearest_sale_month": 1,
@@ -675,7 +679,7 @@ def test_run_facts(con):
                  "sale_month_group_survivors"):
         con.execute(f"delete from {name}")
     facts = run(con, "outputs/run_facts", "fact, count")  # nothing read: every fact is there, as 0
-    assert len(facts) == 15 and {count for _, count in facts} == {0}  # 15 with units_sale_date_imputed
+    assert len(facts) == 16 and {count for _, count in facts} == {0}  # 16 with claims_open
 
 
 def test_claim_cost_by_product(con):
@@ -690,14 +694,26 @@ def test_claim_cost_by_product(con):
         {**REPEAT, "product": "B", "claim_date": d("2023-07-01"), "cost": 40},  # a repeat claim is priced too
         {**RETURN, "product": "C", "claim_date": d("2024-06-01"), "cost": 10, "status": "rejected",
          "is_counted_status": False, "is_return": False},  # no return at all: no row
+        # an open claim: its estimate is not a settled cost (not in the mean, nor in the count)
+        {**OPEN_RETURN, "product": "A", "claim_date": d("2024-12-01"), "estimated_cost": 500},
+        # handled claims (rejected, no fault found, not counted): A one in the window, one before it
+        {**RETURN, "product": "A", "claim_date": d("2024-03-01"), "cost": 0, "status": "rejected",
+         "is_counted_status": False, "is_return": False},
+        {**RETURN, "product": "A", "claim_date": d("2023-03-01"), "cost": 25, "status": "no_fault_found",
+         "is_counted_status": False, "is_in_coverage": False, "is_return": False},  # out of coverage: handled too
+        {**RETURN, "product": "A", "claim_date": d("2024-03-01"), "cost": 0, "status": "rejected",
+         "is_counted_status": False, "is_return": False, "is_quarantined": True},  # quarantined: not counted
+        {**RETURN, "product": "B", "claim_date": d("2024-03-01"), "cost": 25, "status": "no_fault_found",
+         "is_in_coverage": False, "is_return": False},  # a counted status (configured): priced, not handled
     ])
     got = run(
         con, "outputs/claim_cost_by_product",
-        "product, window_returns, window_mean_cost, all_time_returns, all_time_mean_cost",
+        "product, window_returns, window_mean_cost, all_time_returns, all_time_mean_cost, window_handled_claims,"
+        " all_time_handled_claims",
         {"as_of_date": AS_OF, "cost_window_months": 12},
     )
     # hand computation: A (50 + 100) / 2 in the window, (50 + 100 + 30) / 3 all time; B (20 + 40) / 2
-    assert got == [("A", 2, 75.0, 3, 60.0), ("B", 0, None, 2, 30.0)]
+    assert got == [("A", 2, 75.0, 3, 60.0, 1, 2), ("B", 0, None, 2, 30.0, 0, 0)]
 
 
 def test_returns_by_build_month_and_code(con):

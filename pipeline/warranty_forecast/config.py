@@ -17,7 +17,7 @@ import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Mapping, Sequence
+from typing import Any, Callable, ClassVar, Mapping, Sequence
 
 from warranty_forecast.errors import ConfigError
 
@@ -177,9 +177,15 @@ class ShipmentSettings:
 
 @dataclass(frozen=True)
 class ClaimSettings:
-    """[claims]: which claims count as returns."""
+    """[claims]: which claims count as returns.
+
+    `counted_statuses` lists the decided statuses that count (from approved, rejected, no_fault_found). The
+    `open_statuses` (not a key) mean "filed, not yet decided": such a claim is always counted, as a known
+    liability, and reserved at its estimated cost (stages.reserve); the words are fixed, any case, as in
+    sql/staging/stg_claims.sql and sql/intermediate/claims_assigned_to_sale_month_groups.sql."""
 
     counted_statuses: tuple[str, ...] = _key(("approved",), _statuses)
+    open_statuses: ClassVar[tuple[str, ...]] = ("open", "pending")
 
 
 def _currency(value: Any) -> str:
@@ -228,6 +234,9 @@ class ReserveSettings:
     annual_discount_rate: float = _key(0.0, _number_in(*RATE_LIMITS, high_included=True, unit=_YEARLY_RATE))
     # ... or at these rates, one per year after the as-of date (spot rates; beyond the list, the last one)
     discount_rate_by_year: tuple[float, ...] = _key((), _rates_by_year)
+    # the cost of handling a claim that is rejected or found no fault (inspection, freight, admin; currency
+    # units), reserved on the expected number of such claims; 0: none
+    handling_cost_per_claim: float = _key(0.0, _non_negative(" (currency units)"))
 
     def check(self) -> None:
         if self.discount_rate_by_year and self.annual_discount_rate != 0.0:

@@ -13,6 +13,11 @@
 -- unit's counted claims by failure_date, then claim_date, then claim_id (NULL for claims that are not
 -- counted); the first is the unit's return (is_return), the later ones are repeat claims (is_repeat_claim):
 -- claims to pay and to reserve for, but not failed units.
+-- Open claims (status open or pending: filed, not yet decided; config.ClaimSettings.open_statuses) are a
+-- known liability: they always have a counted status, whatever $counted_statuses holds, so they are
+-- returns and repeat claims like approved ones (is_open_claim). cost is the settled cost: NULL for an
+-- open claim, whose extract cost is an estimate (estimated_cost, NULL when the extract left it empty),
+-- so sums and means of cost are of settled claims only.
 with clocked_claims as (
     select
         source_row_number,
@@ -76,12 +81,20 @@ assigned_claims as (
         on claim.source_row_number = candidate.source_row_number and candidate.preference = 1
 ),
 
+claims_with_counted_status as (
+    select
+        *,
+        status in ('open', 'pending') as is_open_status,
+        list_contains($counted_statuses, status) or status in ('open', 'pending') as has_counted_status
+    from assigned_claims
+),
+
 counted_claims as (
     select
         *,
-        not is_quarantined and list_contains($counted_statuses, status) and months_in_service <= warranty_months
+        not is_quarantined and has_counted_status and months_in_service <= warranty_months
             as is_counted_claim
-    from assigned_claims
+    from claims_with_counted_status
 ),
 
 claims_numbered_within_unit as (
@@ -111,13 +124,15 @@ select
     serial is not null and not is_unit_found as is_serial_unknown,
     failure_date,
     claim_date,
-    cost,
+    case when not is_open_status then cost end as cost,
+    case when is_open_status then cost end as estimated_cost,
     status,
+    is_open_status as is_open_claim,
     failure_code,
     serial,
     age_months,
     months_in_service,
-    list_contains($counted_statuses, status) as is_counted_status,
+    has_counted_status as is_counted_status,
     months_in_service <= warranty_months as is_in_coverage,
     unit_claim_number,
     is_counted_claim and unit_claim_number = 1 as is_return,

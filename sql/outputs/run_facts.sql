@@ -6,7 +6,8 @@
 -- Sort: fact
 -- returns_counted: units' first counted in-coverage claims (the life model's returns); repeat_claims_counted:
 -- the units' later counted in-coverage claims. Claims used = returns_counted + repeat_claims_counted +
--- claims_out_of_coverage + claims_status_not_counted.
+-- claims_out_of_coverage + claims_status_not_counted. claims_open: valid claims filed, not yet decided
+-- (status open or pending; counted, in or out of coverage).
 -- units_sale_date_imputed: whole units without a sale date known by the as-of date (of which
 -- units_sold_after_as_of_sale_date_imputed carry a sale date after it); units_in_service_sale_date_imputed
 -- and units_in_channel: the expected units of those sold by then and not (units_sold_or_in_channel),
@@ -34,6 +35,7 @@ claim_facts as (
         count(*) filter (where is_counted_status and not is_in_coverage) as claims_out_of_coverage,
         count(*) filter (where status = 'rejected') as claims_rejected,
         count(*) filter (where status = 'no_fault_found') as claims_no_fault_found,
+        count(*) filter (where is_open_claim) as claims_open,
         count(*) filter (where not is_counted_status) as claims_status_not_counted,
         count(*) filter (where is_sale_date_imputed) as claims_sale_date_imputed,
         count(*) filter (where is_group_reassigned) as claims_assigned_to_nearest_sale_month,
@@ -61,6 +63,7 @@ unpivot (
         coalesce(claim_facts.claims_out_of_coverage, 0)::bigint as claims_out_of_coverage,
         coalesce(claim_facts.claims_rejected, 0)::bigint as claims_rejected,
         coalesce(claim_facts.claims_no_fault_found, 0)::bigint as claims_no_fault_found,
+        coalesce(claim_facts.claims_open, 0)::bigint as claims_open,
         coalesce(claim_facts.claims_status_not_counted, 0)::bigint as claims_status_not_counted,
         coalesce(claim_facts.claims_sale_date_imputed, 0)::bigint as claims_sale_date_imputed,
         coalesce(claim_facts.claims_assigned_to_nearest_sale_month, 0)::bigint as claims_assigned_to_nearest_sale_month,

@@ -7,7 +7,10 @@
 -- of macros/validation.
 -- A row that fails a check carries the FIRST failed check, in the order written below, as
 -- problem_column / problem_reason (a stable code) / problem_detail (for people); valid rows carry nulls.
--- status is case-insensitive and defaults to approved when empty.
+-- status is case-insensitive and defaults to approved when empty. Accepted: approved, rejected,
+-- no_fault_found (decided) and open, pending (filed, not yet decided: config.ClaimSettings.open_statuses).
+-- cost is required, except for an open claim (status open or pending), whose cost is its estimate when
+-- given: an open claim with no estimate is priced by the reserve stage.
 with raw_rows as (
     select
         source_row_number,
@@ -64,12 +67,13 @@ row_checks as (
             check_present('claim_date', claim_date_text),
             check_date('claim_date', claim_date_text, parsed_claim_date, 'a date', $run_date),
             check_date('sale_date', sale_date_text, parsed_sale_date, 'a date', $run_date),
-            check_present('cost', cost_text),
+            case when status_text not in ('open', 'pending') then check_present('cost', cost_text) end,
             check_parsed('cost', cost_text, parsed_cost, 'a decimal number'),
             check_that(parsed_cost < 0, 'cost', 'negative_cost', 'cost ' || cost_text || ' is negative'),
             check_that(
-                status_text not in ('approved', 'rejected', 'no_fault_found'),
-                'status', 'unknown_status', 'status ' || status_text || ' is not approved, rejected or no_fault_found'
+                status_text not in ('approved', 'rejected', 'no_fault_found', 'open', 'pending'),
+                'status', 'unknown_status',
+                'status ' || status_text || ' is not approved, rejected, no_fault_found, open or pending'
             ),
             check_that(
                 parsed_claim_date < parsed_failure_date,

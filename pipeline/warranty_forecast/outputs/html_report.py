@@ -74,7 +74,8 @@ _RESERVE_KNOWN = frozenset({
     "expected_future_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_future_claims",
     "reserve", "reserve_added_by_flagged_months", "cost_per_claim", "cost_basis", "forecast_status",
     "returns_lower", "returns_median", "returns_upper", "reserve_lower", "reserve_median", "reserve_upper",
-    "currency",
+    "currency", "reserve_future_claims", "open_claims", "reserve_open_claims", "expected_handled_claims",
+    "reserve_handling",
 })
 
 _CSS = """
@@ -302,6 +303,11 @@ def _reserve_section(reserve: pd.DataFrame, level_text: str) -> list[str]:
         "not yet reported": column("expected_unreported_returns").map(lambda v: _number(v, 4)),
         "repeat claims": column("expected_repeat_claims").map(lambda v: _number(v, 4)),
         "cost per claim": column("cost_per_claim").map(_money),
+        "future claims reserve": column("reserve_future_claims").map(_money),
+        "open claims": column("open_claims").map(_count),
+        "open claims reserve": column("reserve_open_claims").map(_money),
+        "handled claims": column("expected_handled_claims").map(lambda v: _number(v, 4)),
+        "handling reserve": column("reserve_handling").map(_money),
         "reserve": column("reserve").map(_money),
         "reserve interval": interval("reserve_lower", "reserve_upper", _money),
         "added by flagged months": column("reserve_added_by_flagged_months").map(_money),
@@ -321,10 +327,15 @@ def _reserve_section(reserve: pd.DataFrame, level_text: str) -> list[str]:
         _table(shown, numeric=set(shown.columns) - {"product", "currency"}),
         _table(more, numeric=set(more.columns) - {"product", "status", "cost basis"}),
         _paragraph(
-            "reserve = (future returns + not yet reported + repeat claims) x cost per claim: the first failures"
-            " still to come until the warranties end, the failures already incurred whose claims are not yet"
-            f" filed, and the repeat claims of repaired units. Intervals: {level_text} prediction intervals of"
-            " the first failures and of the reserve. Added by flagged months: the part of the reserve that comes"
+            "reserve = future claims reserve + open claims reserve + handling reserve, the total to book. Future"
+            " claims reserve = (future returns + not yet reported + repeat claims) x cost per claim: the first"
+            " failures still to come until the warranties end, the failures already incurred whose claims are not"
+            " yet filed, and the repeat claims of repaired units. Open claims: filed, not yet decided (status open"
+            " or pending; counted in claims to date), at their estimated cost, due now. Handled claims: the"
+            " rejected and no-fault-found claims expected with the future claims, at the configured handling cost"
+            f" (reserve.handling_cost_per_claim; 0 when not set). Intervals: {level_text} prediction intervals of"
+            " the first failures and of the reserve (the open claims and the handling added at their amounts)."
+            " Added by flagged months: the part of the reserve that comes"
             " from forecasting flagged build months with their own life. Money in the currency units of the"
             " claims extract. Per build month: reserve.parquet.",
             "note",

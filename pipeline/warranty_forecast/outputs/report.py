@@ -139,13 +139,19 @@ def render_report(
         not_yet_reported=column("expected_unreported_returns").map(lambda v: _number(v, 4)),
         repeat_claims=column("expected_repeat_claims").map(lambda v: _number(v, 4)),
         cost_per_claim=reserve_totals["cost_per_claim"].map(money),
+        future_claims_reserve=column("reserve_future_claims").map(money),
+        open_claims=column("open_claims").map(lambda v: "n/a" if pd.isna(v) else f"{int(v):,}"),
+        open_claims_reserve=column("reserve_open_claims").map(money),
+        handled_claims=column("expected_handled_claims").map(lambda v: _number(v, 4)),
+        handling_reserve=column("reserve_handling").map(money),
         reserve=reserve_totals["reserve"].map(money),
         reserve_interval=interval("reserve_lower", "reserve_upper", _money).map(
             lambda text: f"{text} {currency}" if currency and text != "n/a" else text
         ),
         added_by_flagged_months=column("reserve_added_by_flagged_months").map(money),
     )[["product", "units", "claims_to_date", "cost_to_date", "future_returns", "returns_interval",
-       "not_yet_reported", "repeat_claims", "cost_per_claim", "reserve", "reserve_interval",
+       "not_yet_reported", "repeat_claims", "cost_per_claim", "future_claims_reserve", "open_claims",
+       "open_claims_reserve", "handled_claims", "handling_reserve", "reserve", "reserve_interval",
        "added_by_flagged_months", "forecast_status", "cost_basis"]]
     total = reserve_totals["reserve"].sum(min_count=1)
     rates = dict(manifest.settings.get("reserve", {})) if getattr(manifest, "settings", None) else {}
@@ -172,21 +178,27 @@ def render_report(
         f"Total reserve over products with a forecast: {money(total)}; discounted:"
         f" {money(column('reserve_discounted').sum(min_count=1))}. Amounts in {currency_text}"
         + ("; XXX is ISO 4217's code for no currency: set reserve.currency to the claims extract's" if currency == "XXX" else "")
-        + ". reserve = the sum over calendar months of (future_returns + not_yet_reported + repeat_claims) x"
-        f" cost_per_claim x (1 + {inflation:.2%}) ^ years from the as-of date to the middle of the month"
-        " (reserve.annual_inflation_rate, compounded annually; at 0 the reserve is claims x cost_per_claim): the"
+        + ". reserve = future_claims_reserve + open_claims_reserve + handling_reserve, the total to book."
+        " future_claims_reserve = the sum over calendar months of (future_returns + not_yet_reported +"
+        f" repeat_claims) x cost_per_claim x (1 + {inflation:.2%}) ^ years from the as-of date to the middle of"
+        " the month (reserve.annual_inflation_rate, compounded annually; at 0 it is claims x cost_per_claim): the"
         " first failures still to come, the failures already incurred whose claims are not yet filed, and the"
-        " repeat claims of repaired units. returns_interval and reserve_interval are prediction intervals (by"
+        " repeat claims of repaired units. open_claims: claims filed and not yet decided (status open or"
+        " pending; counted in claims_to_date), reserved at their estimated cost (an empty estimate at"
+        " cost_per_claim), due now. handled_claims: the rejected and no-fault-found claims expected with the"
+        " future claims (at the product's observed share), reserved at reserve.handling_cost_per_claim"
+        " (handling_reserve; 0 when not set). returns_interval and reserve_interval are prediction intervals (by"
         " default 5% to 95%: see the README) for the first failures until the warranties end and for the reserve"
-        " (inflated like it, not discounted); they carry the fitted"
-        " model's uncertainty and the counts' randomness, not the risk that the model itself is wrong."
+        " (inflated like it, not discounted; the open claims and the handling added at their amounts); they"
+        " carry the fitted model's uncertainty and the counts' randomness, not the risk that the model itself is"
+        " wrong."
         " Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`,"
         " `forecast_by_calendar_month.parquet`; next 12 months: `forecast_intervals.parquet`."
         " added_by_flagged_months: the part of the reserve that comes from forecasting the flagged build months"
         " with their own life rather than with their product's model (see Build-month alerts).",
         "",
-        "When the claims fall due: current = the as-of date's month and the 12 calendar months after it,"
-        f" non_current = later; reserve_discounted = each month's amount {discount_text} from the middle of the"
+        "When the claims fall due: current = the as-of date's month and the 12 calendar months after it"
+        " (the open claims all current), non_current = later; reserve_discounted = each month's amount {discount_text} from the middle of the"
         " month to the as-of date ((1 + rate) ^ -years, compounded annually).",
         "",
         _table(timing),

@@ -15,8 +15,18 @@ as-of day counted as finished), a claim at the middle of its calendar month (ind
                        r_k = reserve.discount_rate_by_year[k - 1] (the last one beyond the list), else
                        reserve.annual_discount_rate
 
-With both rates 0 every factor is exactly 1 and the reserve is expected future claims x cost per claim.
-Expected future claims = the life
+The reserve to book has three parts (each a column, and reserve is their sum):
+  reserve_future_claims  expected future claims x cost per claim x the months' factors (below);
+  reserve_open_claims    the open claims (filed, not yet decided: status open or pending), known today, at
+                         their estimated cost (the extract's cost; an empty one priced at the product's cost
+                         per claim); due now: all current, not inflated, not discounted;
+  reserve_handling       expected_handled_claims x reserve.handling_cost_per_claim x the months' factors,
+                         expected_handled_claims = expected future claims x the product's observed ratio of
+                         rejected and no-fault-found claims to settled counted claims (handled_per_claim),
+                         timed like the claims they come with.
+With both rates 0 every factor is exactly 1 and reserve_future_claims is expected future claims x cost per
+claim. Open claims are counted returns (the life model's returns to date), so the expected future claims
+already leave them out. Expected future claims = the life
 model's first failures still to come (expected_future_returns) + failures already incurred but not yet
 reported (expected_unreported_returns) + repeat claims of repaired units (expected_repeat_claims). A flagged build month's expected
 returns come from its own life (see stages.forecasting); reserve_added_by_flagged_month is its reserve
@@ -28,10 +38,18 @@ Cost per claim, per product, first that applies:
      ending at the as-of date;
   3. the mean cost of every counted return filed by the as-of date;
   4. none: the product's reserve is left empty and the run report says so.
+Only settled claims are observed costs: an open claim's estimate is not (claim_cost_by_product, cost_to_date).
+
+The handling ratio (handled_per_claim), per product, over the same period as the observed cost: claims
+filed in the trailing cost window when it holds a settled counted claim, else all claims filed by the
+as-of date, else 0 (no settled counted claim: the basis says so and, with a handling cost, a warning).
+Handled claims are valid claims with status rejected or no_fault_found not counted as returns (a status
+listed in claims.counted_statuses is priced as a claim instead); in or out of coverage.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import math
 from dataclasses import dataclass
@@ -54,9 +72,14 @@ RESERVE_COLUMNS = (
     "expected_unreported_returns",
     "expected_repeat_claims",
     "expected_future_claims",
+    "open_claims",
+    "expected_handled_claims",
     "cost_per_claim",
     "currency",
     "reserve",
+    "reserve_future_claims",
+    "reserve_open_claims",
+    "reserve_handling",
     "reserve_discounted",
     "reserve_current",
     "reserve_non_current",
@@ -74,9 +97,11 @@ def cost_per_claim_by_product(
 ) -> pd.DataFrame:
     """One row per product: cost_per_claim (currency units), cost_basis (words), basis_returns (count),
     cost_sd (the sample standard deviation of the claims behind an observed mean; NaN for a configured
-    cost or a single claim).
+    cost or a single claim), handled_per_claim (rejected and no-fault-found claims per settled counted
+    claim, a ratio >= 0) and handled_basis (words; see the module's docstring).
 
-    `claim_costs` has the columns of the claim_cost_by_product model.
+    `claim_costs` has the columns of the claim_cost_by_product model (window_handled_claims and
+    all_time_handled_claims taken as 0 when absent).
     """
     observed = claim_costs.set_index("product")
     rows = []
@@ -110,7 +135,27 @@ def cost_per_claim_by_product(
                 )
                 continue
         rows.append((product, math.nan, "none: no counted return to price; set reserve.cost_per_claim", 0, math.nan))
-    return pd.DataFrame(rows, columns=["product", "cost_per_claim", "cost_basis", "basis_returns", "cost_sd"])
+    costs = pd.DataFrame(rows, columns=["product", "cost_per_claim", "cost_basis", "basis_returns", "cost_sd"])
+    handled = [_handled_ratio(observed.loc[p] if p in observed.index else None, settings) for p in costs["product"]]
+    costs["handled_per_claim"] = [ratio for ratio, _ in handled]
+    costs["handled_basis"] = [basis for _, basis in handled]
+    return costs
+
+
+def _handled_ratio(costs: pd.Series | None, settings: ReserveSettings) -> tuple[float, str]:
+    """(rejected + no-fault-found claims) / settled counted claims of one product, and its basis in words:
+    the trailing cost window when it holds a settled counted claim, else all time, else 0."""
+    def count(column: str) -> int:
+        value = costs.get(column, 0) if costs is not None else 0
+        return int(value) if value is not None and pd.notna(value) else 0
+
+    for claims, handled, basis in (
+        ("window_returns", "window_handled_claims", f"claims filed in the {settings.cost_window_months} months to the as-of date"),
+        ("all_time_returns", "all_time_handled_claims", "all claims (none settled in the trailing window)"),
+    ):
+        if count(claims) > 0:
+            return count(handled) / count(claims), f"{count(handled)} handled per {count(claims)} settled counted, {basis}"
+    return 0.0, "none: no settled counted claim (ratio taken as 0)"
 
 
 def _sd(costs: pd.Series, column: str) -> float:
@@ -232,6 +277,7 @@ def reserve_by_build_month(
     *,
     settings: ReserveSettings | None = None,
     as_of_date: dt.date | None = None,
+    open_claims: pd.DataFrame | None = None,
 ) -> pd.DataFrame:
     """The reserve per product x build month (RESERVE_COLUMNS; amounts in `settings.currency`).
 
@@ -246,7 +292,14 @@ def reserve_by_build_month(
     factors (= the sum over months of claims x cost x factor; exactly claims x cost at rate 0);
     reserve_discounted likewise with inflation x discount factors; reserve_current / _non_current (and
     _discounted) the parts in the as-of date's month and the 12 calendar months after it / later, empty
-    without `as_of_date`. `settings` defaults to ReserveSettings() (rates 0).
+    without `as_of_date`. `settings` defaults to ReserveSettings() (rates 0). Those are the future claims'
+    part (reserve_future_claims); the columns reserve, reserve_discounted and the current / non-current
+    ones are the totals to book: + reserve_open_claims (current, factors 1) + reserve_handling (timed like
+    the future claims).
+
+    `open_claims` has the columns of the open_claims_by_build_month model (product, build_month,
+    open_claims, estimated_cost, open_claims_without_estimate); None: no open claims. `costs` may carry
+    handled_per_claim (cost_per_claim_by_product; 0 when absent).
     """
     settings = settings if settings is not None else ReserveSettings()
     forecast = _with_claim_columns(forecast)
@@ -268,7 +321,9 @@ def reserve_by_build_month(
     summary = summary.assign(cost_to_date=summary["cost_to_date"] + summary["repeat_cost_to_date"])
     table = summary.merge(expected, on=["product", "build_month"], how="left")
     table = table.merge(_timed_claims(forecast, timing), on=["product", "build_month"], how="left")
-    table = table.merge(costs[["product", "cost_per_claim", "cost_basis"]], on="product", how="left")
+    costs = costs.assign(**({} if "handled_per_claim" in costs else {"handled_per_claim": 0.0}))
+    table = table.merge(costs[["product", "cost_per_claim", "cost_basis", "handled_per_claim"]], on="product", how="left")
+    table = table.merge(_open_claims_frame(open_claims), on=["product", "build_month"], how="left")
     table["forecast_status"] = table["product"].map(forecast_status).fillna("no forecast")
     has_forecast = table["product"].isin(list(forecast_products))
     table["expected_future_returns"] = np.where(
@@ -287,18 +342,59 @@ def reserve_by_build_month(
     def mean_factor(column: str) -> pd.Series:
         return pd.Series(np.where(has_claims, table[column] / claims.where(has_claims, 1.0), 1.0), index=table.index)
 
+    # open claims: known today, due now (current, not inflated, not discounted); an open claim without an
+    # estimate at the product's cost per claim
+    table["open_claims"] = table["open_claims"].fillna(0).astype("int64")
+    without = table["open_claims_without_estimate"].fillna(0)
+    estimated = table["estimated_cost"].fillna(0.0)
+    open_reserve = pd.Series(
+        np.where(without > 0, estimated + without * table["cost_per_claim"], estimated), index=table.index
+    )
+    table["reserve_open_claims"] = open_reserve
+    # handling: the rejected and no-fault-found claims expected with the future claims, at the handling cost
+    handled = table["handled_per_claim"].fillna(0.0)
+    handling_per_claim = handled * settings.handling_cost_per_claim  # currency units per expected claim
+    table["expected_handled_claims"] = table["expected_future_claims"] * handled
     priced = table["expected_future_claims"] * table["cost_per_claim"]
-    table["reserve"] = priced * mean_factor("inflated")
-    table["reserve_discounted"] = priced * mean_factor("discounted")
+    handling = table["expected_future_claims"] * handling_per_claim
+    table["reserve_future_claims"] = priced * mean_factor("inflated")
+    table["reserve_handling"] = handling * mean_factor("inflated")
+    table["reserve"] = table["reserve_future_claims"] + table["reserve_open_claims"] + table["reserve_handling"]
+    table["reserve_discounted"] = (
+        priced * mean_factor("discounted") + table["reserve_open_claims"] + handling * mean_factor("discounted")
+    )
     for column in ("current", "non_current", "current_discounted", "non_current_discounted"):
         part = table[column].where(has_claims, 0.0 if as_of_date is not None else np.nan)
-        table[f"reserve_{column}"] = np.where(has_forecast, part * table["cost_per_claim"], np.nan)
+        known = open_reserve if column.startswith("current") else 0.0
+        table[f"reserve_{column}"] = np.where(
+            has_forecast, part * table["cost_per_claim"] + known + part * handling_per_claim, np.nan
+        )
     table["currency"] = settings.currency
     # what a flagged build month's own life adds to (or takes from) the reserve its product's model gives
+    # (its claims and the handled claims that come with them)
     table["reserve_added_by_flagged_month"] = (
         table["expected_future_returns"] - table["expected_future_returns_product_model"]
-    ) * table["cost_per_claim"]
+    ) * (table["cost_per_claim"] + handling_per_claim)
     return table.loc[:, list(RESERVE_COLUMNS)].sort_values(["product", "build_month"], ignore_index=True)
+
+
+OPEN_CLAIMS_COLUMNS = ("product", "build_month", "open_claims", "estimated_cost", "open_claims_without_estimate")
+
+
+def _open_claims_frame(open_claims: pd.DataFrame | None) -> pd.DataFrame:
+    """The open claims per product x build month (OPEN_CLAIMS_COLUMNS), empty when None; build months as
+    dates."""
+    if open_claims is None:
+        return pd.DataFrame({c: pd.Series(dtype="object" if c in ("product", "build_month") else "float64")
+                             for c in OPEN_CLAIMS_COLUMNS})
+    missing = [c for c in OPEN_CLAIMS_COLUMNS if c not in open_claims.columns]
+    if missing:
+        raise ValueError(f"open_claims lacks the columns {missing}")
+    frame = open_claims.loc[:, list(OPEN_CLAIMS_COLUMNS)].copy()
+    if (frame[["open_claims", "estimated_cost", "open_claims_without_estimate"]] < 0).any().any():
+        raise ValueError("open_claims: counts and estimated_cost must be >= 0")
+    frame["build_month"] = pd.to_datetime(frame["build_month"]).dt.date
+    return frame
 
 
 def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
@@ -313,9 +409,11 @@ def reserve_by_product(reserve: pd.DataFrame) -> pd.DataFrame:
         expected_unreported_returns=("expected_unreported_returns", lambda s: s.sum(min_count=len(s))),
         expected_repeat_claims=("expected_repeat_claims", lambda s: s.sum(min_count=len(s))),
         expected_future_claims=("expected_future_claims", lambda s: s.sum(min_count=len(s))),
+        open_claims=("open_claims", "sum"),
+        expected_handled_claims=("expected_handled_claims", lambda s: s.sum(min_count=len(s))),
         reserve=("reserve", lambda s: s.sum(min_count=len(s))),
         **{c: (c, lambda s: s.sum(min_count=len(s))) for c in (
-            "reserve_discounted", "reserve_current", "reserve_non_current", "reserve_current_discounted",
+            "reserve_future_claims", "reserve_open_claims", "reserve_handling", "reserve_discounted", "reserve_current", "reserve_non_current", "reserve_current_discounted",
             "reserve_non_current_discounted",
         )},
         reserve_added_by_flagged_months=("reserve_added_by_flagged_month", lambda s: s.sum(min_count=len(s))),
@@ -356,14 +454,24 @@ class ReserveResult:
     forecast: pd.DataFrame  # expected returns and their cost per product x build month x calendar month
     by_build_month: pd.DataFrame  # RESERVE_COLUMNS
     by_product: pd.DataFrame  # totals of by_build_month
+    handling_cost_per_claim: float = 0.0  # reserve.handling_cost_per_claim in force (currency units)
 
     @property
     def warnings(self) -> tuple[str, ...]:
-        """One sentence per product whose reserve is empty for want of a cost per claim."""
-        return tuple(
+        """One sentence per product whose reserve is empty for want of a cost per claim; with a handling
+        cost, one per product whose handling ratio could not be observed (taken as 0)."""
+        empty = tuple(
             f"product {row.product}: no cost per claim ({row.cost_basis}); its reserve is empty"
             for row in self.costs.itertuples(index=False)
             if math.isnan(row.cost_per_claim)
+        )
+        if not self.handling_cost_per_claim or "handled_basis" not in self.costs:
+            return empty
+        return empty + tuple(
+            f"product {row.product}: no settled counted claim to observe its share of rejected and no-fault-found"
+            " claims; no handling cost is reserved for it"
+            for row in self.costs.itertuples(index=False)
+            if str(row.handled_basis).startswith("none")
         )
 
     @property
@@ -381,20 +489,26 @@ def book_reserve(
     forecast_products: Collection[str],
     settings: ReserveSettings,
     as_of_date: dt.date | None = None,
+    open_claims: pd.DataFrame | None = None,
 ) -> ReserveResult:
     """The whole reserve stage: cost per claim, the costed forecast, the reserve per build month and product.
 
     `as_of_date`: where inflation and discounting start and the current / non-current split falls; required
-    when a rate is not 0 (without it the split columns are empty)."""
+    when a rate is not 0 (without it the split columns are empty). `open_claims`: the open_claims_by_build_month
+    model's table (ShapedData.open_claims_by_build_month), reserved at their estimates; None: no open claims
+    reserved. The costed forecast (expected_cost) prices the future claims only (its sum is
+    reserve_future_claims)."""
     costs = cost_per_claim_by_product(claim_costs, cohort_summary["product"], settings)
     by_build_month = reserve_by_build_month(
-        cohort_summary, forecast, costs, forecast_status, forecast_products, settings=settings, as_of_date=as_of_date
+        cohort_summary, forecast, costs, forecast_status, forecast_products, settings=settings, as_of_date=as_of_date,
+        open_claims=open_claims,
     )
     return ReserveResult(
         costs=costs,
         forecast=costed_forecast(forecast, costs, settings, as_of_date),
         by_build_month=by_build_month,
         by_product=reserve_by_product(by_build_month),
+        handling_cost_per_claim=settings.handling_cost_per_claim,
     )
 
 
@@ -415,8 +529,10 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     claim costs and of their mean) plus the expected cost of the claims not yet reported and of the repeat
     claims, which enter at their expectation (about 1-2% of the reserve on the demo; their own spread is
     left out), times the reserve's inflation factor (reserve over expected_future_claims x cost_per_claim:
-    exact for the expected timing of the claims, 1 at rate 0), to the cent. They are not discounted: set
-    them beside `reserve`, not `reserve_discounted`. Products or build months without an interval keep NaN."""
+    exact for the expected timing of the claims, 1 at rate 0), plus the open claims (known: a constant,
+    reserve_open_claims) and the handling (at its expectation, reserve_handling), to the cent; so they bound
+    the total `reserve`. They are not discounted: set them beside `reserve`, not `reserve_discounted`.
+    Products or build months without an interval keep NaN."""
     keys = ["product", "build_month"]
     intervals = prediction.by_build_month.loc[:, [*keys, *INTERVAL_COLUMNS]].copy()
     intervals["build_month"] = pd.to_datetime(intervals["build_month"]).dt.date
@@ -425,11 +541,14 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     beyond_first = (by_build_month["expected_unreported_returns"] + by_build_month["expected_repeat_claims"]) * (
         by_build_month["cost_per_claim"]
     )
-    inflation = _inflation_factor(by_build_month["reserve"], by_build_month["expected_future_claims"] * by_build_month["cost_per_claim"])
+    inflation = _inflation_factor(
+        by_build_month["reserve_future_claims"], by_build_month["expected_future_claims"] * by_build_month["cost_per_claim"]
+    )
+    known = by_build_month["reserve_open_claims"] + by_build_month["reserve_handling"]
     # quantiles of simulated currency sums, kept to the cent: the simulation's sums may differ in their last
     # bits between processes (summation order), and a rerun must write identical tables
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
-        by_build_month[column] = ((by_build_month[column].astype(float) + beyond_first) * inflation).round(2)
+        by_build_month[column] = ((by_build_month[column].astype(float) + beyond_first) * inflation + known).round(2)
     product_reserve = prediction.reserve_by_product.loc[:, ["product", "reserve_lower", "reserve_median", "reserve_upper"]]
     horizon = prediction.by_product[prediction.by_product["horizon"] == "to_warranty_end"].rename(
         columns={"lower": "returns_lower", "median": "returns_median", "upper": "returns_upper"}
@@ -446,9 +565,10 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     )
     product_uninflated = by_product["product"].map(uninflated).astype(float)
     beyond = product_uninflated - by_product["expected_future_returns"] * by_product["cost_per_claim"]
-    inflation = _inflation_factor(by_product["reserve"], product_uninflated)
+    inflation = _inflation_factor(by_product["reserve_future_claims"], product_uninflated)
+    known = by_product["reserve_open_claims"] + by_product["reserve_handling"]
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
-        by_product[column] = ((by_product[column].astype(float) + beyond) * inflation).round(2)
+        by_product[column] = ((by_product[column].astype(float) + beyond) * inflation + known).round(2)
     calendar = result.forecast.assign(month=pd.to_datetime(result.forecast["month"]).dt.date).groupby(
         ["product", "month"], as_index=False
     )[["expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims"]].sum()
@@ -456,7 +576,7 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     months["month"] = pd.to_datetime(months["month"]).dt.date
     calendar = calendar.merge(months, on=["product", "month"], how="left").loc[:, list(CALENDAR_MONTH_COLUMNS)]
     return (
-        ReserveResult(costs=result.costs, forecast=result.forecast, by_build_month=by_build_month, by_product=by_product),
+        dataclasses.replace(result, by_build_month=by_build_month, by_product=by_product),
         calendar.sort_values(["product", "month"], ignore_index=True),
     )
 

@@ -137,6 +137,7 @@ class ShapedData:
     age_in_service: pd.DataFrame
     cohort_summary: pd.DataFrame
     claim_cost_by_product: pd.DataFrame
+    open_claims_by_build_month: pd.DataFrame  # counted claims not yet decided (open, pending) per build month
     claim_reporting_delays: pd.DataFrame  # counted returns by product x delay_days x observable_days (truncation)
     quarantine: pd.DataFrame
     reconciliation: pd.DataFrame

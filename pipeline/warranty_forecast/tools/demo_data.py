@@ -59,6 +59,19 @@ from warranty_forecast.tools.demo_scenario import (
 
 logger = logging.getLogger(__name__)
 
+# Open claims: an approved claim is decided a whole number of days after it is filed, uniform on
+# 0 .. OPEN_DECISION_DAYS; one filed d days before the as-of date is still open with probability
+# 1 - d / OPEN_DECISION_DAYS. Its status is then "open", or "pending" for PENDING_SHARE of them; its cost is
+# an estimate (the eventual cost x a lognormal error of sd OPEN_ESTIMATE_SIGMA_LOG on the log scale, rounded
+# to OPEN_ESTIMATE_ROUNDING currency units), left empty for OPEN_WITHOUT_ESTIMATE_FRACTION of them. Only
+# claims that will be approved are open here, so the life model's returns are those of the scenario.
+OPEN_DECISION_DAYS = 28
+PENDING_SHARE = 0.3
+OPEN_ESTIMATE_SIGMA_LOG = 0.25
+OPEN_ESTIMATE_ROUNDING = 10.0
+OPEN_WITHOUT_ESTIMATE_FRACTION = 0.2
+UNKNOWN_STATUS_EXAMPLE = "lost"  # the planted unknown_status row's status
+
 
 @dataclass(frozen=True, eq=False)
 class DemoData:
@@ -340,7 +353,7 @@ def _plant_claims(
         elif reason == "negative_cost":
             row["cost"] = "-35.00"
         elif reason == "unknown_status":
-            row["status"] = "pending"
+            row["status"] = UNKNOWN_STATUS_EXAMPLE
         elif reason == "claim_before_failure":
             row["claim_date"] = (f - pd.Timedelta(days=int(rng.integers(1, 11)))).strftime("%Y-%m-%d")
         elif reason == "failure_before_sale":
@@ -364,7 +377,9 @@ def _plant_claims(
 def generate_demo_data(seed: int = DEFAULT_SEED) -> DemoData:
     """Generate the demo scenario for ``seed`` (pure: no I/O, same seed gives the same data)."""
     started = time.perf_counter()
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(len(PRODUCT_LINES) + 2)]
+    # one stream per line, then claims, plants and open claims (a child's stream does not depend on how
+    # many children are spawned, so adding the last one left the others as they were)
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(len(PRODUCT_LINES) + 3)]
     months = _build_month_labels()
     month_start = np.array([np.datetime64(m + "-01", "D") for m in months]).astype(np.int64)
     as_of = _days(AS_OF_DATE)
@@ -402,7 +417,7 @@ def generate_demo_data(seed: int = DEFAULT_SEED) -> DemoData:
     raw = raw[keep].reset_index(drop=True)
     raw_month = raw_month[keep]
 
-    claims_rng, plant_rng = streams[-2], streams[-1]
+    claims_rng, plant_rng, open_rng = streams[len(PRODUCT_LINES):]
     n_claims = len(raw)
     id_numbers = claims_rng.permutation(n_claims + len(CLAIM_PLANTS)) + 1
     ids = np.char.mod(f"{CLAIM_ID_PREFIX}%07d", id_numbers).astype(object)
@@ -424,7 +439,16 @@ def generate_demo_data(seed: int = DEFAULT_SEED) -> DemoData:
 
     shipments, ship_records = _plant_shipments(shipments, plant_rng)
     claims, claim_records = _plant_claims(claims_valid, list(ids[n_claims:]), plant_rng)
+    # the planted rows were drawn from the decided claims; open claims are marked after, by claim_id (so a
+    # planted exact duplicate stays a copy of its original)
+    open_status, open_cost = _open_claims(raw, ids[:n_claims], as_of, open_rng)
+    claims = claims.astype(object)
+    reopened = claims["claim_id"].map(open_status)
+    is_open = reopened.notna().to_numpy()
+    claims.loc[is_open, "status"] = reopened[is_open]
+    claims.loc[is_open, "cost"] = claims.loc[is_open, "claim_id"].map(open_cost)
     claims = claims.astype("string")
+    raw = raw.assign(status=pd.Series(ids[:n_claims]).map(open_status).fillna(raw["status"]).to_numpy())
     planted = pd.DataFrame(ship_records + claim_records, columns=PLANTED_COLUMNS)
     planted = planted.sort_values(["source_file", "row_number"], kind="stable").reset_index(drop=True)
     planted = planted.astype({"source_file": "str", "row_number": "int64", "column": "str", "reason": "str"})
@@ -435,6 +459,30 @@ def generate_demo_data(seed: int = DEFAULT_SEED) -> DemoData:
         seed, len(shipments), truth["total_units"], len(claims), time.perf_counter() - started,
     )
     return DemoData(shipments=shipments, claims=claims, planted_defects=planted, truth=truth, as_of_date=AS_OF_DATE)
+
+
+def _open_claims(
+    raw: pd.DataFrame, ids: np.ndarray, as_of: int, rng: np.random.Generator,
+) -> tuple[dict[str, str], dict[str, float]]:
+    """The approved claims still open at the as-of date: claim_id -> status ("open" or "pending") and
+    claim_id -> cost text (the estimate, NaN when none is given). See OPEN_DECISION_DAYS."""
+    n = len(raw)
+    days_open = as_of - raw["claim"].to_numpy()  # days from filing to the as-of date
+    decision = rng.integers(0, OPEN_DECISION_DAYS + 1, n)  # days from filing to the decision
+    pending = rng.random(n) < PENDING_SHARE
+    error = rng.normal(0.0, OPEN_ESTIMATE_SIGMA_LOG, n)
+    no_estimate = rng.random(n) < OPEN_WITHOUT_ESTIMATE_FRACTION
+    still_open = (raw["status"].to_numpy() == "approved") & (decision > days_open)
+    estimate = np.maximum(
+        np.rint(raw["cents"].to_numpy() / 100.0 * np.exp(error) / OPEN_ESTIMATE_ROUNDING) * OPEN_ESTIMATE_ROUNDING,
+        OPEN_ESTIMATE_ROUNDING,
+    )
+    status: dict[str, str] = {}
+    cost: dict[str, float] = {}
+    for i in np.flatnonzero(still_open):
+        status[str(ids[i])] = "pending" if pending[i] else "open"
+        cost[str(ids[i])] = np.nan if no_estimate[i] else f"{estimate[i]:.2f}"
+    return status, cost
 
 
 def _truth(seed: int, sims: list[_LineSimulation], raw: pd.DataFrame, planted: pd.DataFrame) -> dict[str, Any]:
@@ -510,6 +558,13 @@ def _truth(seed: int, sims: list[_LineSimulation], raw: pd.DataFrame, planted: p
             "no_fault_found_fraction_of_units": NO_FAULT_FOUND_FRACTION,
             "no_fault_found_cost_uniform": list(NO_FAULT_FOUND_COST),
             "claim_sale_date_fraction": CLAIM_SALE_DATE_FRACTION,
+            "open_claims": {
+                "decision_days_uniform": [0, OPEN_DECISION_DAYS], "pending_share": PENDING_SHARE,
+                "estimate": {"error": "lognormal", "sigma_log": OPEN_ESTIMATE_SIGMA_LOG,
+                             "rounding": OPEN_ESTIMATE_ROUNDING},
+                "without_estimate_fraction": OPEN_WITHOUT_ESTIMATE_FRACTION,
+                "only_claims_to_be_approved": True,
+            },
         },
         "total_units": int(sum(s.stats["units"] for s in sims)),
         "claims_total": int(len(raw)),

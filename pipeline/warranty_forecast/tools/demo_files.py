@@ -14,7 +14,14 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from warranty_forecast.tools.demo_data import DemoData, generate_demo_data
+from warranty_forecast.tools.demo_data import (
+    OPEN_DECISION_DAYS,
+    OPEN_WITHOUT_ESTIMATE_FRACTION,
+    PENDING_SHARE,
+    UNKNOWN_STATUS_EXAMPLE,
+    DemoData,
+    generate_demo_data,
+)
 from warranty_forecast.tools.demo_scenario import (
     CLAIM_SALE_DATE_FRACTION,
     CLAIMS_FILE,
@@ -82,8 +89,10 @@ def _readme(data: DemoData, sizes: dict[str, int]) -> str:
         for product, p in t["product_lines"].items()
     )
     d = t["defect"]
+    # the planted unknown status is demo_data's word (open and pending are accepted statuses)
+    notes = {**PLANT_NOTES, ("unknown_status", "status"): f"status is `{UNKNOWN_STATUS_EXAMPLE}`"}
     planted_rows = "\n".join(
-        f"| {r.source_file} | {r.row_number} | {r.column} | `{r.reason}` | {PLANT_NOTES[(r.reason, r.column)]} |"
+        f"| {r.source_file} | {r.row_number} | {r.column} | `{r.reason}` | {notes[(r.reason, r.column)]} |"
         for r in data.planted_defects.itertuples(index=False)
     )
     status = ", ".join(f"{k} {v:,}" for k, v in t["claims_by_status"].items())
@@ -119,6 +128,10 @@ lines, build months {t['build_months']['first']} .. {t['build_months']['last']}
 - `rejected` ({REJECTED_FRACTION:.1%} of units, cost 0) and `no_fault_found` ({NO_FAULT_FOUND_FRACTION:.1%} of
   units, handling cost {NO_FAULT_FOUND_COST[0]:g}-{NO_FAULT_FOUND_COST[1]:g}) claims come from units that did
   not fail; they stay survivors.
+- Open claims: a claim to be approved is decided 0-{OPEN_DECISION_DAYS} days (uniform) after it is filed, so
+  claims filed in the last weeks before the as-of date may still be `open` (or, {PENDING_SHARE:.0%} of them,
+  `pending`), with an estimated cost (the eventual cost with a lognormal error, rounded to 10), left empty
+  for {OPEN_WITHOUT_ESTIMATE_FRACTION:.0%} of them.
 - About {CLAIM_SALE_DATE_FRACTION:.0%} of claims carry the sale date; trimmer claims carry the serial.
 
 ## True parameters
