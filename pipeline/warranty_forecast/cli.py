@@ -5,8 +5,9 @@ escaped). Known errors map to the exit codes of `warranty_forecast.exit_codes` w
 line; anything else is logged with its traceback and exits 1. SIGINT and SIGTERM stop the run through
 an exception, so every clean-up runs, and exit 128 + the signal number.
 
-`run` checks and locks the output folder before computing anything (see
-`warranty_forecast.outputs.publish.lock_output_folder`) and holds the lock until the outputs are published.
+`run` checks and locks the output root before computing anything (see
+`warranty_forecast.outputs.run_folders.lock_output_root`) and holds the lock until the run is published in
+its own folder, recorded in the history database and `latest` points where it should.
 """
 
 from __future__ import annotations
@@ -36,7 +37,7 @@ from warranty_forecast.errors import (
 
 log = logging.getLogger("warranty_forecast")
 
-DEFAULT_OUT = Path("reports") / "latest"
+DEFAULT_OUT = Path("reports")
 
 _EXIT_CODE_BY_ERROR: tuple[tuple[type[PipelineError], int], ...] = (
     (ConfigError, exit_codes.BAD_ARGUMENTS),
@@ -136,7 +137,13 @@ def build_parser() -> argparse.ArgumentParser:
         "--out",
         type=Path,
         default=DEFAULT_OUT,
-        help=f"output folder (default {DEFAULT_OUT}); a symbolic link is kept and its target replaced",
+        help=f"output root (default {DEFAULT_OUT}): each run publishes into <root>/runs/<run id>/, <root>/latest"
+        " points at the newest, <root>/history.duckdb holds every run's tables",
+    )
+    run.add_argument(
+        "--reason", default=None,
+        help="why an as-of date that already has a published run is run again (recorded in the history with"
+        " what changed)",
     )
 
     backtest = commands.add_parser(
@@ -328,7 +335,7 @@ class _StopOnSignal:
 
 
 def _run(arguments: argparse.Namespace) -> int:
-    from warranty_forecast.outputs.publish import lock_output_folder
+    from warranty_forecast.outputs.run_folders import lock_output_root
     from warranty_forecast.run import run_nightly
 
     as_of = parse_date(arguments.as_of, "--as-of") if arguments.as_of else None
@@ -340,10 +347,14 @@ def _run(arguments: argparse.Namespace) -> int:
         config_path=arguments.config,
         draw_charts=arguments.draw_charts,
     )
-    with lock_output_folder(config.out_dir) as folder:
-        log.debug("output folder %s checked and locked", folder)
-        result = run_nightly(config)
-    log.info("done: outputs in %s (as of %s, %d warning(s))", result.out_dir, result.as_of_date, len(result.warnings))
+    with lock_output_root(config.out_dir) as root:
+        log.debug("output root %s checked and locked", root)
+        result = run_nightly(config, reason=arguments.reason)
+    log.info(
+        "done: %s %s (as of %s, %d warning(s))",
+        "outputs in" if result.changed else "changed nothing; the outputs stay in",
+        result.run_folder or result.out_dir, result.as_of_date, len(result.warnings),
+    )
     return exit_codes.SUCCESS
 
 

@@ -24,7 +24,11 @@ from warranty_forecast.config import RunConfig, check_products_in_data
 from warranty_forecast.outputs import charts
 from warranty_forecast.outputs.manifest import RunManifest, run_manifest
 from warranty_forecast.outputs.html_report import render_html_report
-from warranty_forecast.outputs.publish import figure_png, publish_outputs
+from warranty_forecast.outputs.history import record_published_runs
+from warranty_forecast.outputs.publish import figure_png
+from warranty_forecast.outputs.run_folders import (
+    opening_run, point_latest, previous_run, publish_run, published_runs, read_reserve, run_in_effect, what_changed,
+)
 from warranty_forecast.outputs.report import render_report
 from warranty_forecast.stages.build_month_alerts import alert_build_months
 from warranty_forecast.stages.forecasting import forecast_returns
@@ -33,6 +37,7 @@ from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reporting_delay import reporting_delay_stage
 from warranty_forecast.stages.prediction import claim_costs_by_product, predict_returns
 from warranty_forecast.stages.reserve import book_reserve, with_prediction_intervals
+from warranty_forecast.stages.roll_forward import ReserveMovement, reserve_movement
 from warranty_forecast.stages.shaping import shape_extracts
 
 log = logging.getLogger(__name__)
@@ -42,12 +47,16 @@ Result = TypeVar("Result")
 
 @dataclass(frozen=True)
 class RunResult:
-    """What a finished run wrote and decided."""
+    """What a finished run wrote and decided: `out_dir` is the output root, `run_folder` the run's own folder
+    (runs/<run id>); `changed` is False when an identical run was already published (nothing written)."""
 
     out_dir: Path
     as_of_date: dt.date
     manifest: RunManifest | None  # None only where a test stands in for a run
     warnings: tuple[str, ...]
+    run_folder: Path | None = None
+    changed: bool = True
+    history_error: str | None = None
 
 
 class _StageClock:
@@ -76,8 +85,10 @@ def stamped(frame, run_id: str, as_of_date: dt.date):  # type: ignore[no-untyped
     return body.assign(run_id=run_id, as_of_date=as_of_date)[["run_id", "as_of_date", *body.columns]]
 
 
-def run_nightly(config: RunConfig) -> RunResult:
-    """Run every stage for one configuration and publish the outputs atomically."""
+def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
+    """Run every stage for one configuration and publish the outputs as a run folder under the output root
+    (config.out_dir); record it in the history database; point `latest` at it when it is the newest.
+    `reason`: why a closed as-of date is run again (recorded with what changed)."""
     clock = _StageClock()
     started_utc = dt.datetime.now(dt.timezone.utc)
 
@@ -136,6 +147,23 @@ def run_nightly(config: RunConfig) -> RunResult:
         lambda p: f"{p.draws} draws per product at levels {', '.join(f'{v:g}' for v in p.levels)}",
     )
     reserve, by_calendar_month = with_prediction_intervals(reserve, prediction)
+    # the runs already published under the output root: the last one before this as-of date (change since
+    # the last run) and the last month-end close (the roll-forward's opening)
+    published = published_runs(config.out_dir)
+    movement = clock.run(
+        "movement",
+        lambda: reserve_movement(
+            opening=read_reserve(opening_run(published, shaped.as_of_date)),
+            previous=read_reserve(previous_run(published, shaped.as_of_date)),
+            closing_by_product=reserve.by_product,
+            units_by_ship_date=shaped.units_shipped_by_day,
+            claims_by_claim_date=shaped.claims_by_claim_date,
+            models=forecast.models,
+            month_models=forecast.month_models,
+            handling_cost_per_claim=getattr(config.reserve, "handling_cost_per_claim", 0.0),
+        ),
+        lambda m: m.note,
+    )
     life_table_by_month = clock.run(
         "diagnostics",
         lambda: life_table(shaped.age_in_service, config.life_model.confidence_level),
@@ -171,7 +199,6 @@ def run_nightly(config: RunConfig) -> RunResult:
     for text in warnings:
         log.warning("%s", text)
 
-    started = time.perf_counter()
     tables = {
         "age_in_service": shaped.age_in_service,
         "life_table": life_table_by_month,
@@ -187,6 +214,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         "forecast_intervals": prediction.by_product,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,
+        "roll_forward": movement.roll_forward,
         "quarantine": shaped.quarantine,
         "fit_returns": shaped.fit_returns,
         "fit_suspensions": shaped.fit_suspensions,
@@ -200,6 +228,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         seconds_by_stage=clock.seconds,
         seconds_total=clock.total,
     )
+    document = _with_rerun_record(manifest, published, reason)
     report = render_report(
         manifest=manifest,
         life_model=lives.table,
@@ -214,6 +243,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         reconciliation=shaped.reconciliation,
         quarantine=shaped.quarantine,
         warnings=list(warnings),
+        movement=movement,
     )
     # each chart drawn to PNG once: the same bytes go to <name>.png and into report.html, in one publish
     pngs = {name: figure_png(figure) for name, figure in figures.items()}
@@ -232,6 +262,7 @@ def run_nightly(config: RunConfig) -> RunResult:
         reporting_delay=delays.table,
         forecast_intervals=prediction.by_product,
         safety_term_claims=shaped.safety_term_claims,
+        movement=movement,
     )
     # every published table says which run wrote it, so nightly outputs can be stacked; the reserve also as
     # CSV for people who open files in a spreadsheet
@@ -241,7 +272,51 @@ def run_nightly(config: RunConfig) -> RunResult:
         "reserve_by_product.csv": tables["reserve_by_product"].to_csv(index=False, lineterminator="\n"),
         "reserve.csv": tables["reserve"].to_csv(index=False, lineterminator="\n"),
     }
-    written = publish_outputs(config.out_dir, tables, pngs, texts, manifest.to_document())
-    log.info("stage %-9s %d files to %s in %.2f s", "publish", len(written) + 1, config.out_dir,
-             time.perf_counter() - started)
-    return RunResult(config.out_dir, shaped.as_of_date, manifest, warnings)
+    started = time.perf_counter()
+    outcome = publish_run(config.out_dir, manifest.run_id, tables, pngs, texts, document)
+    if outcome.changed:
+        log.info("stage %-9s %d files to %s in %.2f s", "publish", len(outcome.written) + 1, outcome.folder,
+                 time.perf_counter() - started)
+    else:
+        log.info(
+            "stage %-9s changed nothing: run %s is already published in %s with byte-identical tables",
+            "publish", manifest.run_id, outcome.folder,
+        )
+    history = record_published_runs(outcome.root)
+    if history.error is not None:
+        log.warning(
+            "the history database %s was not updated (%s); run %s is published in %s and will be recorded by the"
+            " next run", history.path, history.error, manifest.run_id, outcome.folder,
+        )
+    elif history.recorded:
+        log.info("history: recorded run(s) %s in %s", ", ".join(history.recorded), history.path)
+    latest = point_latest(outcome.root)
+    if latest is not None and latest.run_id != manifest.run_id:
+        log.info("latest stays at run %s (as of %s), newer than this run's as-of date", latest.run_id, latest.as_of_date)
+    return RunResult(
+        config.out_dir, shaped.as_of_date, manifest, warnings, run_folder=outcome.folder, changed=outcome.changed,
+        history_error=history.error,
+    )
+
+
+def _with_rerun_record(manifest: RunManifest, published, reason: str | None) -> dict:  # type: ignore[no-untyped-def]
+    """The manifest document, with `rerun_of` and `rerun_reason` when this run's as-of date is closed (a run
+    with another id is published for it): the reason given and what changed."""
+    document = manifest.to_document()
+    closed = run_in_effect(published, manifest.as_of_date)
+    if closed is None or closed.run_id == manifest.run_id:
+        return document
+    changed = what_changed(
+        closed,
+        {item.extract: item.sha256 for item in manifest.inputs},
+        {name: table for name, table in document["config"].items() if name != "path"},
+        manifest.versions.get("warranty-forecast", ""),
+    )
+    given = " ".join(reason.split()) if reason else ""
+    text = f"{given} ({changed})" if given else f"no reason given ({changed})"
+    log.warning("as-of date %s is closed (run %s): this run is recorded beside it as a rerun: %s",
+                manifest.as_of_date, closed.run_id, text)
+    position = list(document).index("run_id") + 1
+    items = list(document.items())
+    items[position:position] = [("rerun_of", closed.run_id), ("rerun_reason", text)]
+    return dict(items)

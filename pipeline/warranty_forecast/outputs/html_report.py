@@ -23,6 +23,8 @@ import numpy as np
 import pandas as pd
 
 from warranty_forecast.outputs.manifest import RunManifest
+from warranty_forecast.outputs.report import ROLL_FORWARD_NOTE, change_since_last_run
+from warranty_forecast.stages.roll_forward import ReserveMovement
 from warranty_forecast.outputs.safe_text import one_line
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -146,6 +148,7 @@ def render_html_report(
     reporting_delay: pd.DataFrame | None = None,
     forecast_intervals: pd.DataFrame | None = None,
     safety_term_claims: pd.DataFrame | None = None,
+    movement: ReserveMovement | None = None,
 ) -> str:
     """The run report as one self-contained HTML page (UTF-8 text).
 
@@ -190,10 +193,7 @@ def render_html_report(
             "</ul></section>",
         ]
     parts += _headline(reserve_totals, forecast_intervals, level_text)
-    parts += [
-        "<!-- CHANGE SINCE THE LAST RUN (issue 10): not built yet; its section goes here. -->",
-        "<!-- ROLL-FORWARD OF THE RESERVE (issue 10): not built yet; its section goes here. -->",
-    ]
+    parts += _movement_section(movement, reserve_totals)
     parts += _reserve_section(reserve_totals, level_text)
     parts += _forecast_interval_section(forecast_intervals, level_text)
     parts += _reporting_delay_section(reporting_delay)
@@ -280,6 +280,36 @@ def _reserve_totals(reserve: pd.DataFrame) -> list[tuple[str, float, tuple[float
         )
         totals.append((f"Total reserve{unit}", float(rows["reserve"].sum()), interval, note))
     return totals
+
+
+def _movement_section(movement: ReserveMovement | None, reserve: pd.DataFrame) -> list[str]:
+    """The change since the last run and the roll-forward from the opening run (stages.roll_forward)."""
+    if movement is None:
+        return []
+    lines = ["<h2>How the reserve moved</h2>", _paragraph(change_since_last_run(movement, reserve))]
+    table = movement.roll_forward
+    if not len(table):
+        return lines + [_paragraph(f"Roll-forward: {movement.note}.", "note")]
+    first = table.iloc[0]
+    shown = pd.DataFrame({
+        "product": table["product"].map(_plain),
+        "currency": table["currency"].map(_plain),
+        "opening reserve": table["opening_reserve"].map(_money),
+        "+ accruals for units shipped since": table["accruals_for_units_shipped"].map(_money),
+        "- claims settled": table["claims_settled"].map(_money),
+        "+ changes in estimate": table["changes_in_estimate"].map(_money),
+        "= closing reserve": table["closing_reserve"].map(_money),
+        "units shipped since": table["units_shipped_since_opening"].map(_count),
+        "claims settled (count)": (table["settled_claims"] + table["settled_handled_claims"]).map(_count),
+    })
+    return lines + [
+        _paragraph(
+            f"Roll-forward from run {first['opening_run_id']} (as of {first['opening_as_of_date']}, the last month-end"
+            " close before this run, or the last run when no month end was run) to this run; undiscounted, to the cent."
+        ),
+        _table(shown, numeric=set(shown.columns) - {"product", "currency"}, row_class=None),
+        _paragraph(ROLL_FORWARD_NOTE, "note"),
+    ]
 
 
 def _reserve_section(reserve: pd.DataFrame, level_text: str) -> list[str]:

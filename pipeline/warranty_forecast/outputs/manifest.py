@@ -57,18 +57,21 @@ class RunManifest:
     seconds_by_stage: Mapping[str, float]
     seconds_by_sql_layer: Mapping[str, float]
     versions: Mapping[str, str]
+    charts_drawn: bool = True
 
     @property
     def run_id(self) -> str:
         """The run's id: its as-of date and a fingerprint of what it computed from (the extracts' SHA-256, the
-        settings in force, the package version), e.g. `2026-11-30-3f9a0c1b2d4e`. A rerun with the same
-        inputs, settings and as-of date has the same id; the run date and the timings do not enter it."""
+        settings in force, the package version, and whether charts were left out), e.g.
+        `2026-11-30-3f9a0c1b2d4e`. A rerun with the same inputs, settings and as-of date has the same id; the
+        run date and the timings do not enter it."""
         basis = json.dumps(
             {
                 "as_of_date": self.as_of_date.isoformat(),
                 "inputs": [[item.extract, item.sha256] for item in self.inputs],
                 "settings": self.settings,
                 "version": self.versions.get("warranty-forecast", ""),
+                **({} if self.charts_drawn else {"charts": False}),
             },
             sort_keys=True, default=str,
         )
@@ -94,6 +97,7 @@ class RunManifest:
             "seconds_by_stage": dict(self.seconds_by_stage),
             "seconds_by_sql_layer": dict(self.seconds_by_sql_layer),
             "versions": dict(self.versions),
+            "charts_drawn": self.charts_drawn,
             "finished_utc": self.finished_utc.isoformat(timespec="seconds"),
             "seconds_total": self.seconds_total,
         }
@@ -136,6 +140,7 @@ def run_manifest(
         seconds_by_stage=dict(seconds_by_stage),
         seconds_by_sql_layer={layer: round(seconds, 4) for layer, seconds in shaped.seconds_by_layer.items()},
         versions={"python": platform.python_version(), **{package: _version(package) for package in _PACKAGES}},
+        charts_drawn=config.draw_charts,
     )
 
 

@@ -253,32 +253,7 @@ def publish_outputs(
         check_replaceable(folder)
         incoming = _new_hidden_folder(folder, INCOMING)
         try:
-            written: dict[str, dict[str, Any]] = {}
-            for name, frame in tables.items():
-                path = incoming / f"{name}.parquet"
-                pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path)
-                written[path.name] = {"rows": int(len(frame))}
-            for name, figure in figures.items():
-                path = incoming / f"{name}.png"
-                if isinstance(figure, bytes):
-                    path.write_bytes(figure)
-                else:  # the same settings as figure_png
-                    figure.savefig(path, dpi=110, metadata={"Software": None})
-                written[path.name] = {}
-            for file_name, text in texts.items():
-                (incoming / file_name).write_text(text, encoding="utf-8")
-                written[file_name] = {}
-            for file_name, facts in written.items():
-                path = incoming / file_name
-                facts["bytes"] = path.stat().st_size
-                facts["sha256"] = sha256_of(path)
-            document = {"producer": producer(), **{k: v for k, v in manifest.items() if k != "producer"}}
-            document["outputs"] = written
-            with open(incoming / MANIFEST_NAME, "w", encoding="utf-8") as handle:
-                json.dump(document, handle, indent=2, sort_keys=False, default=str)
-                handle.write("\n")
-                handle.flush()
-                os.fsync(handle.fileno())
+            written = write_outputs(incoming, tables, figures, texts, manifest)
             _swap_into_place(incoming, folder)
         except OSError as error:
             shutil.rmtree(incoming, ignore_errors=True)
@@ -287,6 +262,54 @@ def publish_outputs(
             shutil.rmtree(incoming, ignore_errors=True)
             raise
     return written
+
+
+def write_outputs(
+    folder: Path,
+    tables: Mapping[str, pd.DataFrame],
+    figures: Mapping[str, Figure | bytes],
+    texts: Mapping[str, str],
+    manifest: Mapping[str, Any],
+) -> dict[str, dict[str, Any]]:
+    """Write a run's files into the existing empty `folder` (not yet visible to readers), manifest.json last
+    and synced; return what was written (file -> rows, bytes, sha256). See `publish_outputs` for the names."""
+    written: dict[str, dict[str, Any]] = {}
+    for name, frame in tables.items():
+        path = folder / f"{name}.parquet"
+        pq.write_table(_typed_nulls(pa.Table.from_pandas(frame, preserve_index=False)), path)
+        written[path.name] = {"rows": int(len(frame))}
+    for name, figure in figures.items():
+        path = folder / f"{name}.png"
+        if isinstance(figure, bytes):
+            path.write_bytes(figure)
+        else:  # the same settings as figure_png
+            figure.savefig(path, dpi=110, metadata={"Software": None})
+        written[path.name] = {}
+    for file_name, text in texts.items():
+        (folder / file_name).write_text(text, encoding="utf-8")
+        written[file_name] = {}
+    for file_name, facts in written.items():
+        path = folder / file_name
+        facts["bytes"] = path.stat().st_size
+        facts["sha256"] = sha256_of(path)
+    document = {"producer": producer(), **{k: v for k, v in manifest.items() if k != "producer"}}
+    document["outputs"] = written
+    with open(folder / MANIFEST_NAME, "w", encoding="utf-8") as handle:
+        json.dump(document, handle, indent=2, sort_keys=False, default=str)
+        handle.write("\n")
+        handle.flush()
+        os.fsync(handle.fileno())
+    return written
+
+
+def _typed_nulls(table: pa.Table) -> pa.Table:
+    """`table` with every column of Arrow's null type (an empty or all-missing text or date column of pandas)
+    given a real type: date for a name ending in "date", text otherwise, so stacked runs' tables line up."""
+    for index, column in enumerate(table.schema):
+        if pa.types.is_null(column.type):
+            wanted = pa.date32() if column.name.endswith("date") else pa.string()
+            table = table.set_column(index, pa.field(column.name, wanted), table.column(index).cast(wanted))
+    return table
 
 
 def _is_regular_file(path: Path) -> bool:

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from warranty_forecast.outputs.manifest import RunManifest
+from warranty_forecast.stages.roll_forward import ReserveMovement, reserve_total
 from warranty_forecast.outputs.safe_text import markdown_text
 
 CAUTIONS = (
@@ -83,6 +84,7 @@ def render_report(
     flagged_month_lives: pd.DataFrame | None = None,
     charts_drawn: bool = True,
     reporting_delay: pd.DataFrame | None = None,
+    movement: ReserveMovement | None = None,
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -109,6 +111,7 @@ def render_report(
     if warnings:
         lines += ["## Warnings", "", *[f"- {text}" for text in warnings], ""]
 
+    lines += _movement_lines(movement, reserve_totals)
     lines += ["## Reserve by product", ""]
 
     def column(name: str) -> pd.Series:
@@ -522,5 +525,62 @@ def _reporting_delay_lines(table: pd.DataFrame | None) -> list[str]:
         " fits allow for them and the forecast adds them in the month their claims are expected.",
         "",
         _table(shown),
+        "",
+    ]
+
+
+ROLL_FORWARD_NOTE = (
+    "Accruals price each unit shipped since the opening at this run's estimate of its whole-warranty cost at"
+    " issue; claims settled are the settled claims filed since the opening (at their cost) and the rejected and"
+    " no-fault-found claims at the handling cost; changes in estimate is the rest, for units already reserved"
+    " (new information, time passing, expiries, open claims decided). Each amount is rounded to the cent; the"
+    " total row adds the products' rows. Published as roll_forward.parquet; for finance and auditors to review."
+)
+
+
+def change_since_last_run(movement: ReserveMovement, reserve: pd.DataFrame) -> str:
+    """One sentence: this run's reserve total against the last run before it (currency units)."""
+    total = reserve_total(reserve) if len(reserve) else None
+    currencies = sorted(set(reserve["currency"].dropna())) if "currency" in reserve and len(reserve) else []
+    unit = f" {currencies[0]}" if len(currencies) == 1 else ""
+    if total is None:
+        return "No reserve in this run."
+    if movement.previous_run_id is None:
+        return f"Reserve {total:,.2f}{unit}; no earlier run under this output root to compare with."
+    if movement.previous_total is None:
+        return (f"Reserve {total:,.2f}{unit}; the last run ({movement.previous_run_id}, as of"
+                f" {movement.previous_as_of_date}) has no reserve to compare with.")
+    change = total - movement.previous_total
+    share = f" ({change / movement.previous_total:+.2%})" if movement.previous_total else ""
+    return (
+        f"Reserve {total:,.2f}{unit}: {change:+,.2f}{unit}{share} since the last run ({movement.previous_run_id},"
+        f" as of {movement.previous_as_of_date}, reserve {movement.previous_total:,.2f}{unit})."
+    )
+
+
+def _movement_lines(movement: ReserveMovement | None, reserve: pd.DataFrame) -> list[str]:
+    if movement is None:
+        return []
+    lines = ["## How the reserve moved", "", change_since_last_run(movement, reserve), ""]
+    table = movement.roll_forward
+    if not len(table):
+        return lines + [f"Roll-forward: {movement.note}.", ""]
+    first = table.iloc[0]
+    shown = pd.DataFrame({
+        "product": table["product"].astype(str),
+        "currency": table["currency"].astype(str),
+        "opening reserve": table["opening_reserve"].map(lambda v: f"{v:,.2f}"),
+        "+ accruals for units shipped since": table["accruals_for_units_shipped"].map(lambda v: f"{v:,.2f}"),
+        "- claims settled": table["claims_settled"].map(lambda v: f"{v:,.2f}"),
+        "+ changes in estimate": table["changes_in_estimate"].map(lambda v: f"{v:,.2f}"),
+        "= closing reserve": table["closing_reserve"].map(lambda v: f"{v:,.2f}"),
+    })
+    return lines + [
+        f"Roll-forward from run {first['opening_run_id']} (as of {first['opening_as_of_date']}) to this run,"
+        " undiscounted:",
+        "",
+        _table(_text_escaped(shown)),
+        "",
+        ROLL_FORWARD_NOTE,
         "",
     ]

@@ -139,6 +139,8 @@ class ShapedData:
     claim_cost_by_product: pd.DataFrame
     open_claims_by_build_month: pd.DataFrame  # counted claims not yet decided (open, pending) per build month
     claim_reporting_delays: pd.DataFrame  # counted returns by product x delay_days x observable_days (truncation)
+    units_shipped_by_day: pd.DataFrame  # units by product x build month x warranty x ship date (roll-forward)
+    claims_by_claim_date: pd.DataFrame  # settled and handled claims by product x claim date (roll-forward)
     quarantine: pd.DataFrame
     reconciliation: pd.DataFrame
     run_facts: dict[str, int]
