@@ -56,9 +56,9 @@ EXIT_CODE_HELP: dict[str, str] = {
     "BAD_ARGUMENTS": "bad command-line arguments or configuration file",
     "INPUT_UNREADABLE": "an input file is missing, unreadable, or not .csv/.parquet",
     "INPUT_CONTRACT": "an input breaks the contract as a whole (missing column, nothing usable)",
-    "OUTPUT_FAILED": "the outputs could not be written, or --out is a folder this tool must not replace",
+    "OUTPUT_FAILED": "the outputs could not be written, or --out is a root this tool must not use",
     "TOO_MANY_QUARANTINED": "an extract has more quarantined rows than the configured ceiling",
-    "ALREADY_RUNNING": "another run holds the lock on the same output folder",
+    "ALREADY_RUNNING": "another run holds the lock on the same output root",
     "INTERRUPTED_BASE": "stopped by signal N (130 SIGINT, 143 SIGTERM); outputs unchanged unless already published",
 }
 

@@ -134,6 +134,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         lambda: book_reserve(
             shaped.cohort_summary, shaped.claim_cost_by_product, forecast.by_month, forecast.status,
             forecast.models.keys(), config.reserve, as_of_date=shaped.as_of_date,
+            open_claims=shaped.open_claims_by_build_month,
         ),
         lambda r: f"total {r.total:,.2f}",
     )

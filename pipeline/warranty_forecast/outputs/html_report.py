@@ -192,7 +192,7 @@ def render_html_report(
             *[f"<li>{escaped(text)}</li>" for text in warnings],
             "</ul></section>",
         ]
-    parts += _headline(reserve_totals, forecast_intervals, level_text)
+    parts += _headline(reserve_totals, forecast_intervals, level_text, movement)
     parts += _movement_section(movement, reserve_totals)
     parts += _reserve_section(reserve_totals, level_text)
     parts += _forecast_interval_section(forecast_intervals, level_text)
@@ -231,14 +231,26 @@ def render_html_report(
 # -- sections --------------------------------------------------------------------------------------------
 
 
-def _headline(reserve: pd.DataFrame, intervals: pd.DataFrame | None, level_text: str) -> list[str]:
+def _headline(
+    reserve: pd.DataFrame, intervals: pd.DataFrame | None, level_text: str, movement: ReserveMovement | None = None
+) -> list[str]:
     boxes = []
-    for label, total, interval, note in _reserve_totals(reserve):
+    totals = _reserve_totals(reserve)
+    for label, total, interval, note in totals:
         range_text = (
             f"{level_text} prediction interval {_money(interval[0])} to {_money(interval[1])}"
             if interval is not None else "prediction interval: n/a (a product has none)"
         )
         boxes.append(_box(label, _money(total), range_text, note))
+    if movement is not None and movement.previous_total is not None and len(totals) == 1:
+        change = totals[0][1] - movement.previous_total
+        share = f" ({change / movement.previous_total:+.2%})" if movement.previous_total else ""
+        boxes.append(_box(
+            "Change since the last run",
+            f"{change:+,.2f}{share}",
+            f"from {_money(movement.previous_total)} as of {movement.previous_as_of_date}",
+            f"run {movement.previous_run_id}; the roll-forward below explains the movement",
+        ))
     if intervals is not None and len(intervals) and {"horizon", "expected", "lower", "upper"} <= set(intervals.columns):
         next_year = intervals[intervals["horizon"] == "next_12_months"]
         if len(next_year):

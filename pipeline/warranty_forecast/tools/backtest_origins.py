@@ -486,7 +486,7 @@ def run_backtest(
             config_path=config_path, run_date=run_date, draw_charts=False,
         )
         run_nightly(config)
-        run = read_origin_run(folder, origin)
+        run = read_origin_run(folder / "latest", origin)  # the origin's output root: its one run
         for found in (run.interval_source, run.month_interval_source):
             if found:
                 sources.append(f"{origin}: {found}")
