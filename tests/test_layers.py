@@ -11,6 +11,8 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "pipeline" / "warranty_forecast"
 DUCKDB_STAGE = {"stages/sql_runner.py", "stages/extracts.py", "stages/shaping.py"}
+# the history database is written at the publishing edge; it runs no model and reads no extract
+DUCKDB_WRITERS = {"outputs/history.py"}
 
 
 def imported_modules(path: Path) -> set[str]:
@@ -43,7 +45,7 @@ def test_only_the_duckdb_stage_imports_duckdb_and_nothing_imports_the_command_li
     for path in modules():
         relative = str(path.relative_to(PACKAGE))
         names = imported_modules(path)
-        if relative not in DUCKDB_STAGE:
+        if relative not in DUCKDB_STAGE | DUCKDB_WRITERS:
             assert "duckdb" not in names, relative
         if relative not in {"cli.py", "__main__.py"}:
             assert "warranty_forecast.cli" not in names, relative

@@ -153,7 +153,7 @@ PLANT_NOTES: dict[tuple[str, str], str] = {
     ("unparseable_value", "failure_date"): "failure_date is `2025-02-30`",
     ("unparseable_value", "cost"): "cost is `abc`",
     ("negative_cost", "cost"): "cost is -35.00",
-    ("unknown_status", "status"): "status is `pending`",
+    ("unknown_status", "status"): "status is `lost`",
     ("claim_before_failure", "claim_date"): "claim_date is before failure_date",
     ("failure_before_sale", "failure_date"): "failure_date is before the claim's own sale_date",
     ("failure_before_build", "failure_date"): "failure_date is before the first day of the build month",
