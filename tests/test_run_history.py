@@ -337,3 +337,27 @@ def test_a_table_that_gains_a_column_gains_it_in_the_history(tmp_path):
     with duckdb.connect(str(root / "history.duckdb"), read_only=True) as con:
         rows = con.execute("select run_id, reserve_handling from reserve_by_product order by run_id").fetchall()
     assert rows == [(old, None), (new, 1.5)]
+
+
+def test_what_changed_names_the_extracts_the_settings_and_the_program():
+    earlier = run_folders.PublishedRun(
+        run_id="2026-10-31-aaaaaaaaaaaa", as_of_date=OCT, finished_utc="", folder=Path("x"),
+        inputs={"shipments": "s1", "claims": "c1"}, settings={"reserve": {"currency": "XXX"}, "alerts": {"min_ratio": 1.5}},
+        version="1.0", code="abc",
+    )
+    same_settings = {"reserve": {"currency": "XXX"}, "alerts": {"min_ratio": 1.5}}
+    assert run_folders.what_changed(earlier, {"shipments": "s1", "claims": "c2"}, same_settings, "1.0", "abc") == (
+        "the claims extract changed")
+    assert run_folders.what_changed(
+        earlier, {"shipments": "s1", "claims": "c1"}, {"reserve": {"currency": "EUR"}, "alerts": {"min_ratio": 1.5}},
+        "1.0", "abc") == "settings changed in [reserve]"
+    assert run_folders.what_changed(earlier, earlier.inputs, same_settings, "1.0", "def") == (
+        "the program changed (code abc -> def)")
+    assert run_folders.what_changed(earlier, earlier.inputs, same_settings, "1.1", "def") == "version 1.0 -> 1.1"
+
+
+def test_the_run_id_carries_a_fingerprint_of_the_program(demo_root):
+    from warranty_forecast.outputs.manifest import CODE_KEY, code_fingerprint
+
+    document = json.loads((demo_root / "latest" / "manifest.json").read_text(encoding="utf-8"))
+    assert document["versions"][CODE_KEY] == code_fingerprint() and re.fullmatch(r"[0-9a-f]{12}", code_fingerprint())

@@ -22,7 +22,7 @@ from typing import Callable, TypeVar
 
 from warranty_forecast.config import RunConfig, check_products_in_data
 from warranty_forecast.outputs import charts
-from warranty_forecast.outputs.manifest import RunManifest, run_manifest
+from warranty_forecast.outputs.manifest import CODE_KEY, RunManifest, run_manifest
 from warranty_forecast.outputs.html_report import render_html_report
 from warranty_forecast.outputs.history import record_published_runs
 from warranty_forecast.outputs.publish import figure_png
@@ -312,6 +312,7 @@ def _with_rerun_record(manifest: RunManifest, published, reason: str | None) -> 
         {item.extract: item.sha256 for item in manifest.inputs},
         {name: table for name, table in document["config"].items() if name != "path"},
         manifest.versions.get("warranty-forecast", ""),
+        manifest.versions.get(CODE_KEY, ""),
     )
     given = " ".join(reason.split()) if reason else ""
     text = f"{given} ({changed})" if given else f"no reason given ({changed})"

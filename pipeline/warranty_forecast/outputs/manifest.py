@@ -10,7 +10,8 @@ import hashlib
 import json
 import platform
 from dataclasses import dataclass
-from importlib import metadata
+from functools import lru_cache
+from importlib import metadata, resources
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -62,7 +63,8 @@ class RunManifest:
     @property
     def run_id(self) -> str:
         """The run's id: its as-of date and a fingerprint of what it computed from (the extracts' SHA-256, the
-        settings in force, the package version, and whether charts were left out), e.g.
+        settings in force, the package version and a fingerprint of its code (`code_fingerprint`), and whether
+        charts were left out), e.g.
         `2026-11-30-3f9a0c1b2d4e`. A rerun with the same inputs, settings and as-of date has the same id; the
         run date and the timings do not enter it."""
         basis = json.dumps(
@@ -71,6 +73,7 @@ class RunManifest:
                 "inputs": [[item.extract, item.sha256] for item in self.inputs],
                 "settings": self.settings,
                 "version": self.versions.get("warranty-forecast", ""),
+                "code": self.versions.get(CODE_KEY, ""),
                 **({} if self.charts_drawn else {"charts": False}),
             },
             sort_keys=True, default=str,
@@ -139,7 +142,10 @@ def run_manifest(
         warnings=warnings,
         seconds_by_stage=dict(seconds_by_stage),
         seconds_by_sql_layer={layer: round(seconds, 4) for layer, seconds in shaped.seconds_by_layer.items()},
-        versions={"python": platform.python_version(), **{package: _version(package) for package in _PACKAGES}},
+        versions={
+            "python": platform.python_version(), **{package: _version(package) for package in _PACKAGES},
+            CODE_KEY: code_fingerprint(),
+        },
         charts_drawn=config.draw_charts,
     )
 
@@ -159,6 +165,27 @@ def _input_file(extract: str, path: Path, reconciled: pd.Series, ignored: list[s
 def _quarantine_counts(quarantine: pd.DataFrame) -> dict[str, int]:
     counts = quarantine.groupby(["extract", "column", "reason"]).size()
     return {f"{extract}:{column}:{reason}": int(count) for (extract, column, reason), count in counts.items()}
+
+
+CODE_KEY = "warranty-forecast-code"
+
+
+@lru_cache(maxsize=1)
+def code_fingerprint() -> str:
+    """The first 12 hex digits of the SHA-256 over the package's Python files and its SQL models (relative
+    path and bytes, in path order; the models found as the SQL stage finds them, in an editable install the
+    tree's sql/): a changed program gives another run id even when its version number stayed."""
+    package = Path(__file__).resolve().parents[1]
+    models = Path(str(resources.files("warranty_forecast.sql")))
+    files = sorted(
+        [(f"py/{path.relative_to(package).as_posix()}", path) for path in package.rglob("*.py") if path.is_file()
+         and "sql" not in path.relative_to(package).parts[:1]]
+        + [(f"sql/{path.relative_to(models).as_posix()}", path) for path in models.rglob("*.sql") if path.is_file()]
+    )
+    digest = hashlib.sha256()
+    for name, path in files:
+        digest.update(name.encode("utf-8") + b"\0" + path.read_bytes() + b"\0")
+    return digest.hexdigest()[:12]
 
 
 def _version(package: str) -> str:

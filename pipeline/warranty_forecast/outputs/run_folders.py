@@ -64,6 +64,7 @@ class PublishedRun:
     inputs: Mapping[str, str]  # extract -> SHA-256
     settings: Mapping[str, Any]
     version: str
+    code: str = ""
     rerun_of: str | None = None
     reason: str | None = None
     document: Mapping[str, Any] = field(default_factory=dict, repr=False, compare=False)
@@ -120,6 +121,7 @@ def read_published_run(folder: Path) -> PublishedRun | None:
                 if isinstance(item, dict)},
         settings={k: v for k, v in config.items() if k != "path"} if isinstance(config, dict) else {},
         version=str((document.get("versions") or {}).get(PRODUCER_NAME, "")),
+        code=str((document.get("versions") or {}).get(f"{PRODUCER_NAME}-code", "")),
         rerun_of=document.get("rerun_of"),
         reason=document.get("rerun_reason"),
         document=document,
@@ -177,7 +179,9 @@ def latest_run(runs: list[PublishedRun]) -> PublishedRun | None:
     return max(runs, key=lambda run: run.order) if runs else None
 
 
-def what_changed(earlier: PublishedRun, inputs: Mapping[str, str], settings: Mapping[str, Any], version: str) -> str:
+def what_changed(
+    earlier: PublishedRun, inputs: Mapping[str, str], settings: Mapping[str, Any], version: str, code: str = ""
+) -> str:
     """Words for what differs between a published run and a new one for the same as-of date."""
     changes = [
         f"the {extract} extract changed" for extract in sorted(set(earlier.inputs) | set(inputs))
@@ -192,6 +196,8 @@ def what_changed(earlier: PublishedRun, inputs: Mapping[str, str], settings: Map
         changes.append("settings changed in " + ", ".join(f"[{name}]" for name in sections))
     if earlier.version != version:
         changes.append(f"version {earlier.version or '?'} -> {version}")
+    elif earlier.code != code:
+        changes.append(f"the program changed (code {earlier.code or '?'} -> {code})")
     return "; ".join(changes) or "nothing that enters the run id differs"
 
 
