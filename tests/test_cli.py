@@ -8,17 +8,22 @@ from __future__ import annotations
 import datetime as dt
 import json
 import logging
+import os
 import subprocess
 import sys
 from importlib import metadata
 from pathlib import Path
 
+import duckdb
 import pandas as pd
 import pytest
 
 import warranty_forecast.run as run_module
+import warranty_forecast.outputs.publish as publish
+import warranty_forecast.outputs.run_folders as run_folders
 from warranty_forecast import __version__, exit_codes
 from warranty_forecast.cli import EXIT_CODE_HELP, build_parser, configure_logging, main
+from warranty_forecast.outputs.history import record_published_runs
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "data_demo"
@@ -33,7 +38,7 @@ EXPECTED_FILES = {
     "failure_mode_pareto.png", "build_month_alerts.parquet", "build_month_causes.parquet",
     "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
     "reporting_delay.parquet", "forecast_by_calendar_month.parquet", "forecast_intervals.parquet",
-    "cumulative_returns_per_unit.png", "report.html", "reserve_by_product.csv", "reserve.csv",
+    "cumulative_returns_per_unit.png", "report.html", "reserve_by_product.csv", "reserve.csv", "roll_forward.parquet",
 }
 
 
@@ -43,16 +48,39 @@ def run(*args: str) -> int:
 
 @pytest.fixture(scope="module")
 def demo_out(demo_run_copy) -> Path:
-    """The full demo run (conftest.py), this module's own copy."""
+    """The full demo run's folder (conftest.py), this module's own copy, reached through <root>/latest."""
     return demo_run_copy
+
+
+def hidden_beside(root: Path) -> list[str]:
+    """Hidden entries beside an output root (its lock file stays there by design)."""
+    return sorted(p.name for p in root.parent.iterdir() if p.name.startswith("."))
+
+
+def snapshot(folder: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in folder.iterdir()}
 
 
 def test_demo_run_writes_every_output(demo_out):
     assert {p.name for p in demo_out.iterdir()} == EXPECTED_FILES
-    assert [p.name for p in demo_out.parent.iterdir() if p.name.startswith(".")] == [".out.lock"]  # no leftovers
+    # the output root (run_folders): runs/<run id>/ for the month-end run before (conftest.py) and this one,
+    # `latest` a link to this one, the history database of both; the lock beside the root; no leftovers
+    root = demo_out.parent
+    run_id = json.loads((demo_out / "manifest.json").read_text())["run_id"]
+    assert sorted(p.name for p in root.iterdir()) == ["history.duckdb", "latest", "runs"]
+    assert demo_out.is_symlink() and os.readlink(demo_out) == f"runs/{run_id}"
+    runs = sorted(p.name for p in (root / "runs").iterdir())
+    assert len(runs) == 2 and runs[0].startswith("2026-10-31-") and runs[1] == run_id
+    assert hidden_beside(root) == [".out.lock"]
+    with duckdb.connect(str(root / "history.duckdb"), read_only=True) as con:
+        assert con.execute("select run_id, as_of_date, folder from runs order by as_of_date").fetchall() == [
+            (runs[0], dt.date(2026, 10, 31), f"runs/{runs[0]}"), (run_id, dt.date(2026, 11, 30), f"runs/{run_id}"),
+        ]
+        assert con.execute("select count(*) from reserve_by_product where run_id = ?", [run_id]).fetchone()[0] == len(
+            pd.read_parquet(demo_out / "reserve_by_product.parquet")
+        )
     assert json.loads((demo_out / "manifest.json").read_text())["producer"]["name"] == "warranty-forecast"
     # every table says which run wrote it (README, Outputs): the manifest's run_id and the as-of date first
-    run_id = json.loads((demo_out / "manifest.json").read_text())["run_id"]
     assert run_id.startswith("2026-11-30-") and len(run_id) == len("2026-11-30-") + 12
     for path in demo_out.glob("*.parquet"):
         frame = pd.read_parquet(path)
@@ -122,7 +150,11 @@ def test_demo_tables_are_consistent(demo_out):
     totals = pd.read_parquet(demo_out / "reserve_by_product.parquet").set_index("product")
     claims = reserve["expected_future_returns"] + reserve["expected_unreported_returns"] + reserve["expected_repeat_claims"]
     assert (reserve["expected_future_claims"] == claims).all()
-    assert (reserve["reserve"] == reserve["expected_future_claims"] * reserve["cost_per_claim"]).all()
+    # the reserve booked is its future claims priced (the demo's settings discount and inflate nothing, so every
+    # factor is exactly 1: stages/reserve.py) plus the open claims and the handling
+    assert (reserve["reserve_future_claims"] == reserve["expected_future_claims"] * reserve["cost_per_claim"]).all()
+    parts = reserve["reserve_future_claims"] + reserve["reserve_open_claims"] + reserve["reserve_handling"]
+    assert (reserve["reserve"] == parts).all()
     for column, total in (("expected_returns", "expected_future_returns"), ("expected_claims", "expected_future_claims"),
                           ("expected_unreported_returns", "expected_unreported_returns")):
         assert forecast[column].sum() == pytest.approx(reserve[total].sum(), rel=1e-9)
@@ -139,34 +171,55 @@ def test_demo_tables_are_consistent(demo_out):
     assert f"{worst['build_month']:%Y-%m}" == "2025-02"
 
 
-def test_rerun_replaces_outputs_with_identical_tables(demo_out, tmp_path):
-    before = {p.name: p.read_bytes() for p in demo_out.glob("*.parquet")}
-    assert run("--out", str(demo_out), "--no-charts") == exit_codes.SUCCESS  # the tables are what is compared
-    after = {p.name: p.read_bytes() for p in demo_out.glob("*.parquet")}
-    assert before == after
+def test_identical_rerun_changes_nothing(demo_out, capsys):
+    # the same arguments as the demo run (conftest.py; charts drawn: a --no-charts run has another run id):
+    # the same run id, its tables compared byte for byte with the published ones, nothing rewritten
+    root = demo_out.parent
+    folder = demo_out.resolve()
+    before = snapshot(folder)
+    runs_before = sorted(p.name for p in (root / "runs").iterdir())
+    assert run("--out", str(root)) == exit_codes.SUCCESS
+    assert snapshot(folder) == before
+    assert sorted(p.name for p in (root / "runs").iterdir()) == runs_before  # no new run folder
+    assert os.readlink(demo_out) == f"runs/{folder.name}" and hidden_beside(root) == [".out.lock"]
+    err = capsys.readouterr().err
+    assert f"changed nothing; the outputs stay in {folder}" in err
+    assert f"run {folder.name} is already published in {folder} with byte-identical tables" in err
 
 
 def test_missing_required_column_fails_cleanly_and_keeps_previous_outputs(demo_out, tmp_path):
     claims = pd.read_csv(CLAIMS, dtype=str).drop(columns="failure_date")
     broken = tmp_path / "claims.csv"
     claims.to_csv(broken, index=False)
-    manifest_before = (demo_out / "manifest.json").read_bytes()
-    code = main(["run", "--shipments", str(SHIPMENTS), "--claims", str(broken), "--out", str(demo_out)])
+    root = demo_out.parent
+    before = snapshot(demo_out)
+    runs_before = sorted(p.name for p in (root / "runs").iterdir())
+    code = main(["run", "--shipments", str(SHIPMENTS), "--claims", str(broken), "--out", str(root)])
     assert code == exit_codes.INPUT_CONTRACT
-    assert (demo_out / "manifest.json").read_bytes() == manifest_before
-    assert [p.name for p in demo_out.parent.iterdir() if p.name.startswith(".")] == [".out.lock"]
+    assert snapshot(demo_out) == before and os.readlink(demo_out) == f"runs/{demo_out.resolve().name}"
+    assert sorted(p.name for p in (root / "runs").iterdir()) == runs_before
+    assert hidden_beside(root) == [".out.lock"]
 
 
 def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
-    import warranty_forecast.outputs.publish as publish
+    # the last step of publishing fails: every file is written in runs/.<run id>.incoming-*, and the rename
+    # that would publish it raises
+    rename = os.rename
+    attempts = []
 
-    def explode(*_args, **_kwargs):
-        raise RuntimeError("disk on fire")
+    def explode(source, target, *args, **kwargs):
+        if ".incoming-" in Path(source).name:
+            attempts.append(Path(source))
+            raise RuntimeError("disk on fire")
+        return rename(source, target, *args, **kwargs)
 
-    monkeypatch.setattr(publish, "_swap_into_place", explode)
+    monkeypatch.setattr(run_folders.os, "rename", explode)
     out = tmp_path / "out"
     assert run("--out", str(out), "--no-charts") == exit_codes.UNEXPECTED_ERROR
-    assert [p.name for p in tmp_path.iterdir()] == [".out.lock"]  # the lock file stays, by design
+    assert len(attempts) == 1 and attempts[0].parent == out / "runs"
+    assert [p.name for p in tmp_path.iterdir() if p.name != "out"] == [".out.lock"]  # the lock file stays, by design
+    # no run folder, no incoming leftover, no `latest`, no history
+    assert [p.name for p in out.iterdir()] == ["runs"] and list((out / "runs").iterdir()) == []
 
 
 @pytest.mark.parametrize(
@@ -195,12 +248,56 @@ def test_bad_config_exits_2(tmp_path):
     assert code == exit_codes.BAD_ARGUMENTS
 
 
-def test_refuses_to_replace_a_folder_that_is_not_an_output(tmp_path):
+def publish_like_a_run(config, reason=None):
+    """Stands in for run_nightly: publishes a small run as its last steps do (run.py: publish_run, then
+    record_published_runs, then point_latest)."""
+    run_id = "2026-11-30-0123456789ab"
+    table = pd.DataFrame({"run_id": [run_id], "as_of_date": [dt.date(2026, 11, 30)], "product": ["QCP-140"],
+                          "reserve": [1.0]})
+    document = {"run_id": run_id, "as_of_date": "2026-11-30", "finished_utc": "2026-12-01T02:00:00+00:00"}
+    outcome = run_folders.publish_run(config.out_dir, run_id, {"reserve_by_product": table}, {}, {}, document)
+    assert record_published_runs(outcome.root).error is None
+    run_folders.point_latest(outcome.root)
+    return run_module.RunResult(outcome.root, dt.date(2026, 11, 30), None, (), run_folder=outcome.folder)
+
+
+def test_a_root_holding_other_files_is_used_and_they_are_left_alone(tmp_path, monkeypatch):
+    # the output root is never replaced (run_folders): someone's files in it are no reason to refuse it
+    monkeypatch.setattr(run_module, "run_nightly", publish_like_a_run)
     out = tmp_path / "precious"
     out.mkdir()
     (out / "thesis.txt").write_text("do not delete")
-    assert run("--out", str(out)) == exit_codes.OUTPUT_FAILED
+    assert run("--out", str(out)) == exit_codes.SUCCESS
     assert (out / "thesis.txt").read_text() == "do not delete"
+    assert sorted(p.name for p in out.iterdir()) == ["history.duckdb", "latest", "runs", "thesis.txt"]
+    assert os.readlink(out / "latest") == "runs/2026-11-30-0123456789ab"
+
+
+def test_a_root_holding_the_single_run_layout_is_refused_and_its_folder_above_is_taken(tmp_path, monkeypatch, capsys):
+    # the version before run folders wrote one run into --out (default reports/latest); passing that folder
+    # now is refused with nothing changed, and the message says to pass the folder above it, which works
+    calls = []
+
+    def stand_in(config, reason=None):
+        calls.append(config.out_dir)
+        return publish_like_a_run(config, reason)
+
+    monkeypatch.setattr(run_module, "run_nightly", stand_in)
+    old = tmp_path / "reports" / "latest"
+    publish.publish_outputs(
+        old, {"old": pd.DataFrame({"a": [1]})}, {}, {"report.md": "old"},
+        {"run_id": "2026-11-29-aaaaaaaaaaaa", "as_of_date": "2026-11-29", "finished_utc": "2026-11-30T02:00:00+00:00"},
+    )
+    before = snapshot(old)
+    assert run("--out", str(old)) == exit_codes.OUTPUT_FAILED
+    assert calls == [] and snapshot(old) == before and not old.is_symlink()
+    assert sorted(p.name for p in old.parent.iterdir()) == [".latest.lock", "latest"]
+    errors = [line for line in capsys.readouterr().err.splitlines() if "ERROR" in line]
+    assert len(errors) == 1 and str(old) in errors[0] and "single run" in errors[0]
+    assert "pass the folder above it as --out" in errors[0] and "nothing was changed" in errors[0]
+    assert run("--out", str(old.parent)) == exit_codes.SUCCESS
+    assert snapshot(old.parent / "runs" / "2026-11-29-aaaaaaaaaaaa") == before  # moved into runs/ as it was
+    assert os.readlink(old) == "runs/2026-11-30-0123456789ab"
 
 
 def test_module_entry_point_runs():
@@ -228,6 +325,7 @@ def test_thin_data_configuration_uses_fixed_shapes_and_alternative_forecasts(tmp
     )
     out = tmp_path / "out"
     assert run("--config", str(config), "--out", str(out), "--no-charts") == exit_codes.SUCCESS
+    out = out / "latest"
     life_model = pd.read_parquet(out / "life_model.parquet").set_index("product")
     assert life_model.loc["QHT-360", "status"] == "fixed_shape" and life_model.loc["QHT-360", "shape"] == 2.5
     assert life_model.loc["QDS-210", "status"] == "insufficient_data"
@@ -248,7 +346,7 @@ def test_forecast_model_choice(tmp_path, demo_out, forecast_model):
     config.write_text(f"[life_model]\nforecast_model = \"{forecast_model}\"\n[forecast]\nprediction_draws = 200\n")
     out = tmp_path / "out"
     assert run("--config", str(config), "--out", str(out), "--no-charts") == exit_codes.SUCCESS
-    totals = pd.read_parquet(out / "reserve_by_product.parquet").set_index("product")
+    totals = pd.read_parquet(out / "latest" / "reserve_by_product.parquet").set_index("product")
     weibull = pd.read_parquet(demo_out / "reserve_by_product.parquet").set_index("product")
     expected_name = "lognormal" if forecast_model == "lognormal" else "failure modes"
     # QCP-140 is left out: its flagged build month gets its own life on top of whichever model
@@ -298,7 +396,7 @@ def test_verbose_before_or_after_the_command(args, verbose):
 
 
 def test_verbose_after_the_command_logs_debug(tmp_path, monkeypatch):
-    def stand_in(config):
+    def stand_in(config, reason=None):
         return run_module.RunResult(config.out_dir, dt.date(2026, 11, 30), {}, ())
 
     monkeypatch.setattr(run_module, "run_nightly", stand_in)
@@ -370,7 +468,7 @@ def test_a_traceback_keeps_its_lines_and_its_message_line_is_escaped(capsys):
 
 
 def test_product_name_from_the_run_cannot_forge_a_log_line(tmp_path, monkeypatch, capsys):
-    def stand_in(config):
+    def stand_in(config, reason=None):
         logging.getLogger("warranty_forecast.run").warning("product %s: no cost per claim", FORGED)
         return run_module.RunResult(config.out_dir, dt.date(2026, 11, 30), {}, (FORGED,))
 

@@ -13,6 +13,7 @@ import csv
 import datetime as dt
 import io
 import json
+import os
 import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -344,7 +345,7 @@ HOSTILE_CASES: dict[str, tuple[Callable[[Extracts], None], Expect]] = {
 
 @pytest.fixture(scope="module")
 def previous_outputs(tmp_path_factory) -> Path:
-    """A good run of the base case: the outputs a failed run must leave untouched."""
+    """A good run of the base case: the output root whose outputs a failed run must leave untouched."""
     folder = tmp_path_factory.mktemp("base")
     shipments, claims = Extracts(folder).write()
     out = folder / "out"
@@ -352,8 +353,22 @@ def previous_outputs(tmp_path_factory) -> Path:
     return out
 
 
-def _snapshot(folder: Path) -> dict[str, bytes]:
-    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+def _snapshot(root: Path) -> dict[str, bytes | str]:
+    """Every file's bytes, link's target and folder under an output root (links not followed)."""
+    seen: dict[str, bytes | str] = {}
+    for folder, names, files in os.walk(root):
+        for name in names + files:
+            path = Path(folder) / name
+            key = str(path.relative_to(root))
+            if path.is_symlink():
+                seen[key] = "-> " + os.readlink(path)
+            else:
+                seen[key] = "folder" if path.is_dir() else path.read_bytes()
+    return seen
+
+
+def _run_folders(root: Path) -> set[str]:
+    return {p.name for p in (root / "runs").iterdir()}
 
 
 @pytest.mark.parametrize("kind", sorted(HOSTILE_CASES))
@@ -365,8 +380,9 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
     out_parent = tmp_path / "published"
     out_parent.mkdir()
     out = out_parent / "out"
-    shutil.copytree(previous_outputs, out)
+    shutil.copytree(previous_outputs, out, symlinks=True)
     before = _snapshot(out)
+    runs_before = _run_folders(out)
 
     # charts (and their place in report.html) are drawn in the one case whose product name holds a pipe,
     # a newline and a script tag together; elsewhere skipped to keep the suite fast (the charts' own
@@ -383,9 +399,16 @@ def test_hostile_input_ends_cleanly(kind, tmp_path, previous_outputs, capsys):
         assert words in log, (words, log[-3000:])
     leftovers = [p.name for p in out_parent.iterdir() if p.name != "out" and not p.name.endswith(".lock")]
     assert leftovers == []  # no half-published folder beside the outputs
+    assert [p.name for p in (out / "runs").iterdir() if p.name.startswith(".")] == []  # nor in runs/
+    assert [p.name for p in out.iterdir() if p.name.startswith(".")] == []  # no half-made latest link
     if code != exit_codes.SUCCESS:
         assert _snapshot(out) == before  # nothing published
         return
+    # this run's own folder (`latest` may stay at the previous run when this run's as-of date is older); an
+    # identical run publishes nothing new
+    new = _run_folders(out) - runs_before
+    assert len(new) <= 1
+    out = out / "runs" / new.pop() if new else (out / "latest").resolve()
     manifest = json.loads((out / "manifest.json").read_text())
     quarantine = pd.read_parquet(out / "quarantine.parquet")
     for extract in manifest["reconciliation"]:
@@ -409,6 +432,7 @@ def test_no_charts_writes_the_tables_report_and_manifest_without_any_png(tmp_pat
     shipments, claims = Extracts(tmp_path).write()
     out = tmp_path / "out"
     assert main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), "--no-charts"]) == 0
+    out = out / "latest"
     names = {p.name for p in out.iterdir()}
     assert not any(name.endswith(".png") for name in names)
     assert {"forecast.parquet", "reserve.parquet", "build_month_alerts.parquet", "report.md", "manifest.json"} <= names

@@ -481,7 +481,7 @@ def test_stale_extracts_warn_in_the_log_manifest_and_report(tmp_path):
     shipments_path, claims_path = extracts(tmp_path, shipments)
     config = config_for(shipments_path, claims_path, run_date=dt.date(2024, 6, 20))
     result = run_nightly(config)
-    manifest = json.loads((config.out_dir / "manifest.json").read_text())
+    manifest = json.loads((config.out_dir / "latest" / "manifest.json").read_text())
     assert manifest["as_of_date"] == "2024-05-10" and manifest["as_of_source"] == "newest valid ship_date"
     assert manifest["freshness"] == {
         "run_date": "2024-06-20", "as_of_date": "2024-05-10", "newest_claim_date": "2024-04-20",
@@ -496,5 +496,5 @@ def test_stale_extracts_warn_in_the_log_manifest_and_report(tmp_path):
         " the extracts may be stale",
     ]
     assert manifest["warnings"][:2] == stale and list(result.warnings[:2]) == stale
-    assert stale[0] in (config.out_dir / "report.md").read_text()
+    assert stale[0] in (config.out_dir / "latest" / "report.md").read_text()
     assert manifest["quarantine_by_reason"] == {}

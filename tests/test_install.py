@@ -84,6 +84,6 @@ def test_demo_runs_from_the_wheel_in_a_fresh_virtual_environment(wheel, tmp_path
         capture_output=True, text=True, cwd=workdir,
     )
     assert result.returncode == 0, result.stderr[-2000:]
-    manifest = json.loads((out / "manifest.json").read_text())
+    manifest = json.loads((out / "latest" / "manifest.json").read_text())
     assert manifest["as_of_date"] == "2026-11-30"
-    assert (out / "reserve_by_product.parquet").is_file()
+    assert (out / "latest" / "reserve_by_product.parquet").is_file()

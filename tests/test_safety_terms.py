@@ -82,6 +82,7 @@ def test_a_demo_run_with_one_smoke_code_lists_exactly_that_claim(tmp_path):
     code = main(["run", "--shipments", str(ROOT / "data_demo" / "shipments.parquet"), "--claims", str(claims),
                  "--out", str(out), "--no-charts"])
     assert code == 0
+    out = out / "latest"
     listed = pd.read_parquet(out / "safety_term_claims.parquet")
     # the one changed row, as the demo file holds it (hand reading of data_demo/claims.csv, row 1)
     assert len(listed) == 1
