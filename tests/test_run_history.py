@@ -361,3 +361,15 @@ def test_the_run_id_carries_a_fingerprint_of_the_program(demo_root):
 
     document = json.loads((demo_root / "latest" / "manifest.json").read_text(encoding="utf-8"))
     assert document["versions"][CODE_KEY] == code_fingerprint() and re.fullmatch(r"[0-9a-f]{12}", code_fingerprint())
+
+
+def test_the_readme_shows_the_demo_roll_forward_as_the_demo_computes_it(demo_root):
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## Roll-forward of the reserve"):text.index("## History database")]
+    rows = [line.strip("|").split("|") for line in section.splitlines() if line.startswith("| QCP-140")
+            or line.startswith("| QDS-210") or line.startswith("| QHT-360") or line.startswith("| (all products)")]
+    shown = {cells[0].strip(): [float(c.replace(",", "")) for c in cells[2:7]] for cells in rows}
+    table = pd.read_parquet(demo_root / "latest" / "roll_forward.parquet").set_index("product")
+    assert set(shown) == set(table.index)
+    for product, amounts in shown.items():
+        assert [cents(v) for v in amounts] == [cents(table.loc[product, c]) for c in AMOUNT_COLUMNS], product
