@@ -242,6 +242,10 @@ def test_cautions_state_the_reserve_settings_in_force():
     settings = {"reserve": {"annual_inflation_rate": 0.03, "annual_discount_rate": 0.04}, "forecast": {}}
     priced = " ".join(assert_safe_page(render(manifest=manifest(settings=settings))).text)
     assert "claim costs inflated at 3.00% a year; reserve discounted at 4.00% a year" in priced
+    assert "no handling cost for rejected and no-fault-found claims" in plain and "open claims at their" in plain
+    handled = {"reserve": {"handling_cost_per_claim": 12.5}, "forecast": {}}
+    assert "plus 12.50 per expected rejected or no-fault-found claim" in " ".join(
+        assert_safe_page(render(manifest=manifest(settings=handled))).text)
 
 
 # -- the combined interval of the total -------------------------------------------------------------------

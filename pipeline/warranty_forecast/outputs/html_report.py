@@ -765,7 +765,15 @@ def _reserve_terms(settings: Mapping[str, Any] | None) -> str:
         discounted = f"reserve discounted at {discount:.2%} a year"
     else:
         discounted = "no discounting"
-    return f"The reserve is expected future claims x cost per claim ({inflated}; {discounted})."
+    handling = rate(reserve.get("handling_cost_per_claim"))
+    handled = (
+        f"plus {handling:,.2f} per expected rejected or no-fault-found claim" if handling
+        else "no handling cost for rejected and no-fault-found claims"
+    )
+    return (
+        f"The reserve is expected future claims x cost per claim ({inflated}; {discounted}), plus the open"
+        f" claims at their estimated cost, {handled}."
+    )
 
 
 def _levels_text(levels: Any) -> str:

@@ -17,7 +17,8 @@ from warranty_forecast.outputs.safe_text import markdown_text
 
 CAUTIONS = (
     "Reserve figures are statistical estimates (expected future claims x cost per claim, inflated and "
-    "discounted only as configured in [reserve]; their prediction intervals leave out the risk that the model "
+    "discounted only as configured in [reserve], plus the open claims at their estimates and the handling of "
+    "rejected and no-fault-found claims; their prediction intervals leave out the risk that the model "
     "itself is wrong). They are for review by finance and auditors before anything is booked, under the "
     "accounting rules that apply to you.",
     "A flagged build month or a poor fit is a statistical signal, not a finding. Anything that may touch "
