@@ -155,7 +155,7 @@ def _foreign_latest(out: Path) -> str:
 def _website(out: Path) -> str:
     (out / "manifest.json").write_text('{"name": "website"}')
     (out / "index.html").write_text("<p>keep</p>")
-    return "a manifest.json at its top"
+    return "a manifest.json this tool did not write at its top"
 
 
 def _old_single_run_layout(out: Path) -> str:
@@ -408,3 +408,32 @@ def test_sigterm_to_a_real_run_exits_143_and_keeps_the_previous_outputs(tmp_path
     assert "Traceback" not in err and "stopped by SIGTERM (exit 143)" in lines[-1]
     assert snapshot(out) == before  # the previous run's folder, `latest` and the history
     assert hidden_entries(out / "runs") == [] and hidden_folders(tmp_path) == []
+
+
+def test_what_a_version_before_run_folders_left_beside_the_root_is_cleaned_up(tmp_path, stand_in, capsys):
+    # its interrupted run's hidden folder is removed; its outputs stranded between its two renames come back
+    # (as the old single-run layout, which is then refused with a clear line rather than hidden for good)
+    out = tmp_path / "out"
+    incoming = tmp_path / ".out.incoming-abcd1234"
+    incoming.mkdir()
+    stranded = tmp_path / ".out.previous-abcd1234"
+    publish.publish_outputs(stranded, {"old": pd.DataFrame({"a": [1]})}, {}, {}, {"generation": 1})
+    assert run_cli(out) == exit_codes.OUTPUT_FAILED
+    assert not incoming.exists() and not stranded.exists()
+    assert (out / "manifest.json").is_file() and (out / "old.parquet").is_file()
+    err = capsys.readouterr().err
+    assert f"removed {incoming}" in err and f"restored {out}" in err
+    assert "the layout of a version before run folders" in err and stand_in.calls == 0
+
+
+def test_each_recovery_step_is_logged_once(tmp_path, stand_in, capsys):
+    out = tmp_path / "out"
+    previous_outputs_in_old_layout = out / "latest"
+    publish.publish_outputs(previous_outputs_in_old_layout, {"old": pd.DataFrame({"a": [1]})}, {}, {}, {"generation": 1})
+    leftover = out / ".latest.incoming-abcd1234"
+    leftover.mkdir()
+    assert run_cli(out) == exit_codes.SUCCESS
+    lines = [line for line in capsys.readouterr().err.splitlines() if "WARNING" in line]
+    assert sum(f"removed {leftover}" in line for line in lines) == 1
+    assert sum("a version before run folders" in line for line in lines) == 1
+    assert (out / "latest").is_symlink()

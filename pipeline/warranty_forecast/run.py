@@ -27,7 +27,7 @@ from warranty_forecast.outputs.html_report import render_html_report
 from warranty_forecast.outputs.history import record_published_runs
 from warranty_forecast.outputs.publish import figure_png
 from warranty_forecast.outputs.run_folders import (
-    opening_run, point_latest, previous_run, publish_run, published_runs, read_reserve, run_in_effect, what_changed,
+    lock_output_root, opening_run, point_latest, previous_run, publish_run, published_runs, read_reserve, run_in_effect, what_changed,
 )
 from warranty_forecast.outputs.report import render_report
 from warranty_forecast.stages.build_month_alerts import alert_build_months
@@ -273,6 +273,12 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         "reserve_by_product.csv": tables["reserve_by_product"].to_csv(index=False, lineterminator="\n"),
         "reserve.csv": tables["reserve"].to_csv(index=False, lineterminator="\n"),
     }
+    with lock_output_root(config.out_dir):  # held already under the command; taken here when called alone
+        return _publish(config, manifest, tables, pngs, texts, document, shaped.as_of_date, warnings)
+
+
+def _publish(config, manifest, tables, pngs, texts, document, as_of_date, warnings) -> RunResult:  # type: ignore[no-untyped-def]
+    """Publish the run's folder, record the history, point `latest`; under the output root's lock."""
     started = time.perf_counter()
     outcome = publish_run(config.out_dir, manifest.run_id, tables, pngs, texts, document)
     if outcome.changed:
@@ -295,7 +301,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     if latest is not None and latest.run_id != manifest.run_id:
         log.info("latest stays at run %s (as of %s), newer than this run's as-of date", latest.run_id, latest.as_of_date)
     return RunResult(
-        config.out_dir, shaped.as_of_date, manifest, warnings, run_folder=outcome.folder, changed=outcome.changed,
+        config.out_dir, as_of_date, manifest, warnings, run_folder=outcome.folder, changed=outcome.changed,
         history_error=history.error,
     )
 

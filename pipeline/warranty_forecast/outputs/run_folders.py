@@ -226,6 +226,8 @@ def lock_output_root(out_dir: Path) -> Iterator[Path]:
     descriptor = publish._acquire_lock(out_dir, root)
     publish._held_locks[root] = [descriptor, 1]
     try:
+        # what a version before run folders left beside the root when it was stopped (its hidden folders)
+        publish.recover_leftovers(root)
         if root.is_dir():
             _check_root(root)
             _check_writable(root)
@@ -240,14 +242,28 @@ def lock_output_root(out_dir: Path) -> Iterator[Path]:
 
 def _check_root(root: Path) -> None:
     if (root / MANIFEST_NAME).is_file():
+        mine = read_published_run(root) is not None or _is_old_output_folder(root)
+        what = (
+            "the outputs of a single run (the layout of a version before run folders)" if mine
+            else f"a {MANIFEST_NAME} this tool did not write"
+        )
         raise OutputError(
-            f"output root {root} holds the outputs of a single run (a {MANIFEST_NAME} at its top: the layout of a"
-            f" version before run folders); nothing was changed. Runs now go to <root>/{RUNS_FOLDER}/<run id>/ with"
-            f" <root>/{LATEST_LINK} pointing at the newest: pass the folder above it as --out, or move it away"
+            f"output root {root} holds {what} at its top; nothing was changed. Runs go to"
+            f" <root>/{RUNS_FOLDER}/<run id>/ with <root>/{LATEST_LINK} pointing at the newest: "
+            + ("pass the folder above it as --out, or move it away" if mine else "choose another --out")
         )
     latest = root / LATEST_LINK
     if os.path.lexists(latest) and not latest.is_symlink() and not latest.is_dir():
         raise OutputError(f"{latest} is a file, not this tool's link to the latest run; nothing was changed")
+
+
+def _is_old_output_folder(folder: Path) -> bool:
+    """A folder of this tool's outputs in the layout before run folders (its checks allow replacing it)."""
+    try:
+        publish.check_replaceable(folder)
+    except OutputError:
+        return False
+    return True
 
 
 def _check_writable(root: Path) -> None:
@@ -272,13 +288,16 @@ def recover_root(root: Path) -> list[str]:
             if _LINK_IN_MAKING.fullmatch(entry.name) and entry.is_symlink():
                 entry.unlink()
                 done.append(f"removed {entry}, a link an interrupted run was making")
+        mine = list(done)
         latest = root / LATEST_LINK
         if latest.is_dir() and not latest.is_symlink():
-            done.extend(publish.recover_leftovers(latest))
-            done.extend(_move_legacy_latest(latest, runs_folder))
+            done.extend(publish.recover_leftovers(latest))  # logged there
+            moved = _move_legacy_latest(latest, runs_folder)
+            mine.extend(moved)
+            done.extend(moved)
     except OSError as error:
         raise OutputError(f"cannot clean up under {root} after an interrupted run: {error}") from error
-    for text in done:
+    for text in mine:
         log.warning("%s", text)
     return done
 
