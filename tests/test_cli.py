@@ -172,16 +172,18 @@ def test_demo_tables_are_consistent(demo_out):
 
 
 def test_identical_rerun_changes_nothing(demo_out, capsys):
-    # the same arguments as the demo run (conftest.py; charts drawn: a --no-charts run has another run id):
-    # the same run id, its tables compared byte for byte with the published ones, nothing rewritten
+    # the same arguments as the session's first demo run (conftest.py: as of 2026-10-31, no charts; the
+    # cheaper of its two runs): the same run id, its tables compared byte for byte with the published ones,
+    # nothing rewritten, and `latest` stays at the newer as-of date
     root = demo_out.parent
-    folder = demo_out.resolve()
+    latest = demo_out.resolve()
+    folder = next(p for p in (root / "runs").iterdir() if p.name.startswith(DEMO_MONTH_BEFORE))
     before = snapshot(folder)
     runs_before = sorted(p.name for p in (root / "runs").iterdir())
-    assert run("--out", str(root)) == exit_codes.SUCCESS
+    assert run("--out", str(root), "--as-of", DEMO_MONTH_BEFORE, "--no-charts") == exit_codes.SUCCESS
     assert snapshot(folder) == before
     assert sorted(p.name for p in (root / "runs").iterdir()) == runs_before  # no new run folder
-    assert os.readlink(demo_out) == f"runs/{folder.name}" and hidden_beside(root) == [".out.lock"]
+    assert os.readlink(demo_out) == f"runs/{latest.name}" and hidden_beside(root) == [".out.lock"]
     err = capsys.readouterr().err
     assert f"changed nothing; the outputs stay in {folder}" in err
     assert f"run {folder.name} is already published in {folder} with byte-identical tables" in err
@@ -214,10 +216,14 @@ def test_failure_while_writing_leaves_no_partial_output(tmp_path, monkeypatch):
         return rename(source, target, *args, **kwargs)
 
     monkeypatch.setattr(run_folders.os, "rename", explode)
+    extracts = tmp_path / "extracts"
+    extracts.mkdir()
+    shipments, claims = write_small_extracts(extracts)  # the mechanics need no demo-sized run
     out = tmp_path / "out"
-    assert run("--out", str(out), "--no-charts") == exit_codes.UNEXPECTED_ERROR
+    code = main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), "--no-charts"])
+    assert code == exit_codes.UNEXPECTED_ERROR
     assert len(attempts) == 1 and attempts[0].parent == out / "runs"
-    assert [p.name for p in tmp_path.iterdir() if p.name != "out"] == [".out.lock"]  # the lock file stays, by design
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name != "out") == [".out.lock", "extracts"]  # the lock stays
     # no run folder, no incoming leftover, no `latest`, no history
     assert [p.name for p in out.iterdir()] == ["runs"] and list((out / "runs").iterdir()) == []
 

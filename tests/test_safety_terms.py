@@ -15,6 +15,8 @@ import pandas as pd
 from warranty_forecast.cli import main
 from warranty_forecast.outputs.report import SAFETY_CAUTION, _safety_term_lines
 
+from small_scenario import write_small_extracts
+
 ROOT = Path(__file__).resolve().parents[1]
 TERMS = ["overheat", "smok", "fire", "burn", "shock"]
 
@@ -69,22 +71,23 @@ def test_report_section_says_what_was_searched_when_nothing_matched_or_when_turn
     assert "turned off (`alerts.safety_terms` is empty)" in off
 
 
-def test_a_demo_run_with_one_smoke_code_lists_exactly_that_claim(tmp_path):
-    with open(ROOT / "data_demo" / "claims.csv", newline="") as handle:
+def test_a_run_with_one_smoke_code_lists_exactly_that_claim(tmp_path):
+    # the small scenario (tests/small_scenario.py: its codes F1, F2 hold no safety term) with one claim's code
+    # changed; the whole command, without the demo's size
+    shipments, claims = write_small_extracts(tmp_path)
+    with open(claims, newline="") as handle:
         rows = list(csv.reader(handle))
     header = rows[0]
-    changed = rows[1]  # data row 1 (the demo's codes hold no safety term: see test_cli's demo run)
+    changed = rows[1]
     changed[header.index("failure_code")] = "WIRING_SMOKE"
-    claims = tmp_path / "claims.csv"
     with open(claims, "w", newline="") as handle:
         csv.writer(handle).writerows(rows)
     out = tmp_path / "out"
-    code = main(["run", "--shipments", str(ROOT / "data_demo" / "shipments.parquet"), "--claims", str(claims),
-                 "--out", str(out), "--no-charts"])
+    code = main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out), "--no-charts"])
     assert code == 0
     out = out / "latest"
     listed = pd.read_parquet(out / "safety_term_claims.parquet")
-    # the one changed row, as the demo file holds it (hand reading of data_demo/claims.csv, row 1)
+    # the one changed row, as the file holds it (data row 1)
     assert len(listed) == 1
     row = listed.iloc[0]
     assert (row["claim_id"], row["product"], row["failure_code"], row["status"], int(row["source_row_number"])) == (

@@ -52,7 +52,12 @@ METHOD = (
     " fit and forecast with their own life.",
     "Future first failures until each unit's warranty ends, the claims not yet reported and repeat claims are"
     " priced at the product's cost per claim. Prediction intervals come from seeded draws of each product's"
-    " parameters (normal approximation) and of the counts and claim costs.",
+    " parameters (normal approximation) and of the counts and claim costs. Open claims (filed, not yet"
+    " decided) are added at their estimated cost, and rejected and no-fault-found claims at the handling cost"
+    " when one is set.",
+    "Each run is published in a folder of its own and recorded in the history database; the reserve is rolled"
+    " forward from the last month-end run: opening, accruals for units shipped since (their whole-warranty cost"
+    " at issue), claims settled, changes in estimate (the rest), closing, to the cent.",
 )
 
 CHART_CAPTIONS = {
