@@ -25,6 +25,9 @@ from warranty_forecast import __version__, exit_codes
 from warranty_forecast.cli import EXIT_CODE_HELP, build_parser, configure_logging, main
 from warranty_forecast.outputs.history import record_published_runs
 
+from conftest import DEMO_MONTH_BEFORE
+from small_scenario import write_small_extracts
+
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "data_demo"
 SHIPMENTS = DEMO / "shipments.parquet"
