@@ -311,6 +311,14 @@ class AlertSettings:
 
 
 @dataclass(frozen=True)
+class ChartSettings:
+    """[charts]: how many product lines the per-product charts draw; every product stays in the tables."""
+
+    # the product lines with flagged build months first, then by reserve, largest first
+    max_products: int = _key(12, _integer(1, 200))
+
+
+@dataclass(frozen=True)
 class RunConfig:
     """Everything one nightly run needs; passed down to every stage."""
 
@@ -328,6 +336,7 @@ class RunConfig:
     reserve: ReserveSettings = field(default_factory=ReserveSettings)
     life_model: LifeModelSettings = field(default_factory=LifeModelSettings)
     alerts: AlertSettings = field(default_factory=AlertSettings)
+    charts: ChartSettings = field(default_factory=ChartSettings)
     forecast: ForecastSettings = field(default_factory=ForecastSettings)
 
 
@@ -417,6 +426,7 @@ SECTIONS: dict[str, type] = {
     "life_model": LifeModelSettings,
     "alerts": AlertSettings,
     "forecast": ForecastSettings,
+    "charts": ChartSettings,
 }
 
 

@@ -170,26 +170,36 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         lambda: life_table(shaped.age_in_service, config.life_model.confidence_level),
         lambda t: f"life table of {len(t)} rows",
     )
+    # the per-product charts draw at most charts.max_products product lines (flagged first, then by reserve)
+    drawn = charts.products_to_draw(
+        alerts.table, reserve.by_product, shaped.known_products, config.charts.max_products
+    )
+    chart_note = charts.charted_note(drawn, len(shaped.known_products))
+
+    def only_drawn(frame):  # type: ignore[no-untyped-def]
+        return frame[frame["product"].isin(drawn)]
+
     figures = clock.run(
         "charts",
         lambda: {} if not config.draw_charts else {
             "return_rate_heatmap": charts.return_rate_heatmap(
-                shaped.fit_returns, shaped.fit_suspensions,
-                {product: baseline.fit for product, baseline in alerts.baselines.items()},
+                only_drawn(shaped.fit_returns), only_drawn(shaped.fit_suspensions),
+                {product: baseline.fit for product, baseline in alerts.baselines.items() if product in drawn},
             ),
-            "observed_to_expected_by_build_month": charts.observed_to_expected_by_build_month(alerts),
+            "observed_to_expected_by_build_month": charts.observed_to_expected_by_build_month(only_drawn(alerts.table)),
             "cumulative_returns_per_unit": charts.cumulative_returns_per_unit(
-                shaped.fit_returns, shaped.fit_suspensions, alerts
+                only_drawn(shaped.fit_returns), only_drawn(shaped.fit_suspensions), alerts
             ),
             "weibull_probability_plot": charts.weibull_probability_plot(
-                life_table_by_month,
-                {product: fit.fit for product, fit in lives.products.items()},
-                {product: fit.lognormal for product, fit in lives.products.items()},
+                only_drawn(life_table_by_month),
+                {product: fit.fit for product, fit in lives.products.items() if product in drawn},
+                {product: fit.lognormal for product, fit in lives.products.items() if product in drawn},
             ),
-            "expected_returns_by_month": charts.expected_returns_by_month(forecast.by_month),
-            "failure_mode_pareto": charts.failure_mode_pareto(shaped.returns_by_failure_mode),
+            "expected_returns_by_month": charts.expected_returns_by_month(forecast.by_month, drawn),
+            "failure_mode_pareto": charts.failure_mode_pareto(only_drawn(shaped.returns_by_failure_mode)),
         },
-        lambda f: f"{len(f)} figures" if config.draw_charts else "not drawn (--no-charts)",
+        lambda f: (f"{len(f)} figures of {len(drawn)} product line(s)" if config.draw_charts
+                   else "not drawn (--no-charts)"),
     )
 
     warnings = (
@@ -245,6 +255,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         quarantine=shaped.quarantine,
         warnings=list(warnings),
         movement=movement,
+        chart_note=chart_note,
     )
     # each chart drawn to PNG once: the same bytes go to <name>.png and into report.html, in one publish
     pngs = {name: figure_png(figure) for name, figure in figures.items()}
@@ -264,6 +275,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         forecast_intervals=prediction.by_product,
         safety_term_claims=shaped.safety_term_claims,
         movement=movement,
+        chart_note=chart_note,
     )
     # every published table says which run wrote it, so nightly outputs can be stacked; the reserve also as
     # CSV for people who open files in a spreadsheet

@@ -29,6 +29,44 @@ from warranty_forecast.outputs.safe_text import chart_text
 _PER_THOUSAND = 1000.0
 
 
+def products_to_draw(
+    alerts_table: pd.DataFrame, reserve_by_product: pd.DataFrame, products: Iterable[str], limit: int
+) -> list[str]:
+    """The product lines the per-product charts draw, at most `limit`: those with flagged build months first
+    (the smallest month q-value first), then by reserve, largest first, then by name. Every product stays in
+    the tables and the reports; a figure of hundreds of panels is unreadable and slow to draw."""
+    if limit < 1:
+        raise ValueError(f"limit must be >= 1, got {limit!r}")
+    everyone = sorted({str(product) for product in products})
+    flagged_q: dict[str, float] = {}
+    if len(alerts_table) and {"product", "is_flagged"} <= set(alerts_table.columns):
+        flagged = alerts_table[alerts_table["is_flagged"].fillna(False).astype(bool)]
+        q = flagged["month_q_value"] if "month_q_value" in flagged else pd.Series(0.0, index=flagged.index)
+        flagged_q = q.groupby(flagged["product"].astype(str)).min().fillna(0.0).to_dict()
+    reserve = (
+        reserve_by_product.groupby(reserve_by_product["product"].astype(str))["reserve"].sum(min_count=1).to_dict()
+        if len(reserve_by_product) and "reserve" in reserve_by_product else {}
+    )
+
+    def order(product: str) -> tuple[int, float, float, str]:
+        amount = reserve.get(product)
+        amount = float(amount) if amount is not None and math.isfinite(float(amount)) else -math.inf
+        return (0, flagged_q[product], -amount, product) if product in flagged_q else (1, 0.0, -amount, product)
+
+    return sorted(everyone, key=order)[:limit]
+
+
+def charted_note(drawn: Iterable[str], count: int) -> str:
+    """One sentence for the reports: which product lines the per-product charts show ('' when all)."""
+    drawn = list(drawn)
+    if len(drawn) >= count:
+        return ""
+    return (
+        f"The per-product charts show {len(drawn)} of {count} product lines (those with flagged build months first,"
+        f" then the largest reserves; charts.max_products): {', '.join(drawn)}. Every product line is in the tables."
+    )
+
+
 class LifeCurve(Protocol):
     """Any fitted life distribution that gives F(t)."""
 
@@ -629,8 +667,8 @@ def _fraction_ticks(axis: Axes) -> None:
     secondary.set_ylabel("fraction failed")
 
 
-def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
-    """Expected future returns per calendar month, stacked by product."""
+def expected_returns_by_month(forecast: pd.DataFrame, products: Iterable[str] | None = None) -> Figure:
+    """Expected future returns per calendar month, stacked by product (`products` only, the others as one band)."""
     figure = Figure(figsize=(10, 4.5))
     axis = figure.subplots()
     if forecast.empty:
@@ -639,6 +677,11 @@ def expected_returns_by_month(forecast: pd.DataFrame) -> Figure:
         return figure
     table = forecast.groupby(["month", "product"])["expected_returns"].sum().unstack("product", fill_value=0.0)
     table = table.sort_index()
+    if products is not None:  # the others summed into one band
+        shown = [product for product in table.columns if product in set(products)]
+        others = [product for product in table.columns if product not in set(products)]
+        if others:
+            table = table[shown].assign(**{f"{len(others)} other products": table[others].sum(axis=1)})
     months = pd.to_datetime(pd.Series(table.index))
     bottom = np.zeros(len(table))
     for product in table.columns:

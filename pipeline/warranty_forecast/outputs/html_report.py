@@ -154,6 +154,7 @@ def render_html_report(
     forecast_intervals: pd.DataFrame | None = None,
     safety_term_claims: pd.DataFrame | None = None,
     movement: ReserveMovement | None = None,
+    chart_note: str = "",
 ) -> str:
     """The run report as one self-contained HTML page (UTF-8 text).
 
@@ -206,7 +207,7 @@ def render_html_report(
     parts += _alert_section(build_month_alerts, build_month_causes, flagged_month_lives)
     parts += _safety_section(safety_term_claims)
     parts += _data_quality_section(manifest, reconciliation, quarantine)
-    parts += _chart_section(charts, charts_drawn)
+    parts += _chart_section(charts, charts_drawn, chart_note)
     parts += [
         "<h2>Method in brief</h2>",
         "<ul>",
@@ -624,8 +625,10 @@ def _data_quality_section(manifest: RunManifest, reconciliation: pd.DataFrame, q
     return lines
 
 
-def _chart_section(charts: Mapping[str, bytes], drawn: bool) -> list[str]:
+def _chart_section(charts: Mapping[str, bytes], drawn: bool, note: str = "") -> list[str]:
     lines = ["<h2>Charts</h2>"]
+    if drawn and note:
+        lines.append(_paragraph(note, "note"))
     if not drawn:
         return lines + [_paragraph("Charts not drawn in this run (--no-charts).")]
     if not charts:

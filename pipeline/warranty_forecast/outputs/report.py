@@ -86,6 +86,7 @@ def render_report(
     charts_drawn: bool = True,
     reporting_delay: pd.DataFrame | None = None,
     movement: ReserveMovement | None = None,
+    chart_note: str = "",
 ) -> str:
     """The run report as Markdown. Text that comes from the data (product names, failure codes, file
     names, messages quoting them) is escaped on the way in, so it cannot break the Markdown or inject HTML."""
@@ -291,6 +292,7 @@ def render_report(
     lines += [
         "## Charts",
         "",
+        *([markdown_text(chart_note), ""] if chart_note else []),
         "- `return_rate_heatmap.png`: returns per 1,000 unit-months by build month and months in service (top"
         " row; the newest, partly observed month counts its partial exposure; hatched: under 100 unit-months) and"
         " observed / expected returns per cell against the alert baseline (bottom row; red above, blue below).",
