@@ -14,6 +14,7 @@ import dataclasses
 import datetime as dt
 import difflib
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -148,12 +149,37 @@ def _by_product(rule: Rule) -> Rule:
     return table_rule
 
 
+_MEMORY_SIZE = re.compile(r"(\d+(?:\.\d+)?)\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)", re.IGNORECASE)
+
+
+def _memory_size(value: Any) -> str:
+    """A DuckDB memory size such as "1GB" or "512 MiB" (at least 64 MB, below that DuckDB cannot run the
+    models); kept as written, without spaces."""
+    match = _MEMORY_SIZE.fullmatch(value.strip()) if isinstance(value, str) else None
+    factor = {"kb": 1e3, "mb": 1e6, "gb": 1e9, "tb": 1e12, "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40}
+    if match is None or float(match.group(1)) * factor[match.group(2).lower()] < 64e6:
+        raise ValueError('must be a memory size of at least 64MB such as "1GB", "512MB" or "2GiB"')
+    return f"{match.group(1)}{match.group(2)}"
+
+
+def _folder(value: Any) -> str:
+    if not isinstance(value, str) or not value.strip() or "\0" in value:
+        raise ValueError("must be a folder path (text)")
+    return value
+
+
 @dataclass(frozen=True)
 class RunSettings:
-    """[run]: when to warn about stale extracts and when to refuse a run."""
+    """[run]: when to warn about stale extracts and when to refuse a run; DuckDB's memory and spill folder."""
 
     max_data_gap_days: int = _key(7, _integer(0))  # days between the as-of date and the newest data, or the run date
     max_quarantined_share: float = _key(0.05, _number_in(0.0, 1.0, high_included=True))  # above: exit 6
+    # the SQL stage's DuckDB memory limit ("1GB"); None: DuckDB's default (80% of the machine's memory).
+    # Past it DuckDB spills to duckdb_spill_folder (operators that cannot spill fail with an out-of-memory error)
+    duckdb_memory_limit: str | None = _key(None, _memory_size)
+    # where the run's own spill folder is made (created if missing; the run's folder is removed when the SQL
+    # stage ends); None: the system's temporary folder (TMPDIR)
+    duckdb_spill_folder: str | None = _key(None, _folder)
 
 
 @dataclass(frozen=True)

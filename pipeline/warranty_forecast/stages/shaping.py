@@ -225,11 +225,18 @@ def _process_exists(pid: int) -> bool:
 def shape_extracts(config: RunConfig) -> ShapedData:
     """Run the whole SQL stage for one configuration and return the aggregated tables.
 
-    DuckDB spills to a folder of this run (see `make_spill_folder`), removed when the stage ends.
+    DuckDB spills to a folder of this run (see `make_spill_folder`; under [run] duckdb_spill_folder when set),
+    removed when the stage ends; [run] duckdb_memory_limit caps its memory.
     """
-    spill_folder = make_spill_folder()
+    spill_parent = Path(config.run.duckdb_spill_folder).expanduser() if config.run.duckdb_spill_folder else None
+    if spill_parent is not None:
+        spill_parent.mkdir(parents=True, exist_ok=True)
+    spill_folder = make_spill_folder(spill_parent)
     try:
-        con = duckdb.connect(":memory:", config={"temp_directory": str(spill_folder)})
+        duckdb_settings = {"temp_directory": str(spill_folder)}
+        if config.run.duckdb_memory_limit is not None:
+            duckdb_settings["memory_limit"] = config.run.duckdb_memory_limit
+        con = duckdb.connect(":memory:", config=duckdb_settings)
         try:
             return _shape(con, config)
         finally:

@@ -1,6 +1,7 @@
 """Benchmark: the grouped Weibull fit against per-unit fits of the same simulated warranty data.
 
     python -m warranty_forecast.tools.bench [--sizes 10000 100000 1000000] [--seed N] [--skip-per-unit-above N]
+    python -m warranty_forecast.tools.bench --job --shipments S --claims C [...]   (the whole job: bench_job.py)
 
 (`make bench` runs it in .venv-bench, which also has lifelines.) This is a report, not a test: it
 prints a table and the targets, and exits 0 whether or not they are met; non-zero only on errors.
@@ -278,6 +279,11 @@ def build_parser() -> argparse.ArgumentParser:
         description="Benchmark the grouped Weibull fit against per-unit fits with scipy and lifelines.",
     )
     parser.add_argument(
+        "--job",
+        action="store_true",
+        help="benchmark the whole nightly job instead (tools/bench_job.py; its options: --job -h)",
+    )
+    parser.add_argument(
         "--sizes",
         type=int,
         nargs="+",
@@ -303,7 +309,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the benchmark and print the report to stdout (progress to stderr); 0 unless an error."""
+    """Run the benchmark and print the report to stdout (progress to stderr); 0 unless an error. With
+    `--job`, the whole-job benchmark (`bench_job.main`) gets the other arguments."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if "--job" in argv:
+        from warranty_forecast.tools.bench_job import main as bench_job_main
+
+        return bench_job_main([a for a in argv if a != "--job"])
     arguments = build_parser().parse_args(argv)
     if any(n < 1 for n in arguments.sizes) or arguments.repeats < 1:
         print("error: sizes and --repeats must be >= 1", file=sys.stderr)
