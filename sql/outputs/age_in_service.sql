@@ -54,31 +54,73 @@ group_returns_before_month as (
         sale_group.units, month.months_in_service
 ),
 
-units_at_risk_by_month as (
+-- the units of a group observed into month k: units are sums of exact binary fractions
+-- (units_aged_to_as_of), so a plain sum is exact in any order
+group_units_into_month as (
     select
         row_.product,
         row_.build_month,
-        before.months_in_service,
-        -- ordered sums: floating-point sums in a fixed order, so reruns give identical bytes
-        sum(
-            row_.units * (1.0 - least(before.returns_before::double / before.units, 1.0))
-            order by row_.sale_month, row_.warranty_months, row_.warranty_start_date
-        ) as units_at_risk,
-        sum(
-            case
-                when row_.observed_age_months < month_end_age(before.months_in_service) then row_.suspensions
-                else 0
-            end
-            order by row_.sale_month, row_.warranty_months, row_.warranty_start_date
-        ) as units_withdrawn
+        row_.sale_month,
+        row_.warranty_months,
+        month.months_in_service,
+        sum(row_.units) as units_into_month
     from suspension_rows as row_
+    join months_in_service as month
+        on month.months_in_service <= row_.warranty_months
+        and row_.observed_age_months > month_start_age(month.months_in_service)
+    group by row_.product, row_.build_month, row_.sale_month, row_.warranty_months, month.months_in_service
+),
+
+-- each row's survivors, withdrawn in the one month its observation ended inside (start < age < end)
+withdrawn_by_month as (
+    select
+        row_.product,
+        row_.build_month,
+        month.months_in_service,
+        -- ordered sum: floating-point sums in a fixed order, so reruns give identical bytes
+        sum(row_.suspensions order by row_.sale_month, row_.warranty_months, row_.warranty_start_date)
+            as units_withdrawn
+    from suspension_rows as row_
+    join months_in_service as month
+        on month.months_in_service <= row_.warranty_months
+        and row_.observed_age_months > month_start_age(month.months_in_service)
+        and row_.observed_age_months < month_end_age(month.months_in_service)
+    group by row_.product, row_.build_month, month.months_in_service
+),
+
+-- a group's units into month k less their share of the group's returns before month k, summed over the
+-- product x build month's groups (a few) in a fixed order
+at_risk_by_month as (
+    select
+        into_month.product,
+        into_month.build_month,
+        into_month.months_in_service,
+        sum(
+            into_month.units_into_month * (1.0 - least(before.returns_before::double / before.units, 1.0))
+            order by into_month.sale_month, into_month.warranty_months
+        ) as units_at_risk
+    from group_units_into_month as into_month
     join group_returns_before_month as before
-        on row_.product = before.product
-        and row_.build_month = before.build_month
-        and row_.sale_month = before.sale_month
-        and row_.warranty_months = before.warranty_months
-        and row_.observed_age_months > month_start_age(before.months_in_service)
-    group by row_.product, row_.build_month, before.months_in_service
+        on into_month.product = before.product
+        and into_month.build_month = before.build_month
+        and into_month.sale_month = before.sale_month
+        and into_month.warranty_months = before.warranty_months
+        and into_month.months_in_service = before.months_in_service
+    group by into_month.product, into_month.build_month, into_month.months_in_service
+),
+
+units_at_risk_by_month as (
+    select
+        at_risk.product,
+        at_risk.build_month,
+        at_risk.months_in_service,
+        at_risk.units_at_risk,
+        coalesce(withdrawn.units_withdrawn, 0.0) as units_withdrawn
+    from at_risk_by_month as at_risk
+    left join withdrawn_by_month as withdrawn
+        on at_risk.product = withdrawn.product
+        and at_risk.build_month = withdrawn.build_month
+        and at_risk.months_in_service = withdrawn.months_in_service
 ),
 
 returns_by_month as (
