@@ -257,17 +257,35 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
     seconds["raw"] = time.perf_counter() - started
 
     plan = plan_models(con, [table for contract in (SHIPMENTS, CLAIMS) for table in raw_tables(contract)])
-    parameters: dict[str, Any] = {
-        "run_date": config.run_date,
-        "max_units_per_row": config.shipments.max_units_per_row,
-        "max_warranty_months": config.warranty.max_months,
-    }
+    parameters = run_parameters(config)
     before_as_of = upstream_of(plan, NEWEST_DATES_MODEL)
     run_models(con, before_as_of, parameters, seconds)
     newest = read_row(con, NEWEST_DATES_MODEL)
     newest_claim_date, newest_ship_date = newest["newest_claim_date"], newest["newest_ship_date"]
     as_of_date, as_of_source = choose_as_of(config.as_of_date, newest_claim_date, newest_ship_date, config.run_date)
-    parameters.update({
+    parameters.update(as_of_parameters(config, as_of_date))
+    run_models(con, [model for model in plan if model not in before_as_of], parameters, seconds)
+    tables = {model.name: read_table(con, model) for model in plan if model.layer == "outputs"}
+    return shaped_data(
+        config, tables, as_of_date, as_of_source, newest_claim_date, newest_ship_date, ignored, seconds
+    )
+
+
+# The parts of the stage every engine shares (stages/spark_engine.py runs the same plan on Spark).
+
+
+def run_parameters(config: RunConfig) -> dict[str, Any]:
+    """The models' parameters known before the as-of date is chosen (staging's limits, the run date)."""
+    return {
+        "run_date": config.run_date,
+        "max_units_per_row": config.shipments.max_units_per_row,
+        "max_warranty_months": config.warranty.max_months,
+    }
+
+
+def as_of_parameters(config: RunConfig, as_of_date: dt.date) -> dict[str, Any]:
+    """The models' parameters that follow the as-of date and the settings (added to `run_parameters`)."""
+    return {
         "as_of_date": as_of_date,
         "default_warranty_months": config.warranty.default_months,
         "counted_statuses": list(config.claims.counted_statuses),
@@ -275,10 +293,22 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
         "safety_terms": list(config.alerts.safety_terms),
         "shipments_file": os.path.abspath(config.shipments_path),
         "claims_file": os.path.abspath(config.claims_path),
-    })
-    run_models(con, [model for model in plan if model not in before_as_of], parameters, seconds)
-    tables = {model.name: read_table(con, model) for model in plan if model.layer == "outputs"}
+    }
 
+
+def shaped_data(
+    config: RunConfig,
+    tables: dict[str, pd.DataFrame],
+    as_of_date: dt.date,
+    as_of_source: str,
+    newest_claim_date: dt.date | None,
+    newest_ship_date: dt.date | None,
+    ignored: dict[str, list[str]],
+    seconds: dict[str, float],
+) -> ShapedData:
+    """The checks after the models (reconciliation, quarantine ceilings, usable shipments, the as-of
+    date), then `ShapedData` from the output tables (by model name, in their `Sort:` order)."""
+    tables = dict(tables)
     reconciliation = tables["reconciliation"]
     check_reconciliation(reconciliation)
     # the shipments first: without shipments every claim fails its cohort check, which says nothing
