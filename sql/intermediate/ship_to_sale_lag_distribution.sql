@@ -80,6 +80,17 @@ missing_sale_date_share_of_mature_rows_all_products as (
     from mature_rows_all_products
 ),
 
+-- the pooled lags, summed once (then offered to every product: products x lags, not products x rows)
+pooled_lag_units as (
+    select
+        max(longest_lag_days) as maturity_days,
+        known_lag_days as lag_days,
+        sum(units) as lag_units
+    from mature_rows_all_products
+    where known_lag_days is not null
+    group by known_lag_days
+),
+
 lag_units_by_basis as (
     select
         product,
@@ -98,13 +109,11 @@ lag_units_by_basis as (
         products.product,
         2 as basis_rank,
         'all_products_mature_rows' as estimate_basis,
-        max(pooled.longest_lag_days) as maturity_days,
-        pooled.known_lag_days as lag_days,
-        sum(pooled.units) as lag_units
+        pooled.maturity_days,
+        pooled.lag_days,
+        pooled.lag_units
     from products_shipped as products
-    cross join mature_rows_all_products as pooled
-    where pooled.known_lag_days is not null
-    group by products.product, pooled.known_lag_days
+    cross join pooled_lag_units as pooled
 
     union all
 
