@@ -5,6 +5,7 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
+SPARK_STAMP := $(VENV)/.installed-spark
 
 .PHONY: demo test setup bench clean
 
@@ -23,10 +24,15 @@ $(STAMP): pyproject.toml
 
 setup: $(STAMP)
 
+# the tests also need the Spark engine's extra (pyspark, a 456 MB download, and sqlglot); the demo does not
+$(SPARK_STAMP): $(STAMP)
+	$(BIN)/python -m pip install --quiet -e '.[test,spark]'
+	touch $(SPARK_STAMP)
+
 demo: $(STAMP)
 	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out reports/demo
 
-test: $(STAMP)
+test: $(SPARK_STAMP)
 	$(BIN)/python -m pytest -q
 
 clean:

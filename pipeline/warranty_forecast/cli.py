@@ -134,6 +134,16 @@ def build_parser() -> argparse.ArgumentParser:
         help="write the tables, report and manifest without the PNG charts (faster)",
     )
     run.add_argument(
+        "--engine", choices=("duckdb", "spark"), default="duckdb",
+        help="the engine of the shaping stage: duckdb (default) or spark (needs the extra .[spark]; see README:"
+        " Running the shaping on Spark)",
+    )
+    run.add_argument(
+        "--spark-master", dest="spark_master", default=None,
+        help="Spark master URL for --engine spark (default: $WARRANTY_FORECAST_SPARK_MASTER, else local[2]; a"
+        " Spark Connect address is taken from $SPARK_REMOTE)",
+    )
+    run.add_argument(
         "--out",
         type=Path,
         default=DEFAULT_OUT,
@@ -346,6 +356,8 @@ def _run(arguments: argparse.Namespace) -> int:
         as_of_date=as_of,
         config_path=arguments.config,
         draw_charts=arguments.draw_charts,
+        engine=arguments.engine,
+        spark_master=arguments.spark_master,
     )
     with lock_output_root(config.out_dir) as root:
         log.debug("output root %s checked and locked", root)

@@ -355,6 +355,8 @@ class RunConfig:
     run_date: dt.date = field(default_factory=dt.date.today)  # the day of the run; no input date may be later
     config_path: Path | None = None
     draw_charts: bool = True  # False (--no-charts): tables, report and manifest only, no PNG charts
+    engine: str = "duckdb"  # the shaping stage's engine (--engine): duckdb, or spark (stages/spark_engine.py)
+    spark_master: str | None = None  # --spark-master; None: $WARRANTY_FORECAST_SPARK_MASTER, else local[2]
     run: RunSettings = field(default_factory=RunSettings)
     warranty: WarrantySettings = field(default_factory=WarrantySettings)
     shipments: ShipmentSettings = field(default_factory=ShipmentSettings)
@@ -374,6 +376,9 @@ def parse_date(text: str, what: str) -> dt.date:
         raise ConfigError(f"{what}: {text!r} is not a date in YYYY-MM-DD form") from None
 
 
+ENGINES = ("duckdb", "spark")  # the shaping stage's engines: same models, same tables
+
+
 def load_config(
     *,
     shipments_path: Path,
@@ -383,12 +388,16 @@ def load_config(
     config_path: Path | None = None,
     run_date: dt.date | None = None,
     draw_charts: bool = True,
+    engine: str = "duckdb",
+    spark_master: str | None = None,
 ) -> RunConfig:
     """Build the run configuration from an optional TOML file and the command-line values.
 
     `run_date` defaults to today's date; an as-of date after it is a ConfigError.
     """
     run_date = dt.date.today() if run_date is None else run_date
+    if engine not in ENGINES:
+        raise ConfigError(f"--engine {engine!r} is not one of {', '.join(ENGINES)}")
     if as_of_date is not None and as_of_date > run_date:
         raise ConfigError(
             f"--as-of {as_of_date} is after the run date {run_date}: the as-of date cannot be in the future"
@@ -418,6 +427,8 @@ def load_config(
         run_date=run_date,
         config_path=config_path,
         draw_charts=draw_charts,
+        engine=engine,
+        spark_master=spark_master,
         **settings_from_document(document, source),
     )
 

@@ -85,6 +85,15 @@ def stamped(frame, run_id: str, as_of_date: dt.date):  # type: ignore[no-untyped
     return body.assign(run_id=run_id, as_of_date=as_of_date)[["run_id", "as_of_date", *body.columns]]
 
 
+def _shape_on_engine(config: RunConfig):
+    """The shaping stage on the configured engine (pyspark is imported only for --engine spark)."""
+    if config.engine == "spark":
+        from warranty_forecast.stages.spark_engine import shape_extracts_on_spark
+
+        return shape_extracts_on_spark(config)
+    return shape_extracts(config)
+
+
 def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     """Run every stage for one configuration and publish the outputs as a run folder under the output root
     (config.out_dir); record it in the history database; point `latest` at it when it is the newest.
@@ -92,7 +101,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     clock = _StageClock()
     started_utc = dt.datetime.now(dt.timezone.utc)
 
-    shaped = clock.run("shaping", lambda: shape_extracts(config), lambda s: s.summary)
+    shaped = clock.run("shaping", lambda: _shape_on_engine(config), lambda s: s.summary)
     check_products_in_data(config, shaped.known_products)
     # the life fits and the forecast see the fit frames completed with the failures not yet reported; the
     # alerts judge the returns as reported (an imputed fraction of a return is no evidence against a month)

@@ -15,6 +15,7 @@ The traps handled there (each one a function below):
   date_diff('day', a, b)     -> datediff(b, a)             (Spark's two-argument form is end, start)
   date_diff('month', a, b)   -> month boundaries crossed    (Spark's timestampdiff counts whole months)
   quantile_disc(x, 0.5)      -> percentile_disc within group (on the date's day number: lower median)
+  avg(decimal)               -> the exact sum as a double over the count (Spark's avg is a rounded decimal)
   sum(x order by a, b)       -> a left fold over the sorted (a, b, x) structs (the same order of float
                                 additions as DuckDB's ordered aggregate, so the same bits)
   to_json(struct)            -> to_json keeping null fields (Spark drops them by default)
@@ -324,6 +325,24 @@ def _rewrite_range_table(node):
     return node
 
 
+def _rewrite_avg(node):
+    """avg(x) -> try_divide(cast(sum(x) as double), count(x)) (a FILTER moved onto both): DuckDB's mean of a
+    DECIMAL is a DOUBLE of the exact sum over the count; Spark's is a DECIMAL rounded to 4 more places."""
+    _, exp = _sqlglot()
+    filtered = isinstance(node, exp.Filter) and isinstance(node.this, exp.Avg)
+    if filtered or (isinstance(node, exp.Avg) and not isinstance(node.parent, exp.Filter)):
+        average = node.this if filtered else node
+        value = average.this
+
+        def wrapped(aggregate):
+            return exp.Filter(this=aggregate, expression=node.expression.copy()) if filtered else aggregate
+
+        total = exp.cast(wrapped(exp.Sum(this=value.copy())), "double")
+        count = wrapped(exp.Count(this=value.copy()))
+        return exp.Anonymous(this="try_divide", expressions=[total, count])
+    return node
+
+
 def _rewrite_slice(node):
     _, exp = _sqlglot()
     if isinstance(node, exp.Bracket) and len(node.expressions) == 1 and isinstance(node.expressions[0], exp.Slice):
@@ -401,6 +420,7 @@ def _rewrite_try_cast_date(node):
 
 
 _SPARK_REWRITES = (
+    _rewrite_avg,
     _rewrite_range_table,
     _rewrite_unpivot,
     _rewrite_to_months,
@@ -438,9 +458,9 @@ def spark_sql(sql: str, parameters: Mapping[str, Any]) -> str:
 
 
 def spark_master(config: RunConfig | None = None) -> str:
-    """The master URL: the environment's WARRANTY_FORECAST_SPARK_MASTER, else [spark] master, else local[2]."""
-    configured = getattr(getattr(config, "spark", None), "master", None) if config is not None else None
-    return os.environ.get(SPARK_MASTER_ENV) or configured or DEFAULT_MASTER
+    """The master URL: --spark-master (config.spark_master), else $WARRANTY_FORECAST_SPARK_MASTER, else local[2]."""
+    configured = config.spark_master if config is not None else None
+    return configured or os.environ.get(SPARK_MASTER_ENV) or DEFAULT_MASTER
 
 
 def get_spark_session(master: str | None = None) -> "SparkSession":
@@ -648,6 +668,20 @@ def read_spark_table(spark: "SparkSession", model: Model) -> pd.DataFrame:
     return result
 
 
+_SCHEME_FOLDED = re.compile(r"^([A-Za-z][A-Za-z0-9+.-]+):/(?!/)")
+
+
+def spark_path(path: Path | str) -> str:
+    """An extract's path as Spark reads it: a URL such as s3a://bucket/key keeps its '//' (pathlib folds it
+    to one slash); a local path is made absolute."""
+    text = str(path)
+    if _SCHEME_FOLDED.match(text):
+        return _SCHEME_FOLDED.sub(r"\1://", text, count=1)
+    if "://" in text:
+        return text
+    return os.path.abspath(text)
+
+
 def shape_extracts_on_spark(config: RunConfig, spark: "SparkSession | None" = None) -> ShapedData:
     """The shaping stage on Spark: the same plan, parameters and checks as `shaping.shape_extracts`.
 
@@ -657,9 +691,10 @@ def shape_extracts_on_spark(config: RunConfig, spark: "SparkSession | None" = No
     spark = spark or get_spark_session(spark_master(config))
     seconds: dict[str, float] = {}
     started = time.perf_counter()
+    shipments_file, claims_file = spark_path(config.shipments_path), spark_path(config.claims_path)
     ignored = {
-        "shipments": load_extract_on_spark(spark, str(config.shipments_path), SHIPMENTS),
-        "claims": load_extract_on_spark(spark, str(config.claims_path), CLAIMS),
+        "shipments": load_extract_on_spark(spark, shipments_file, SHIPMENTS),
+        "claims": load_extract_on_spark(spark, claims_file, CLAIMS),
     }
     seconds["raw"] = time.perf_counter() - started
     planner = duckdb.connect(":memory:")  # parses the headers' tables only (with the macros known); no data
@@ -678,6 +713,7 @@ def shape_extracts_on_spark(config: RunConfig, spark: "SparkSession | None" = No
     newest_claim_date, newest_ship_date = newest[0]["newest_claim_date"], newest[0]["newest_ship_date"]
     as_of_date, as_of_source = choose_as_of(config.as_of_date, newest_claim_date, newest_ship_date, config.run_date)
     parameters.update(as_of_parameters(config, as_of_date))
+    parameters.update({"shipments_file": shipments_file, "claims_file": claims_file})
     _run_models(spark, [model for model in plan if model not in before_as_of], parameters, seconds)
     tables = {model.name: read_spark_table(spark, model) for model in plan if model.layer == "outputs"}
     return shaped_data(
