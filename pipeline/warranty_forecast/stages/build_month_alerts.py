@@ -65,6 +65,7 @@ from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, life_data_by_pr
 from warranty_forecast.stages.life_models import FittedLives
 from warranty_forecast.stages.build_month_cusum import design_threshold
 from warranty_forecast.stages.month_life import hazard_ratio_test, month_data_by_build_month
+from warranty_forecast.stages.by_product import rows_by_product
 
 MAX_ROUNDS = 5
 CUSUM_SEED = 20261203  # the CUSUM threshold's simulation seed: the same data give the same threshold every night
@@ -367,11 +368,12 @@ def cause_table(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> pd.DataF
     `returns_by_code` has columns product, build_month, failure_code, returns (returns_by_build_month_and_code).
     """
     frames = []
+    codes_of = rows_by_product(returns_by_code)
     for product, months in alerts.groupby("product", sort=True):
         flagged = months[months["is_flagged"]]
         if not len(flagged):
             continue
-        rows = returns_by_code[returns_by_code["product"] == product]
+        rows = codes_of[product]
         in_baseline = rows[~rows["build_month"].isin(set(flagged["build_month"]))]
         by_code = in_baseline.groupby("failure_code")["returns"].sum()
         total = float(by_code.sum())
@@ -439,9 +441,10 @@ def find_bad_build_months(
     without one are not judged); with `returns_by_code` (returns_by_build_month_and_code) also point each
     flagged month at its failure codes. Never raises for one product's data."""
     frames, baselines, notes = [], {}, []
+    returns_of, suspensions_of = rows_by_product(fit_returns), rows_by_product(fit_suspensions)
     for product, fit in sorted(published.items()):
-        returns = fit_returns[fit_returns["product"] == product]
-        suspensions = fit_suspensions[fit_suspensions["product"] == product]
+        returns = returns_of[product]
+        suspensions = suspensions_of[product]
         table, baseline = _judge_product(product, returns, suspensions, fit, settings, life_model)
         frames.append(table.assign(product=product))
         baselines[product] = baseline

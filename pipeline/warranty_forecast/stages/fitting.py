@@ -32,6 +32,7 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.profile import LikelihoodRatioBounds, likelihood_ratio_bounds
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.lifecore.families.weibull import rate_from_scale
+from warranty_forecast.stages.by_product import rows_by_product
 
 FITTED = "fitted"
 FIXED_SHAPE = "fixed_shape"
@@ -141,9 +142,10 @@ def life_data_by_product(fit_returns: pd.DataFrame, fit_suspensions: pd.DataFram
         "suspensions"
     ].sum()
     result = {}
+    returned_of, suspended_of = rows_by_product(returns_by_month), rows_by_product(suspensions_by_age)
     for product in products:
-        returned = returns_by_month[returns_by_month["product"] == product]
-        suspended = suspensions_by_age[suspensions_by_age["product"] == product]
+        returned = returned_of[product]
+        suspended = suspended_of[product]
         result[product] = LifeData.from_monthly_returns(
             months_in_service=returned["months_in_service"].to_numpy(dtype=float),
             returns=returned["returns"].to_numpy(dtype=float),

@@ -27,6 +27,7 @@ from warranty_forecast.stages.forecast import (
 from warranty_forecast.stages.life_models import FittedLives
 from warranty_forecast.stages.month_life import DEFECTIVE_SHARE, month_data_by_build_month, month_life_model
 from warranty_forecast.stages.repeat_claims import RepeatClaimsForecast, forecast_repeat_claims
+from warranty_forecast.stages.by_product import rows_by_product
 
 if TYPE_CHECKING:
     from warranty_forecast.stages.shaping import ShapedData
@@ -208,12 +209,11 @@ def flagged_month_models(
     month_models: dict[tuple[str, object], LifeDistribution] = {}
     rows: list[dict[str, object]] = []
     notes: list[str] = []
+    returns_of, suspensions_of = rows_by_product(fit_returns), rows_by_product(fit_suspensions)
     for product, months in sorted(flagged.items()):
         if not months or product not in models:
             continue
-        data = month_data_by_build_month(
-            fit_returns[fit_returns["product"] == product], fit_suspensions[fit_suspensions["product"] == product]
-        )
+        data = month_data_by_build_month(returns_of[product], suspensions_of[product])
         for month in sorted(months):
             try:
                 if month not in data:

@@ -69,6 +69,7 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages import forecast
 from warranty_forecast.stages.forecast import CompetingRisks, LifeDistribution
+from warranty_forecast.stages.by_product import rows_by_product
 
 FloatArray = npt.NDArray[np.float64]
 
@@ -930,6 +931,7 @@ def predict_returns(
     pieces: list[_ProductPrediction] = []
     methods: dict[str, str] = {}
     seconds: dict[str, float] = {}
+    additional_of = rows_by_product(additional) if additional is not None else None
     for product, rows in suspensions.groupby("product", sort=True):
         model = models.get(product)
         if model is None:
@@ -940,7 +942,7 @@ def predict_returns(
         piece = _predict_product(
             str(product), rows, model, sampler, own, as_of_date, draws, levels,
             np.random.default_rng(product_seed(seed, str(product))), claim_costs.get(product),
-            additional[additional["product"] == product] if additional is not None else None,
+            additional_of[product] if additional_of is not None else None,
         )
         pieces.append(piece)
         methods[str(product)] = piece.method

@@ -55,6 +55,8 @@ from typing import Iterable, Mapping
 import numpy as np
 import pandas as pd
 
+from warranty_forecast.stages.by_product import rows_by_product
+
 REPEAT_RATE_COLUMNS = (
     "product",
     "months_since_first_claim",  # j: u in (j-1, j] months since the unit's first claim
@@ -175,8 +177,9 @@ def estimate_repeat_rates(
         raise ValueError("repeat_claims_by_age: months_since_first_claim must be >= 1")
     all_products = sorted(set(rows["product"]) | set(products))
     tables, rates, tails, notes = [], {}, {}, {}
+    rows_of = rows_by_product(rows)
     for product in all_products:
-        own = rows[rows["product"] == product]
+        own = rows_of[product]
         length = int(own["months_since_first_claim"].max()) if len(own) else 0
         index = own["months_since_first_claim"].to_numpy(dtype=np.int64) - 1
         n = np.zeros(length)
@@ -454,8 +457,9 @@ def _summary(rates: RepeatRates, by_month: pd.DataFrame, products: list[str]) ->
     table = rates.table
     sums = by_month.groupby("product")[["expected_repeat_claims", "from_repaired_units", "from_future_returns"]].sum()
     rows = []
+    table_of = rows_by_product(table)
     for product in products:
-        own = table[table["product"] == product]
+        own = table_of[product]
         e = float(own["unit_months_at_risk"].sum())
         d = float(own["repeat_claims"].sum())
         first = own[own["months_since_first_claim"] == 1]

@@ -76,6 +76,7 @@ from warranty_forecast.lifecore.fitter import Fitter
 from warranty_forecast.lifecore.likelihood import log_likelihood
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, WeibullOutcome, fit_weibull, life_data_by_product
+from warranty_forecast.stages.by_product import rows_by_product
 
 log = logging.getLogger(__name__)
 
@@ -271,8 +272,9 @@ def reporting_delays_by_product(
     if pooled_claims >= min_claims:
         pooled = estimate_reporting_delay(frame, max_delay_days=max_delay_days, product=ALL_PRODUCTS)
     result = {}
+    by_product = rows_by_product(frame)
     for product in products:
-        rows = frame[frame["product"] == product]
+        rows = by_product[product]
         own = float(rows.loc[rows["delay_days"] <= max_delay_days, "claims"].sum())
         beyond = float(rows.loc[rows["delay_days"] > max_delay_days, "claims"].sum())
         if own >= min_claims:
@@ -783,11 +785,12 @@ def correct_for_reporting_delay(
         claim_reporting_delays, products, min_claims=min_claims, max_delay_days=max_delay_days
     )
     fits = {}
+    returns_of, suspensions_of = rows_by_product(fit_returns), rows_by_product(fit_suspensions)
     for product in products:
         fits[product] = correct_product(
             product,
-            fit_returns[fit_returns["product"] == product],
-            fit_suspensions[fit_suspensions["product"] == product],
+            returns_of[product],
+            suspensions_of[product],
             delays[product],
             as_of_date,
             settings,
