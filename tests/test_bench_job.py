@@ -60,6 +60,7 @@ def test_bench_prints_every_stage_and_both_floors_and_they_agree(tiny, capsys):
     assert re.search(r"floor \(a\) bare grouping \| +\d+\.\d\d \| +[\d,]+", out)
     assert re.search(r"floor \(b\) checked, matched, aged \| +\d+\.\d\d \| +[\d,]+", out)
     assert "DuckDB memory limit 512MB" in out and "SQL stage within 2x of floor (b)" in out
+    assert re.search(r"Slowest SQL models \(of \d+\):", out) and re.search(r"staging/stg_shipments +\| +\d", out)
     # floor (b) counts what the pipeline counts: units of valid rows shipped by the as-of date, and each
     # unit's first counted in-coverage claim (cohort_summary's units and returns_to_date)
     pipeline = _count("pipeline cohort_summary", out)

@@ -10,7 +10,8 @@ output root in a temporary folder, removed afterwards). Times per stage are the 
 stages, the reports, publishing, the history database). Memory: a background thread reads the process's
 resident set (VmRSS in /proc/self/status) every 20 ms and attributes each sample to the stage (and SQL
 layer) running then, which the bench learns by wrapping `run._StageClock.run`, `shaping.load_extract`
-(the raw layer) and `sql_runner.run_model` for the bench's duration; the job's peak is the process's
+(the raw layer) and `run_model` (in sql_runner and extracts: seconds and peak per SQL model) for the
+bench's duration; the job's peak is the process's
 high-water mark VmHWM. A stage shorter than the sampling interval may show no sample ("-").
 
 The floors, each in a fresh process (so its memory is its own) with a fresh DuckDB connection:
@@ -52,6 +53,7 @@ SAMPLE_SECONDS = 0.02
 STAGE_OTHER = "other"  # between the stages: reports, publishing, the history, the latest link
 SHAPING_OTHER = "other"  # inside shaping: macros, planning, reading the outputs back, the checks
 SQL_LAYERS = ("raw", "staging", "intermediate", "outputs")
+TOP_MODELS = 8  # the slowest SQL models listed under the table
 DAYS_PER_MONTH = 365.25 / 12
 
 # the issue's targets (printed beside the figures; they never change the exit code)
@@ -86,6 +88,9 @@ class RssSampler:
         self.layer: str | None = None
         self.peak_by_stage: dict[str, int] = {}
         self.peak_by_layer: dict[str, int] = {}
+        self.seconds_by_model: dict[str, float] = {}
+        self.peak_by_model: dict[str, int] = {}
+        self.model: str | None = None
         self.peak = 0
         self.samples = 0
         self._stop = threading.Event()
@@ -97,10 +102,12 @@ class RssSampler:
             return
         self.samples += 1
         self.peak = max(self.peak, rss)
-        stage, layer = self.stage, self.layer
+        stage, layer, model = self.stage, self.layer, self.model
         self.peak_by_stage[stage] = max(self.peak_by_stage.get(stage, 0), rss)
         if layer is not None:
             self.peak_by_layer[layer] = max(self.peak_by_layer.get(layer, 0), rss)
+        if model is not None:
+            self.peak_by_model[model] = max(self.peak_by_model.get(model, 0), rss)
 
     def _loop(self) -> None:
         while not self._stop.wait(self.interval):
@@ -137,7 +144,7 @@ def _instrumented(sampler: RssSampler) -> Iterator[None]:
     """Wrap the run's stage clock, the raw layer's loader and the model runner so the sampler knows which
     stage and SQL layer run; restored on the way out."""
     from warranty_forecast import run as run_module
-    from warranty_forecast.stages import shaping, sql_runner
+    from warranty_forecast.stages import extracts, shaping, sql_runner
 
     clock_run = run_module._StageClock.run
     load_extract = shaping.load_extract
@@ -153,18 +160,27 @@ def _instrumented(sampler: RssSampler) -> Iterator[None]:
 
     def layer_model(con: Any, model: str, *args: Any, **kwargs: Any) -> Any:
         layer = model.split("/", 1)[0] if "/" in model else SHAPING_OTHER
-        with sampler.label(layer=layer if layer in SQL_LAYERS else SHAPING_OTHER):
-            return run_model(con, model, *args, **kwargs)
+        name = kwargs.get("table") or (args[1] if len(args) > 1 else None) or model
+        started = time.perf_counter()
+        sampler.model = name
+        try:
+            with sampler.label(layer=layer if layer in SQL_LAYERS else SHAPING_OTHER):
+                return run_model(con, model, *args, **kwargs)
+        finally:
+            sampler.model = None
+            sampler.seconds_by_model[name] = sampler.seconds_by_model.get(name, 0.0) + time.perf_counter() - started
 
     run_module._StageClock.run = timed_stage  # type: ignore[method-assign]
     shaping.load_extract = raw_layer  # type: ignore[assignment]
     sql_runner.run_model = layer_model  # type: ignore[assignment]
+    extracts.run_model = layer_model  # type: ignore[assignment]  (the raw models, by their tables)
     try:
         yield
     finally:
         run_module._StageClock.run = clock_run  # type: ignore[method-assign]
         shaping.load_extract = load_extract
         sql_runner.run_model = run_model
+        extracts.run_model = run_model
 
 
 # --------------------------------------------------------------------------------------------- the job
@@ -178,6 +194,8 @@ class JobMeasure:
     seconds_by_layer: Mapping[str, float]
     peak_kib_by_stage: Mapping[str, int]
     peak_kib_by_layer: Mapping[str, int]
+    seconds_by_model: Mapping[str, float]  # each SQL model (raw ones by their table), wall seconds
+    peak_kib_by_model: Mapping[str, int]
     peak_kib: int  # VmHWM at the end (the process's high-water mark, including what came before the job)
     rss_before_kib: int
     as_of_date: dt.date
@@ -228,6 +246,8 @@ def run_job(config: Any) -> JobMeasure:
         seconds_by_layer=layers,
         peak_kib_by_stage=dict(sampler.peak_by_stage),
         peak_kib_by_layer=dict(sampler.peak_by_layer),
+        seconds_by_model=dict(sampler.seconds_by_model),
+        peak_kib_by_model=dict(sampler.peak_by_model),
         peak_kib=max(_status_kib("VmHWM") or 0, sampler.peak),
         rss_before_kib=rss_before,
         as_of_date=shaped.as_of_date,
@@ -592,6 +612,12 @@ def report(
         parts.append(f"  {names.get(floor.name, floor.name)}: {floor.units:,} units, {floor.returns:,} returns"
                      f" in {floor.cells:,} cells")
     floor_b = next((f for f in floors if f.name == "b"), None)
+    slowest = sorted(job.seconds_by_model.items(), key=lambda item: -item[1])[:TOP_MODELS]
+    if slowest:
+        parts += ["", f"Slowest SQL models (of {len(job.seconds_by_model)}):", format_table(
+            ("model", "wall s", "peak MB"),
+            [[name, _seconds(seconds), _mb(job.peak_kib_by_model.get(name))] for name, seconds in slowest],
+        )]
     parts += ["", "Targets (issue 11; a benchmark, not a test)", *(f"  {line}" for line in targets(job, floor_b))]
     return "\n".join(parts)
 

@@ -231,9 +231,10 @@ def _failure_days(scenario: Scenario, units: _Units, factor: float, rng: np.rand
     life_days = factor * scenario.scales_months[p] * DAYS_PER_MONTH * rng.weibull(scenario.shapes[p])
     days = np.floor(life_days)
     in_service = scenario.as_of_day - units.true_sale_day  # NaN when unsold
-    # months in service k = max(1, ceil(days / DAYS_PER_MONTH)) must be within the warranty
+    # months in service k = max(1, ceil(days / DAYS_PER_MONTH)) must be within the warranty: days up to
+    # floor(W x 365.25/12) (730 for 24 months: the day counts 0 .. 730 are months 1 .. 24, macros/ages.sql)
     last_day = np.floor(scenario.warranty_months[p] * DAYS_PER_MONTH)
-    fails = (days <= in_service) & (days < last_day)
+    fails = (days <= in_service) & (days <= last_day)
     return np.where(fails, days, np.nan)
 
 
