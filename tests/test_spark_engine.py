@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import os
 import re
 from pathlib import Path
 
@@ -94,7 +95,8 @@ def test_parameters_are_bound_as_literals_and_text_comes_back_unchanged(spark):
 
 def test_the_traps_give_duckdbs_values_on_spark(spark):
     """date_diff's argument order and month counting, the lower median of dates, a date minus months at a
-    month's end, ordered sums, JSON with nulls, list slices: each compared with DuckDB itself."""
+    month's end, ordered sums, JSON with nulls, list slices, division and the mean of decimals (doubles in
+    DuckDB, rounded decimals in Spark): each compared with DuckDB itself, exactly."""
     sql = """
         with days as (
             select * from (values (date '2024-01-31', 1.0, 'a'), (date '2024-03-02', 0.1, 'b'),
@@ -111,7 +113,10 @@ def test_the_traps_give_duckdbs_values_on_spark(spark):
             array_to_string(['x', 'y', 'z'][2:], '') as tail,
             len(['x', 'y']) as length,
             regexp_full_match('2024-01', '\\d{4}-\\d{2}') as full_match,
-            isfinite(1e308 * 10) as finite
+            isfinite(1e308 * 10) as finite,
+            1000 / (365.25 / 12) as months_of_days,
+            (select avg(c) from (values (1.10::decimal(18, 2)), (2.21::decimal(18, 2)), (2.00::decimal(18, 2))) as t(c))
+                as mean_cost
     """
     con = duckdb.connect()
     expected = con.execute(sql).fetchall()[0]
@@ -161,6 +166,7 @@ def test_the_engine_is_chosen_on_the_command_line_and_checked(tmp_path):
 
     paths = dict(shipments_path=tmp_path / "s.csv", claims_path=tmp_path / "c.csv", out_dir=tmp_path / "out")
     assert load_config(**paths).engine == "duckdb"
+    assert spark_engine.spark_master(load_config(**paths)) in (None, os.environ.get(spark_engine.SPARK_MASTER_ENV))
     config = load_config(**paths, engine="spark", spark_master="local[1]")
     assert (config.engine, spark_engine.spark_master(config)) == ("spark", "local[1]")
     with pytest.raises(ConfigError, match="--engine 'hive'"):

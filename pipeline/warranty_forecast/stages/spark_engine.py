@@ -15,6 +15,7 @@ The traps handled there (each one a function below):
   date_diff('day', a, b)     -> datediff(b, a)             (Spark's two-argument form is end, start)
   date_diff('month', a, b)   -> month boundaries crossed    (Spark's timestampdiff counts whole months)
   quantile_disc(x, 0.5)      -> percentile_disc within group (on the date's day number: lower median)
+  a / b                      -> cast(a as double) / b     (Spark divides decimals as decimals, rounded)
   avg(decimal)               -> the exact sum as a double over the count (Spark's avg is a rounded decimal)
   sum(x order by a, b)       -> a left fold over the sorted (a, b, x) structs (the same order of float
                                 additions as DuckDB's ordered aggregate, so the same bits)
@@ -343,6 +344,16 @@ def _rewrite_avg(node):
     return node
 
 
+def _rewrite_division(node):
+    """a / b -> cast(a as double) / b: DuckDB's '/' gives a DOUBLE for any numbers (365.25 / 12 is the
+    double 30.4375); Spark's gives a DECIMAL for decimals (number literals are decimals) and rounds the
+    quotient to its scale."""
+    _, exp = _sqlglot()
+    if isinstance(node, exp.Div) and not (isinstance(node.this, exp.Cast) and node.this.to.is_type("double")):
+        return exp.Div(this=exp.cast(node.this.copy(), "double"), expression=node.expression.copy())
+    return node
+
+
 def _rewrite_slice(node):
     _, exp = _sqlglot()
     if isinstance(node, exp.Bracket) and len(node.expressions) == 1 and isinstance(node.expressions[0], exp.Slice):
@@ -420,6 +431,7 @@ def _rewrite_try_cast_date(node):
 
 
 _SPARK_REWRITES = (
+    _rewrite_division,
     _rewrite_avg,
     _rewrite_range_table,
     _rewrite_unpivot,
@@ -457,15 +469,17 @@ def spark_sql(sql: str, parameters: Mapping[str, Any]) -> str:
 # ------------------------------------------------------------------------------------- the session
 
 
-def spark_master(config: RunConfig | None = None) -> str:
-    """The master URL: --spark-master (config.spark_master), else $WARRANTY_FORECAST_SPARK_MASTER, else local[2]."""
+def spark_master(config: RunConfig | None = None) -> str | None:
+    """The master URL asked for: --spark-master (config.spark_master), else $WARRANTY_FORECAST_SPARK_MASTER,
+    else None (`get_spark_session` then takes spark-submit's master, or local[2])."""
     configured = config.spark_master if config is not None else None
-    return configured or os.environ.get(SPARK_MASTER_ENV) or DEFAULT_MASTER
+    return configured or os.environ.get(SPARK_MASTER_ENV) or None
 
 
 def get_spark_session(master: str | None = None) -> "SparkSession":
     """The active SparkSession, or a new one: a Spark Connect session when SPARK_REMOTE is set (pyspark
-    reads it), else one on `master`. Arrow moves the small outputs to pandas; session time zone UTC."""
+    reads it); else on `master`; else, under spark-submit (which starts the JVM and passes its gateway), on
+    the master spark-submit was given; else local[2]. Arrow moves the small outputs to pandas; UTC."""
     try:
         from pyspark.sql import SparkSession
     except ImportError as error:  # pragma: no cover
@@ -476,7 +490,8 @@ def get_spark_session(master: str | None = None) -> "SparkSession":
     if active is not None:
         return active
     builder = SparkSession.builder.appName("warranty-forecast")
-    if not os.environ.get(SPARK_REMOTE_ENV):
+    under_spark_submit = "PYSPARK_GATEWAY_PORT" in os.environ
+    if not os.environ.get(SPARK_REMOTE_ENV) and (master or not under_spark_submit):
         master = master or DEFAULT_MASTER
         builder = builder.master(master)
         if master.startswith("local"):  # one machine: few shuffle partitions, no web UI
