@@ -180,6 +180,8 @@ class RunSettings:
     # where the run's own spill folder is made (created if missing; the run's folder is removed when the SQL
     # stage ends); None: the system's temporary folder (TMPDIR)
     duckdb_spill_folder: str | None = _key(None, _folder)
+    # worker processes for the per-product fits when there are many product lines (32 or more); 0: every core
+    workers: int = _key(0, _integer(0, 256))
 
 
 @dataclass(frozen=True)

@@ -36,6 +36,7 @@ from warranty_forecast.stages.life_models import fit_lives, keep_screening_where
 from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reporting_delay import reporting_delay_stage
 from warranty_forecast.stages.prediction import claim_costs_by_product, predict_returns
+from warranty_forecast.stages.parallel import worker_count
 from warranty_forecast.stages.reserve import book_reserve, with_prediction_intervals
 from warranty_forecast.stages.roll_forward import ReserveMovement, reserve_movement
 from warranty_forecast.stages.shaping import shape_extracts
@@ -106,10 +107,13 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     # the life fits and the forecast see the fit frames completed with the failures not yet reported; the
     # alerts judge the returns as reported (an imputed fraction of a return is no evidence against a month)
     delays = clock.run(
-        "delays", lambda: reporting_delay_stage(shaped, config.forecast, config.life_model), lambda d: d.summary
+        "delays",
+        lambda: reporting_delay_stage(shaped, config.forecast, config.life_model, workers=worker_count(config.run.workers)),
+        lambda d: d.summary,
     )
     for_life = delays.shaped
-    screening = clock.run("fit", lambda: fit_lives(for_life, config.life_model), lambda f: f.summary)
+    workers = worker_count(config.run.workers)
+    screening = clock.run("fit", lambda: fit_lives(for_life, config.life_model, workers=workers), lambda f: f.summary)
     alerts = clock.run(
         "alerts",
         lambda: alert_build_months(
@@ -123,7 +127,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         clock.run(
             "refit",
             lambda: keep_screening_where_refit_failed(
-                fit_lives(for_life, config.life_model, left_out=alerts.flagged_by_product), screening
+                fit_lives(for_life, config.life_model, left_out=alerts.flagged_by_product, workers=workers), screening
             ),
             lambda f: f"{f.summary}, without the flagged build months",
         )

@@ -71,7 +71,7 @@ class RunManifest:
             {
                 "as_of_date": self.as_of_date.isoformat(),
                 "inputs": [[item.extract, item.sha256] for item in self.inputs],
-                "settings": self.settings,
+                "settings": _computing_settings(self.settings),
                 "version": self.versions.get("warranty-forecast", ""),
                 "code": self.versions.get(CODE_KEY, ""),
                 **({} if self.charts_drawn else {"charts": False}),
@@ -168,6 +168,17 @@ def _quarantine_counts(quarantine: pd.DataFrame) -> dict[str, int]:
 
 
 CODE_KEY = "warranty-forecast-code"
+
+# settings that change how a run computes (memory, spill folder, processes), never what: left out of the run id
+OPERATIONAL_SETTINGS = {"run": ("duckdb_memory_limit", "duckdb_spill_folder", "workers")}
+
+
+def _computing_settings(settings: Mapping[str, Any]) -> dict[str, Any]:
+    """The settings that can change a run's numbers: all but OPERATIONAL_SETTINGS."""
+    return {
+        name: {key: value for key, value in dict(table).items() if key not in OPERATIONAL_SETTINGS.get(name, ())}
+        for name, table in settings.items()
+    }
 
 
 @lru_cache(maxsize=1)

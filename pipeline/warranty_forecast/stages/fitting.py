@@ -33,6 +33,7 @@ from warranty_forecast.lifecore.profile import LikelihoodRatioBounds, likelihood
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.lifecore.families.weibull import rate_from_scale
 from warranty_forecast.stages.by_product import rows_by_product
+from warranty_forecast.stages.parallel import map_products
 
 FITTED = "fitted"
 FIXED_SHAPE = "fixed_shape"
@@ -220,33 +221,42 @@ def fit_products(
     data_by_product: Mapping[str, LifeData],
     settings: LifeModelSettings,
     warranty_by_product: Mapping[str, int],
+    workers: int = 1,
 ) -> dict[str, ProductFit]:
-    """Fit every product; never raises for a product's data, records the status instead."""
-    fits = {}
-    for product, data in sorted(data_by_product.items()):
-        warranty = int(warranty_by_product[product])
-        outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), cdf_ages=(float(warranty),))
-        message = outcome.message
-        goodness = _goodness(data, outcome.fit) if outcome.fit is not None else None
-        lognormal = comparison = lognormal_lr = None
-        try:
-            lognormal = Fitter(
-                "lognormal", confidence_level=settings.confidence_level, min_returns=settings.min_returns
-            ).fit(data)
-        except FitError as error:
-            if outcome.fit is not None:
-                message = _join(message, f"lognormal alternative not fitted: {error}")
-        if lognormal is not None:
-            lognormal_lr, note = _lr_bounds(lognormal, data, settings, (0.10,), ())
-            if outcome.fit is not None and note:
-                message = _join(message, f"lognormal {note}")
-        if lognormal is not None and outcome.fit is not None and not outcome.fit.fixed:
-            comparison = compare_families(outcome.fit.log_likelihood, lognormal.log_likelihood, settings.aic_threshold)
-        fits[product] = ProductFit(
-            product, outcome.status, message, data, warranty, outcome.fit, outcome.lr_bounds, goodness, lognormal,
-            comparison, lognormal_lr,
-        )
-    return fits
+    """Fit every product; never raises for a product's data, records the status instead. `workers` > 1:
+    the products in that many processes (stages.parallel.map_products), with the same result."""
+    products = sorted(data_by_product)
+    fitted = map_products(
+        fit_product,
+        [(product, data_by_product[product], settings, int(warranty_by_product[product])) for product in products],
+        workers,
+    )
+    return dict(zip(products, fitted))
+
+
+def fit_product(product: str, data: LifeData, settings: LifeModelSettings, warranty: int) -> ProductFit:
+    """One product's Weibull fit with its bounds and goodness of fit, and the lognormal alternative."""
+    outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), cdf_ages=(float(warranty),))
+    message = outcome.message
+    goodness = _goodness(data, outcome.fit) if outcome.fit is not None else None
+    lognormal = comparison = lognormal_lr = None
+    try:
+        lognormal = Fitter(
+            "lognormal", confidence_level=settings.confidence_level, min_returns=settings.min_returns
+        ).fit(data)
+    except FitError as error:
+        if outcome.fit is not None:
+            message = _join(message, f"lognormal alternative not fitted: {error}")
+    if lognormal is not None:
+        lognormal_lr, note = _lr_bounds(lognormal, data, settings, (0.10,), ())
+        if outcome.fit is not None and note:
+            message = _join(message, f"lognormal {note}")
+    if lognormal is not None and outcome.fit is not None and not outcome.fit.fixed:
+        comparison = compare_families(outcome.fit.log_likelihood, lognormal.log_likelihood, settings.aic_threshold)
+    return ProductFit(
+        product, outcome.status, message, data, warranty, outcome.fit, outcome.lr_bounds, goodness, lognormal,
+        comparison, lognormal_lr,
+    )
 
 
 def _goodness(data: LifeData, fit: FitResult) -> GoodnessOfFit | None:

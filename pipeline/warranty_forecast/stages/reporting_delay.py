@@ -77,6 +77,7 @@ from warranty_forecast.lifecore.likelihood import log_likelihood
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages.fitting import PUBLISHED_STATUSES, WeibullOutcome, fit_weibull, life_data_by_product
 from warranty_forecast.stages.by_product import rows_by_product
+from warranty_forecast.stages.parallel import map_products
 
 log = logging.getLogger(__name__)
 
@@ -760,6 +761,14 @@ def _empty_unreported(columns: tuple[str, ...]) -> pd.DataFrame:
     )
 
 
+def _correct_one(product, returns, suspensions, delay, as_of_date, settings, warranty, tolerance, max_iterations):  # type: ignore[no-untyped-def]
+    """correct_product with positional arguments, for a worker process."""
+    return correct_product(
+        product, returns, suspensions, delay, as_of_date, settings, warranty,
+        tolerance=tolerance, max_iterations=max_iterations,
+    )
+
+
 def correct_for_reporting_delay(
     fit_returns: pd.DataFrame,
     fit_suspensions: pd.DataFrame,
@@ -772,33 +781,33 @@ def correct_for_reporting_delay(
     max_delay_days: int = DEFAULT_MAX_DELAY_DAYS,
     tolerance: float = DEFAULT_TOLERANCE,
     max_iterations: int = DEFAULT_MAX_ITERATIONS,
+    workers: int = 1,
 ) -> ReportingDelayCorrection:
     """Every product's delay distribution, corrected fit and expected unreported failures.
 
     `warranty_by_product`: the warranty (months) at which each fit's fraction failed is bounded, as in
     fitting.fit_products (cohort_summary's max_warranty_months). Never raises for one product's data: a
-    product left uncorrected says why in its note.
+    product left uncorrected says why in its note. `workers` > 1: the products in that many processes
+    (stages.parallel.map_products), with the same result.
     """
     _checked_suspensions(fit_suspensions)
     products = sorted(set(fit_returns["product"]) | set(fit_suspensions["product"]))
     delays = reporting_delays_by_product(
         claim_reporting_delays, products, min_claims=min_claims, max_delay_days=max_delay_days
     )
-    fits = {}
     returns_of, suspensions_of = rows_by_product(fit_returns), rows_by_product(fit_suspensions)
-    for product in products:
-        fits[product] = correct_product(
-            product,
-            returns_of[product],
-            suspensions_of[product],
-            delays[product],
-            as_of_date,
-            settings,
-            int(warranty_by_product[product]),
-            tolerance=tolerance,
-            max_iterations=max_iterations,
-        )
-        log.debug("reporting delay %s: %s", product, fits[product].note)
+    corrected = map_products(
+        _correct_one,
+        [
+            (product, returns_of[product], suspensions_of[product], delays[product], as_of_date, settings,
+             int(warranty_by_product[product]), tolerance, max_iterations)
+            for product in products
+        ],
+        workers,
+    )
+    fits = dict(zip(products, corrected))
+    for product, fit in fits.items():
+        log.debug("reporting delay %s: %s", product, fit.note)
     notes = tuple(f"product {product}: {fit.note}" for product, fit in fits.items() if fit.note)
 
     def stacked(name: str, columns: tuple[str, ...] | None = None) -> pd.DataFrame:
@@ -891,7 +900,7 @@ class DelayStage:
         )
 
 
-def reporting_delay_stage(shaped, settings, life_model: LifeModelSettings) -> DelayStage:  # type: ignore[no-untyped-def]
+def reporting_delay_stage(shaped, settings, life_model: LifeModelSettings, workers: int = 1) -> DelayStage:  # type: ignore[no-untyped-def]
     """The run's reporting-delay step: estimate each product's failure-to-claim delay from
     shaped.claim_reporting_delays, fit on the likelihood that allows for it (Kalbfleisch, Lawless &
     Robinson 1991) and complete the fit frames; `settings` is the run's ForecastSettings."""
@@ -901,7 +910,7 @@ def reporting_delay_stage(shaped, settings, life_model: LifeModelSettings) -> De
     correction = correct_for_reporting_delay(
         shaped.fit_returns, shaped.fit_suspensions, shaped.claim_reporting_delays, shaped.as_of_date, life_model,
         {product: int(months) for product, months in warranty.items()},
-        min_claims=settings.min_delay_claims, max_delay_days=settings.max_reporting_delay_days,
+        min_claims=settings.min_delay_claims, max_delay_days=settings.max_reporting_delay_days, workers=workers,
     )
     def like(frame: pd.DataFrame, template: pd.DataFrame) -> pd.DataFrame:
         """The completed frame with the run's columns (the run's own empty frame when nothing was completed)."""
