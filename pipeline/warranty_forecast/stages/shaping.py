@@ -37,6 +37,7 @@ from warranty_forecast.errors import ConfigError, ContractError, QuarantineCeili
 from warranty_forecast.stages.extracts import CLAIMS, SHIPMENTS, load_extract, raw_tables
 from warranty_forecast.stages.sql_runner import (
     MACRO_FILES,
+    Model,
     plan_models,
     read_row,
     read_table,
@@ -272,6 +273,18 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
 
 
 # The parts of the stage every engine shares (stages/spark_engine.py runs the same plan on Spark).
+
+
+def model_plan() -> tuple[Model, ...]:
+    """The plan of the models (`sql_runner.plan_models`) without the extracts: an in-memory DuckDB with the
+    macros parses the headers' tables; no data is read. For engines other than DuckDB."""
+    con = duckdb.connect(":memory:")
+    try:
+        for macros in MACRO_FILES:
+            run_statements(con, macros)
+        return plan_models(con, [table for contract in (SHIPMENTS, CLAIMS) for table in raw_tables(contract)])
+    finally:
+        con.close()
 
 
 def run_parameters(config: RunConfig) -> dict[str, Any]:

@@ -56,7 +56,6 @@ from functools import lru_cache
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Mapping
 
-import duckdb
 import pandas as pd
 
 from warranty_forecast.config import RunConfig
@@ -73,15 +72,14 @@ from warranty_forecast.stages.shaping import (
     ShapedData,
     as_of_parameters,
     choose_as_of,
+    model_plan,
     run_parameters,
     shaped_data,
 )
 from warranty_forecast.stages.sql_runner import (
     MACRO_FILES,
     Model,
-    plan_models,
     read_model_sql,
-    run_statements,
     upstream_of,
 )
 
@@ -375,7 +373,7 @@ def _rewrite_slice(node):
 
 def _rewrite_length(node):
     _, exp = _sqlglot()
-    if isinstance(node, exp.Length):  # the models use len() on lists only (checked by test)
+    if isinstance(node, exp.Length):  # the models use len() on lists only (size() of text fails loudly on Spark)
         return exp.Anonymous(this="size", expressions=[node.this.copy()])
     return node
 
@@ -712,13 +710,7 @@ def shape_extracts_on_spark(config: RunConfig, spark: "SparkSession | None" = No
         "claims": load_extract_on_spark(spark, claims_file, CLAIMS),
     }
     seconds["raw"] = time.perf_counter() - started
-    planner = duckdb.connect(":memory:")  # parses the headers' tables only (with the macros known); no data
-    try:
-        for macros in MACRO_FILES:
-            run_statements(planner, macros)
-        plan = plan_models(planner, [table for contract in (SHIPMENTS, CLAIMS) for table in raw_tables(contract)])
-    finally:
-        planner.close()
+    plan = model_plan()
     parameters = run_parameters(config)
     before_as_of = upstream_of(plan, NEWEST_DATES_MODEL)
     _run_models(spark, before_as_of, parameters, seconds)
