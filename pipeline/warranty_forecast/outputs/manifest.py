@@ -59,13 +59,15 @@ class RunManifest:
     seconds_by_sql_layer: Mapping[str, float]
     versions: Mapping[str, str]
     charts_drawn: bool = True
+    engine: str = "duckdb"  # where the shaping ran (--engine)
 
     @property
     def run_id(self) -> str:
         """The run's id: its as-of date and a fingerprint of what it computed from (the extracts' SHA-256, the
         settings in force, the package version and a fingerprint of its code (`code_fingerprint`), and whether
         charts were left out), e.g.
-        `2026-11-30-3f9a0c1b2d4e`. A rerun with the same inputs, settings and as-of date has the same id; the
+        `2026-11-30-3f9a0c1b2d4e`; a run shaped on another engine than DuckDB has its own id (floating sums may
+        differ in the last bit between engines). A rerun with the same inputs, settings and as-of date has the same id; the
         run date and the timings do not enter it."""
         basis = json.dumps(
             {
@@ -75,6 +77,7 @@ class RunManifest:
                 "version": self.versions.get("warranty-forecast", ""),
                 "code": self.versions.get(CODE_KEY, ""),
                 **({} if self.charts_drawn else {"charts": False}),
+                **({} if self.engine == "duckdb" else {"engine": self.engine}),
             },
             sort_keys=True, default=str,
         )
@@ -101,6 +104,7 @@ class RunManifest:
             "seconds_by_sql_layer": dict(self.seconds_by_sql_layer),
             "versions": dict(self.versions),
             "charts_drawn": self.charts_drawn,
+            "engine": self.engine,
             "finished_utc": self.finished_utc.isoformat(timespec="seconds"),
             "seconds_total": self.seconds_total,
         }
@@ -147,6 +151,7 @@ def run_manifest(
             CODE_KEY: code_fingerprint(),
         },
         charts_drawn=config.draw_charts,
+        engine=getattr(config, "engine", "duckdb"),
     )
 
 
