@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import logging
 import os
 import re
 from pathlib import Path
@@ -67,6 +68,8 @@ def spark():
     session.sparkContext.setLogLevel("ERROR")
     yield session
     session.stop()
+    # py4j says goodbye at interpreter exit, after pytest has closed the streams its records would go to
+    logging.getLogger("py4j").setLevel(logging.WARNING)
 
 
 def planned_models():
