@@ -62,24 +62,32 @@ unsold_or_unreported_rows as (
     where known_sale_date is null
 ),
 
+-- the imputation depends on a row only through its product and days since shipped: it is worked out once per
+-- (product, days_since_shipped) and joined back to the rows on those two (a few thousand pairs, not every row
+-- against every lag)
+unreported_days as (
+    select distinct product, days_since_shipped
+    from unsold_or_unreported_rows
+),
+
 share_sold_by_days_since_shipped as (
     -- G(D): the share at the longest lag of at most D days (0 when every lag is longer; then m does not
     -- matter). The product's m is on each of its lag rows.
     select
-        unreported.source_row_number,
         unreported.product,
+        unreported.days_since_shipped,
         coalesce(max(lag.share_sold_by_lag), 0.0)::double as share_sold_by_as_of,
         coalesce(max(lag.missing_sale_date_share), 1.0)::double as missing_sale_date_share
-    from unsold_or_unreported_rows as unreported
+    from unreported_days as unreported
     left join lag_distribution as lag
         on unreported.product = lag.product and lag.lag_days <= unreported.days_since_shipped
-    group by unreported.source_row_number, unreported.product
+    group by unreported.product, unreported.days_since_shipped
 ),
 
-sold_share_of_unreported_rows as (
+sold_share_by_days_since_shipped as (
     select
-        source_row_number,
         product,
+        days_since_shipped,
         share_sold_by_as_of,
         case
             when share_sold_by_as_of >= 1.0 then 1.0::double
@@ -92,22 +100,38 @@ sold_share_of_unreported_rows as (
     from share_sold_by_days_since_shipped
 ),
 
-sold_part_lag_by_row as (
-    select sold.source_row_number, min(lag.lag_days) as sold_lag_days
-    from sold_share_of_unreported_rows as sold
+sold_part_lag_by_days as (
+    select sold.product, sold.days_since_shipped, min(lag.lag_days) as sold_lag_days
+    from sold_share_by_days_since_shipped as sold
     join lag_distribution as lag
         on sold.product = lag.product and lag.share_sold_by_lag >= sold.share_sold_by_as_of / 2
     where sold.sold_share > 0
-    group by sold.source_row_number
+    group by sold.product, sold.days_since_shipped
 ),
 
-channel_part_lag_by_row as (
-    select sold.source_row_number, min(lag.lag_days) as channel_lag_days
-    from sold_share_of_unreported_rows as sold
+channel_part_lag_by_days as (
+    select sold.product, sold.days_since_shipped, min(lag.lag_days) as channel_lag_days
+    from sold_share_by_days_since_shipped as sold
     join lag_distribution as lag
         on sold.product = lag.product and lag.share_sold_by_lag >= (1.0 + sold.share_sold_by_as_of) / 2
     where sold.sold_share < 1
-    group by sold.source_row_number
+    group by sold.product, sold.days_since_shipped
+),
+
+sold_share_of_unreported_rows as (
+    select
+        unreported.source_row_number,
+        shares.sold_share,
+        sold_part.sold_lag_days,
+        channel_part.channel_lag_days
+    from unsold_or_unreported_rows as unreported
+    join sold_share_by_days_since_shipped as shares
+        on unreported.product = shares.product and unreported.days_since_shipped = shares.days_since_shipped
+    left join sold_part_lag_by_days as sold_part
+        on unreported.product = sold_part.product and unreported.days_since_shipped = sold_part.days_since_shipped
+    left join channel_part_lag_by_days as channel_part
+        on unreported.product = channel_part.product
+        and unreported.days_since_shipped = channel_part.days_since_shipped
 ),
 
 clocked_units as (
@@ -124,15 +148,13 @@ clocked_units as (
         coalesce(sold.sold_share, 1.0::double) as sold_share,
         coalesce(
             shipped.known_sale_date,
-            shipped.ship_date + sold_part.sold_lag_days,
-            shipped.ship_date + channel_part.channel_lag_days
+            shipped.ship_date + sold.sold_lag_days,
+            shipped.ship_date + sold.channel_lag_days
         ) as warranty_start_date,
-        shipped.ship_date + channel_part.channel_lag_days as channel_start_date,
+        shipped.ship_date + sold.channel_lag_days as channel_start_date,
         shipped.known_sale_date is null as is_sale_date_imputed
     from shipped_by_as_of as shipped
     left join sold_share_of_unreported_rows as sold on shipped.source_row_number = sold.source_row_number
-    left join sold_part_lag_by_row as sold_part on shipped.source_row_number = sold_part.source_row_number
-    left join channel_part_lag_by_row as channel_part on shipped.source_row_number = channel_part.source_row_number
 )
 
 select
