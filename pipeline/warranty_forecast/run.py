@@ -106,13 +106,13 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     check_products_in_data(config, shaped.known_products)
     # the life fits and the forecast see the fit frames completed with the failures not yet reported; the
     # alerts judge the returns as reported (an imputed fraction of a return is no evidence against a month)
+    workers = worker_count(config.run.workers)  # processes for the per-product fits (stages.parallel)
     delays = clock.run(
         "delays",
-        lambda: reporting_delay_stage(shaped, config.forecast, config.life_model, workers=worker_count(config.run.workers)),
+        lambda: reporting_delay_stage(shaped, config.forecast, config.life_model, workers=workers),
         lambda d: d.summary,
     )
     for_life = delays.shaped
-    workers = worker_count(config.run.workers)
     screening = clock.run("fit", lambda: fit_lives(for_life, config.life_model, workers=workers), lambda f: f.summary)
     alerts = clock.run(
         "alerts",
