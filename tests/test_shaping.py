@@ -289,6 +289,44 @@ def test_parquet_extract_gives_the_same_result_as_csv(tmp_path, shaped):
     assert reasons.set_index("row_number")["reason"].to_dict()[9] == "unparseable_value"
 
 
+def test_both_parquet_readers_number_rows_alike_across_row_groups(tmp_path):
+    """raw/parquet_extract numbers rows with the reader's file_row_number; raw/parquet_extract_by_position
+    (for a file holding a column of that name) joins a range to the rows by position: the same table,
+    row numbers 1..n in file order across row groups (common practice, no source)."""
+    import duckdb
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from warranty_forecast.stages.extracts import SHIPMENTS as CONTRACT
+    from warranty_forecast.stages.sql_runner import run_model
+
+    n = 2_500
+    table = pa.table({
+        "serial": [f"S{i:05d}" for i in range(n)],
+        "product": ["P"] * n,
+        "build_month": ["2024-01"] * n,
+        "ship_date": pa.array([dt.date(2024, 2, 1)] * n),
+        "units": pa.array([1] * n, pa.int32()),
+    })
+    path = tmp_path / "shipments.parquet"
+    pq.write_table(table, path, row_group_size=700)  # four row groups
+    assert pq.ParquetFile(path).num_row_groups == 4
+    con = duckdb.connect()
+    parameters = {
+        "path": str(path),
+        "contract_columns": list(table.column_names),
+        "empty_contract_row": {column: None for column in CONTRACT.columns},
+    }
+    run_model(con, "raw/parquet_extract", parameters, table="by_reader")
+    run_model(con, "raw/parquet_extract_by_position", parameters, table="by_position")
+    by_reader = con.table("by_reader").order("source_row_number").df()
+    by_position = con.table("by_position").order("source_row_number").df()
+    pd.testing.assert_frame_equal(by_reader, by_position)
+    assert by_reader["source_row_number"].tolist() == list(range(1, n + 1))
+    assert by_reader["serial"].tolist() == [f"S{i:05d}" for i in range(n)]  # row k is the file's k-th row
+    assert by_reader["ship_date"].iloc[0] == "2024-02-01" and by_reader["units"].iloc[0] == "1"
+
+
 def test_unreadable_inputs(tmp_path):
     shipments_path, claims_path = write_extracts(tmp_path, SHIPMENTS, CLAIMS)
     missing = load_config(shipments_path=tmp_path / "nope.csv", claims_path=claims_path, out_dir=tmp_path / "o")

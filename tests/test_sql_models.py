@@ -469,6 +469,7 @@ def quarantine_inputs(con) -> None:
 
 def test_rows_quarantined_with_reason_hold_each_row_as_read(con):
     quarantine_inputs(con)
+    sql_runner.run_model(con, "intermediate/shipment_rows_quarantined", {})
     got = run(con, "intermediate/rows_quarantined_with_reason",
               "extract, source_row_number, problem_column, problem_reason, raw_values")
     assert [(*row[:4], json.loads(row[4])) for row in got] == [
@@ -490,9 +491,13 @@ def test_reconciliation_accounts_for_every_row_read(con):
     assert run(con, "intermediate/extracts_read", "extract, source_file, rows_read", files) == [
         ("claims", "/data/c.csv", 4), ("shipments", "/data/s.csv", 3),
     ]
+    sql_runner.run_model(con, "intermediate/shipment_rows_quarantined", {})
     sql_runner.run_model(con, "intermediate/rows_quarantined_with_reason", {})
+    assert run(con, "intermediate/rows_after_as_of", "extract, rows_after_as_of", {"as_of_date": AS_OF}) == [
+        ("claims", 1), ("shipments", 0),
+    ]
     got = run(con, "outputs/reconciliation",
-              "extract, source_file, rows_read, rows_used, rows_quarantined, rows_after_as_of", {"as_of_date": AS_OF})
+              "extract, source_file, rows_read, rows_used, rows_quarantined, rows_after_as_of", {})
     assert got == [("claims", "/data/c.csv", 4, 1, 2, 1), ("shipments", "/data/s.csv", 3, 1, 2, 0)]
     quarantine = run(con, "outputs/quarantine", 'extract, source_file, row_number, "column", reason')
     assert quarantine[0] == ("claims", "/data/c.csv", 1, "claim_id", "missing_value") and len(quarantine) == 4

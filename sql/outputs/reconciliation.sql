@@ -1,8 +1,8 @@
 -- reconciliation: what became of every row read from each extract.
 -- Grain: one row per extract (shipments, claims).
--- Parameters: $as_of_date.
+-- Parameters: none.
 -- Reads: extracts_read, units_aged_to_as_of, claims_assigned_to_sale_month_groups,
---   rows_quarantined_with_reason, stg_shipments, stg_claims.
+--   rows_quarantined_with_reason, rows_after_as_of.
 -- Sort: extract
 -- rows_read = rows_used + rows_quarantined + rows_after_as_of must hold; Python checks it. Each count
 -- comes from another table, so a row lost or counted twice between the layers is seen.
@@ -19,16 +19,6 @@ rows_quarantined as (
     select extract, count(*) as rows_quarantined
     from rows_quarantined_with_reason
     group by extract
-),
-
-rows_after_as_of as (
-    select 'shipments' as extract, count(*) as rows_after_as_of
-    from stg_shipments
-    where not is_quarantined and ship_date > $as_of_date
-    union all
-    select 'claims' as extract, count(*) as rows_after_as_of
-    from stg_claims
-    where not is_quarantined and claim_date > $as_of_date
 )
 
 select

@@ -21,6 +21,7 @@ from warranty_forecast.errors import ContractError, InputUnreadableError
 from warranty_forecast.stages.sql_runner import run_model
 
 _SUPPORTED_SUFFIXES = (".csv", ".parquet")
+PARQUET_ROW_NUMBER = "file_row_number"  # the column DuckDB's Parquet reader adds when asked to number rows
 
 
 @dataclass(frozen=True)
@@ -234,12 +235,16 @@ def load_extract(con: duckdb.DuckDBPyConnection, path: Path, contract: ExtractCo
             {"accepted_table": accepted, "malformed_table": malformed, "empty_contract_row": _empty_row(contract)},
             table=raw,
         )
+        con.execute(f'drop table "{accepted}"')  # numbered into the raw table: its memory is free for the rest
     else:
-        header = check_header(read_parquet_header(con, path, contract), path, contract)
+        names = read_parquet_header(con, path, contract)
+        header = check_header(names, path, contract)
+        # the reader numbers the rows itself unless the file holds a column of that number's name
+        model = "raw/parquet_extract_by_position" if PARQUET_ROW_NUMBER in names else "raw/parquet_extract"
         try:
             run_model(
                 con,
-                "raw/parquet_extract",
+                model,
                 {
                     "path": str(path),
                     "contract_columns": list(header.contract_columns),

@@ -43,6 +43,7 @@ from warranty_forecast.stages.sql_runner import (
     read_table,
     run_models,
     run_statements,
+    tables_done_after,
     upstream_of,
 )
 
@@ -260,12 +261,14 @@ def _shape(con: duckdb.DuckDBPyConnection, config: RunConfig) -> ShapedData:
     plan = plan_models(con, [table for contract in (SHIPMENTS, CLAIMS) for table in raw_tables(contract)])
     parameters = run_parameters(config)
     before_as_of = upstream_of(plan, NEWEST_DATES_MODEL)
-    run_models(con, before_as_of, parameters, seconds)
+    outputs = [model.name for model in plan if model.layer == "outputs"]
+    drop_after = tables_done_after(plan, keep=[*outputs, NEWEST_DATES_MODEL])
+    run_models(con, before_as_of, parameters, seconds, drop_after)
     newest = read_row(con, NEWEST_DATES_MODEL)
     newest_claim_date, newest_ship_date = newest["newest_claim_date"], newest["newest_ship_date"]
     as_of_date, as_of_source = choose_as_of(config.as_of_date, newest_claim_date, newest_ship_date, config.run_date)
     parameters.update(as_of_parameters(config, as_of_date))
-    run_models(con, [model for model in plan if model not in before_as_of], parameters, seconds)
+    run_models(con, [model for model in plan if model not in before_as_of], parameters, seconds, drop_after)
     tables = {model.name: read_table(con, model) for model in plan if model.layer == "outputs"}
     return shaped_data(
         config, tables, as_of_date, as_of_source, newest_claim_date, newest_ship_date, ignored, seconds

@@ -202,16 +202,38 @@ def run_statements(con: duckdb.DuckDBPyConnection, path: str) -> None:
     con.execute(read_model_sql(path))
 
 
+def tables_done_after(plan: Iterable[Model], keep: Iterable[str]) -> dict[str, tuple[str, ...]]:
+    """For each model of the plan, the tables no model after it reads (its `Reads:` the last use of them),
+    leaving out the tables in `keep` (the outputs, which are read back at the end). Dropping them as soon as
+    they are done keeps DuckDB's memory to the tables still needed: at 10 M unit rows every wide
+    intermediate table is a few hundred MB."""
+    plan = tuple(plan)
+    kept = set(keep)
+    last_reader: dict[str, str] = {}
+    for model in plan:
+        for table in model.reads:
+            last_reader[table] = model.name
+    done: dict[str, list[str]] = {model.name: [] for model in plan}
+    for table, reader in last_reader.items():
+        if table not in kept:
+            done[reader].append(table)
+    return {name: tuple(sorted(tables)) for name, tables in done.items()}
+
+
 def run_models(
     con: duckdb.DuckDBPyConnection,
     models: Iterable[Model],
     parameters: Mapping[str, Any],
     seconds_by_layer: MutableMapping[str, float],
+    drop_after: Mapping[str, Iterable[str]] | None = None,
 ) -> None:
-    """Run models in the order given, adding each one's time to its layer's."""
+    """Run models in the order given, adding each one's time to its layer's; after each, drop the tables
+    `drop_after[model name]` lists (see `tables_done_after`)."""
     for model in models:
         started = time.perf_counter()
         run_model(con, model.path, parameters)
+        for table in (drop_after or {}).get(model.name, ()):
+            con.execute(f'drop table if exists "{table}"')  # names from the plan's headers, checked identifiers
         seconds_by_layer[model.layer] = seconds_by_layer.get(model.layer, 0.0) + time.perf_counter() - started
 
 
