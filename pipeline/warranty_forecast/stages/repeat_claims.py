@@ -398,8 +398,14 @@ def _spread_repeats(
     upper = np.minimum(end[row], j.astype(float))
     products = rows["product"].to_numpy()
     rate = np.zeros(len(j))
-    for product in np.unique(products[open_rows]):
-        take = products[row] == product
+    # the pieces grouped by product once (a mask per product would read every piece once per product:
+    # quadratic in the number of product lines)
+    names, code = np.unique(products[open_rows], return_inverse=True)
+    piece_code = np.repeat(code.ravel(), count)
+    order = np.argsort(piece_code, kind="stable")
+    bounds = np.searchsorted(piece_code[order], np.arange(len(names) + 1))
+    for index, product in enumerate(names):
+        take = order[bounds[index]:bounds[index + 1]]
         table = rates.rates(product, int(j[take].max()))
         rate[take] = table[j[take] - 1]
     density = weight[row] * rate  # repeat claims per month of u, constant on (lower, upper]
