@@ -106,7 +106,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     check_products_in_data(config, shaped.known_products)
     # the life fits and the forecast see the fit frames completed with the failures not yet reported; the
     # alerts judge the returns as reported (an imputed fraction of a return is no evidence against a month)
-    workers = worker_count(config.run.workers)  # processes for the per-product fits (stages.parallel)
+    workers = worker_count(config.run.workers)  # processes for the per-product work (stages.parallel)
     delays = clock.run(
         "delays",
         lambda: reporting_delay_stage(shaped, config.forecast, config.life_model, workers=workers),
@@ -118,7 +118,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         "alerts",
         lambda: alert_build_months(
             shaped.fit_returns, shaped.fit_suspensions, screening, config.alerts, config.life_model,
-            shaped.returns_by_build_month_and_code,
+            shaped.returns_by_build_month_and_code, workers=workers,
         ),
         lambda a: a.summary,
     )
@@ -156,7 +156,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         lambda: predict_returns(
             for_life.fit_suspensions, forecast.models, shaped.as_of_date, forecast.month_models,
             claim_costs=claim_costs_by_product(reserve.costs), draws=config.forecast.prediction_draws,
-            levels=config.forecast.prediction_levels, seed=config.forecast.prediction_seed,
+            levels=config.forecast.prediction_levels, seed=config.forecast.prediction_seed, workers=workers,
         ),
         lambda p: f"{p.draws} draws per product at levels {', '.join(f'{v:g}' for v in p.levels)}",
     )

@@ -66,6 +66,7 @@ from warranty_forecast.stages.life_models import FittedLives
 from warranty_forecast.stages.build_month_cusum import design_threshold
 from warranty_forecast.stages.month_life import hazard_ratio_test, month_data_by_build_month
 from warranty_forecast.stages.by_product import rows_by_product
+from warranty_forecast.stages.parallel import map_products
 
 MAX_ROUNDS = 5
 CUSUM_SEED = 20261203  # the CUSUM threshold's simulation seed: the same data give the same threshold every night
@@ -369,7 +370,8 @@ def cause_table(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> pd.DataF
     """
     frames = []
     codes_of = rows_by_product(returns_by_code)
-    for product, months in alerts.groupby("product", sort=True):
+    flagged_products = set(alerts.loc[alerts["is_flagged"], "product"])
+    for product, months in alerts[alerts["product"].isin(flagged_products)].groupby("product", sort=True):
         flagged = months[months["is_flagged"]]
         if not len(flagged):
             continue
@@ -413,9 +415,12 @@ def concentrated_codes(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> d
     """(product, failure code) -> "failure code X: N of its M returns are in flagged build month(s) ...", for each code with at least CONCENTRATED_SHARE of its returns
     (and at least MIN_CONCENTRATED_RETURNS) in its product's flagged build months."""
     flagged = alerts[alerts["is_flagged"]]
+    months_of = {product: set(rows["build_month"]) for product, rows in flagged.groupby("product", sort=False)}
     found = {}
-    for (product, code), rows in returns_by_code.groupby(["product", "failure_code"], sort=True):
-        months = set(flagged.loc[flagged["product"] == product, "build_month"])
+    # only a product with flagged months can have a code concentrated in them: the others are not read
+    candidates = returns_by_code[returns_by_code["product"].isin(set(months_of))]
+    for (product, code), rows in candidates.groupby(["product", "failure_code"], sort=True):
+        months = months_of[product]
         in_flagged = rows[rows["build_month"].isin(months)]
         n, m = int(in_flagged["returns"].sum()), int(rows["returns"].sum())
         if n >= MIN_CONCENTRATED_RETURNS and n >= CONCENTRATED_SHARE * m:
@@ -436,16 +441,22 @@ def find_bad_build_months(
     settings: AlertSettings,
     life_model: LifeModelSettings,
     returns_by_code: pd.DataFrame | None = None,
+    workers: int = 1,
 ) -> BuildMonthAlerts:
     """Judge every build month of every product that has a published fit in `published` (products
     without one are not judged); with `returns_by_code` (returns_by_build_month_and_code) also point each
-    flagged month at its failure codes. Never raises for one product's data."""
+    flagged month at its failure codes. Never raises for one product's data. `workers` > 1: the products
+    are judged in that many processes (stages.parallel.map_products; the same result: each product's
+    CUSUM threshold has its own fixed seed)."""
     frames, baselines, notes = [], {}, []
     returns_of, suspensions_of = rows_by_product(fit_returns), rows_by_product(fit_suspensions)
-    for product, fit in sorted(published.items()):
-        returns = returns_of[product]
-        suspensions = suspensions_of[product]
-        table, baseline = _judge_product(product, returns, suspensions, fit, settings, life_model)
+    judged = sorted(published.items())
+    results = map_products(
+        _judge_product,
+        [(product, returns_of[product], suspensions_of[product], fit, settings, life_model) for product, fit in judged],
+        workers,
+    )
+    for (product, _), (table, baseline) in zip(judged, results):
         frames.append(table.assign(product=product))
         baselines[product] = baseline
         if baseline.note:
@@ -484,16 +495,17 @@ def alert_build_months(
     settings: AlertSettings,
     life_model: LifeModelSettings,
     returns_by_code: pd.DataFrame | None = None,
+    workers: int = 1,
 ) -> BuildMonthAlerts:
     """The stage as the run calls it: every product with a published fit, starting from that fit; flagged
-    months pointed at their failure codes when `returns_by_code` is given."""
+    months pointed at their failure codes when `returns_by_code` is given; `workers` as find_bad_build_months."""
     published = {
         product: outcome.fit
         for product, outcome in lives.products.items()
         if outcome.status in PUBLISHED_STATUSES and outcome.fit is not None
     }
     return find_bad_build_months(
-        shaped_fit_returns, shaped_fit_suspensions, published, settings, life_model, returns_by_code
+        shaped_fit_returns, shaped_fit_suspensions, published, settings, life_model, returns_by_code, workers
     )
 
 

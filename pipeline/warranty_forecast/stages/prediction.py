@@ -70,6 +70,7 @@ from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.stages import forecast
 from warranty_forecast.stages.forecast import CompetingRisks, LifeDistribution
 from warranty_forecast.stages.by_product import rows_by_product
+from warranty_forecast.stages.parallel import map_products
 
 FloatArray = npt.NDArray[np.float64]
 
@@ -897,6 +898,7 @@ def predict_returns(
     draws: int = DEFAULT_DRAWS,
     levels: Sequence[float] = DEFAULT_LEVELS,
     seed: int = 0,
+    workers: int = 1,
 ) -> ReturnsPrediction:
     """Prediction intervals of every forecast product's future returns and, with costs, its reserve.
 
@@ -912,7 +914,9 @@ def predict_returns(
     counts, their own uncertainty not drawn), so that `expected_*` match a forecast that includes them.
     `draws`: B parameter draws per product. `levels`: (lower, median, upper), increasing, in (0, 1).
     `as_of_date`: the next-12-months horizon is the 12 calendar months after its month.
-    Products without a model are left out (the forecast reports them).
+    Products without a model are left out (the forecast reports them). `workers` > 1: the products in
+    that many processes (stages.parallel.map_products; the same result, each product drawing from its own
+    seeded generator, `product_seed`).
     """
     _check_draws(draws)
     levels = check_levels(levels)
@@ -928,25 +932,26 @@ def predict_returns(
     claim_costs = claim_costs or {}
     additional = _checked_additional(additional_expected)
     month_models = month_models or {}
-    pieces: list[_ProductPrediction] = []
     methods: dict[str, str] = {}
     seconds: dict[str, float] = {}
     additional_of = rows_by_product(additional) if additional is not None else None
-    for product, rows in suspensions.groupby("product", sort=True):
-        model = models.get(product)
-        if model is None:
-            continue
-        start = time.perf_counter()
-        sampler = samplers.get(product, sampler_for(model))
-        own = {month: m for (p, month), m in month_models.items() if p == product}
-        piece = _predict_product(
-            str(product), rows, model, sampler, own, as_of_date, draws, levels,
-            np.random.default_rng(product_seed(seed, str(product))), claim_costs.get(product),
+    own_months: dict[object, dict[object, LifeDistribution]] = {}
+    for (p, month), m in month_models.items():
+        own_months.setdefault(p, {})[month] = m
+    jobs = [
+        (
+            str(product), rows, models[product], product in samplers, samplers.get(product),
+            own_months.get(product, {}), as_of_date, draws, levels, seed, claim_costs.get(product),
             additional_of[product] if additional_of is not None else None,
         )
-        pieces.append(piece)
-        methods[str(product)] = piece.method
-        seconds[str(product)] = time.perf_counter() - start
+        for product, rows in suspensions.groupby("product", sort=True)
+        if models.get(product) is not None
+    ]
+    timed = map_products(_predict_product_timed, jobs, workers)
+    pieces = [piece for piece, _ in timed]
+    for job, (piece, elapsed) in zip(jobs, timed):
+        methods[job[0]] = piece.method
+        seconds[job[0]] = elapsed
     by_build_month = _concat([p.by_build_month for p in pieces], BY_BUILD_MONTH_COLUMNS)
     for column in ("returns_lower", "returns_median", "returns_upper"):
         by_build_month[column] = by_build_month[column].astype(np.int64)
@@ -963,6 +968,21 @@ def predict_returns(
         notes=tuple(note for p in pieces for note in p.notes),
         seconds=seconds,
     )
+
+
+def _predict_product_timed(
+    product: str, rows: pd.DataFrame, model: LifeDistribution, has_sampler: bool, sampler: SampledLife | None,
+    month_models: Mapping[object, LifeDistribution], as_of_date: dt.date, draws: int, levels: tuple[float, ...],
+    seed: int, costs: ClaimCosts | None, additional: pd.DataFrame | None,
+) -> tuple[_ProductPrediction, float]:
+    """One product's prediction and its seconds (for a worker process: its generator is made here from
+    `product_seed`, its sampler from the model unless one was given)."""
+    start = time.perf_counter()
+    piece = _predict_product(
+        product, rows, model, sampler if has_sampler else sampler_for(model), month_models, as_of_date, draws,
+        levels, np.random.default_rng(product_seed(seed, product)), costs, additional,
+    )
+    return piece, time.perf_counter() - start
 
 
 def _checked_additional(frame: pd.DataFrame | None) -> pd.DataFrame | None:
