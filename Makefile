@@ -32,8 +32,10 @@ $(SPARK_STAMP): $(STAMP)
 demo: $(STAMP)
 	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out reports/demo
 
+# one test process per core (pytest-xdist); a test file stays in one process, so a module's fixtures (the
+# Spark session, the demo runs) are made once per process that needs them
 test: $(SPARK_STAMP)
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n auto --dist loadfile
 
 clean:
 	rm -rf $(VENV) .venv-bench reports/demo
