@@ -23,6 +23,7 @@ from warranty_forecast.stages.fitting import FIT_STATUS_AND_PARAMETER_COLUMNS, P
 from warranty_forecast.lifecore.data import LifeData, month_interval_ends
 from warranty_forecast.lifecore.profile import LikelihoodRatioBounds
 from warranty_forecast.lifecore.result import FitResult
+from warranty_forecast.stages.parallel import map_products
 
 OTHER = "other"
 
@@ -89,24 +90,34 @@ def fit_failure_modes(
     returns_by_failure_mode: pd.DataFrame,
     data_by_product: Mapping[str, LifeData],
     settings: LifeModelSettings,
+    workers: int = 1,
 ) -> dict[str, tuple[ModeFit, ...]]:
-    """Fit every failure mode of every product (products without counted returns have no modes)."""
-    result = {}
-    for product, rows in returns_by_failure_mode.groupby("product", sort=True):
-        product_data = data_by_product[product]
-        membership = mode_membership(rows.groupby("failure_mode")["returns"].sum(), settings.min_returns_per_mode)
-        modes = []
-        for mode, codes in membership.items():
-            data = competing_risk_data(rows, codes, product_data)
-            outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), b_life_fractions=(0.10,))
-            modes.append(
-                ModeFit(
-                    product, mode, codes, data.n_returns, outcome.status, outcome.message, outcome.fit,
-                    outcome.lr_bounds,
-                )
+    """Fit every failure mode of every product (products without counted returns have no modes).
+    `workers` > 1: the products in that many processes (stages.parallel.map_products; the same result)."""
+    jobs = [
+        (product, rows, data_by_product[product], settings)
+        for product, rows in returns_by_failure_mode.groupby("product", sort=True)
+    ]
+    fitted = map_products(_fit_product_modes, jobs, workers)
+    return {job[0]: modes for job, modes in zip(jobs, fitted)}
+
+
+def _fit_product_modes(
+    product: str, rows: pd.DataFrame, product_data: LifeData, settings: LifeModelSettings
+) -> tuple[ModeFit, ...]:
+    """One product's failure-mode fits (module-level, for a worker process)."""
+    membership = mode_membership(rows.groupby("failure_mode")["returns"].sum(), settings.min_returns_per_mode)
+    modes = []
+    for mode, codes in membership.items():
+        data = competing_risk_data(rows, codes, product_data)
+        outcome = fit_weibull(data, settings, settings.fixed_shape_for(product), b_life_fractions=(0.10,))
+        modes.append(
+            ModeFit(
+                product, mode, codes, data.n_returns, outcome.status, outcome.message, outcome.fit,
+                outcome.lr_bounds,
             )
-        result[product] = tuple(modes)
-    return result
+        )
+    return tuple(modes)
 
 
 def complete_mode_models(mode_fits: Mapping[str, tuple[ModeFit, ...]]) -> dict[str, dict[str, FitResult]]:

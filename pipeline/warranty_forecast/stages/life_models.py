@@ -69,14 +69,14 @@ def fit_lives(
 
     `left_out`: build months per product to leave out of that product's fits (the flagged build months,
     whose own lives the forecast models apart); the life_model table names them in build_months_left_out.
-    `workers` > 1: the product fits in that many processes (the same result).
+    `workers` > 1: the product fits and the failure-mode fits in that many processes (the same result).
     """
     left_out = {product: set(months) for product, months in (left_out or {}).items() if months}
     fit_returns = _without(shaped.fit_returns, left_out)
     data_by_product = life_data_by_product(fit_returns, _without(shaped.fit_suspensions, left_out))
     by_product = shaped.cohort_summary.groupby("product")
     products = fit_products(data_by_product, settings, by_product["max_warranty_months"].max().to_dict(), workers)
-    modes = fit_failure_modes(_without(shaped.returns_by_failure_mode, left_out), data_by_product, settings)
+    modes = fit_failure_modes(_without(shaped.returns_by_failure_mode, left_out), data_by_product, settings, workers)
     table = life_model_table(products, by_product["units"].sum().to_dict())
     table["build_months_left_out"] = [
         ", ".join(_month_text(month) for month in sorted(left_out.get(product, ()))) for product in table["product"]
