@@ -304,16 +304,26 @@ def month_life_model(base: BaseLife, data: MonthData, confidence_level: float = 
 
 def month_data_by_build_month(returns: pd.DataFrame, suspensions: pd.DataFrame) -> dict[object, MonthData]:
     """One product's rows (fit_returns, fit_suspensions) as life data per build month."""
-    counted = {month: rows.groupby("months_in_service")["returns"].sum() for month, rows in returns.groupby("build_month")}
-    survived = {
-        month: rows.groupby("observed_age_months")["suspensions"].sum()
-        for month, rows in suspensions.groupby("build_month")
-    }
-    empty = pd.Series(dtype=float)
+    counted = _sums_by_build_month(returns, "months_in_service", "returns")
+    survived = _sums_by_build_month(suspensions, "observed_age_months", "suspensions")
+    empty = (np.zeros(0), np.zeros(0))
     return {
-        month: MonthData.of(
-            counted.get(month, empty).index.to_numpy(dtype=float), counted.get(month, empty).to_numpy(dtype=float),
-            survived.get(month, empty).index.to_numpy(dtype=float), survived.get(month, empty).to_numpy(dtype=float),
-        )
+        month: MonthData.of(*counted.get(month, empty), *survived.get(month, empty))
         for month in sorted(set(counted) | set(survived))
     }
+
+
+def _sums_by_build_month(frame: pd.DataFrame, key: str, value: str) -> dict[object, tuple[np.ndarray, np.ndarray]]:
+    """build month -> (the sorted values of `key`, the sums of `value` at each), from one grouping of the
+    table (a grouping per build month costs a pandas call per month: thousands per product line)."""
+    if not len(frame):
+        return {}
+    sums = frame.groupby(["build_month", key])[value].sum()
+    if not len(sums):
+        return {}
+    months = sums.index.get_level_values(0)
+    ages = sums.index.get_level_values(1).to_numpy(dtype=float)
+    values = sums.to_numpy(dtype=float)
+    starts = np.flatnonzero(np.r_[True, months[1:] != months[:-1]])
+    ends = np.r_[starts[1:], len(sums)]
+    return {months[a]: (ages[a:b], values[a:b]) for a, b in zip(starts, ends)}
