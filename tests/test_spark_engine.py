@@ -180,5 +180,15 @@ def test_the_engine_is_chosen_on_the_command_line_and_checked(tmp_path):
     assert (config.engine, spark_engine.spark_master(config)) == ("spark", "local[1]")
     with pytest.raises(ConfigError, match="--engine 'hive'"):
         load_config(**paths, engine="hive")
+    # or in the configuration file's [run] table; the command line wins
+    toml = tmp_path / "run.toml"
+    toml.write_text('[run]\nengine = "spark"\nspark_master = "spark://lake-head:7077"\n')
+    from_file = load_config(**paths, config_path=toml)
+    assert (from_file.engine, spark_engine.spark_master(from_file)) == ("spark", "spark://lake-head:7077")
+    overridden = load_config(**paths, config_path=toml, engine="duckdb", spark_master="local[1]")
+    assert (overridden.engine, overridden.spark_master) == ("duckdb", "local[1]")
+    toml.write_text('[run]\nengine = "hive"\n')
+    with pytest.raises(ConfigError, match="engine"):
+        load_config(**paths, config_path=toml)
     # a data-lake URL keeps its '//' although the command line passes paths through pathlib
     assert spark_engine.spark_path(Path("s3a://lake/extracts/claims.parquet")) == "s3a://lake/extracts/claims.parquet"

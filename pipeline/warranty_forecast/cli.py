@@ -134,13 +134,14 @@ def build_parser() -> argparse.ArgumentParser:
         help="write the tables, report and manifest without the PNG charts (faster)",
     )
     run.add_argument(
-        "--engine", choices=("duckdb", "spark"), default="duckdb",
-        help="the engine of the shaping stage: duckdb (default) or spark (needs the extra .[spark]; see README:"
-        " Running the shaping on Spark)",
+        "--engine", choices=("duckdb", "spark"), default=None,
+        help="the engine of the shaping stage: duckdb (default, or [run] engine of --config) or spark (needs the"
+        " extra .[spark]; see README: Running the shaping on Spark)",
     )
     run.add_argument(
         "--spark-master", dest="spark_master", default=None,
-        help="Spark master URL for --engine spark (default: $WARRANTY_FORECAST_SPARK_MASTER, else local[2]; a"
+        help="Spark master URL for --engine spark (default: [run] spark_master, else $WARRANTY_FORECAST_SPARK_MASTER,"
+        " else local[2]; a"
         " Spark Connect address is taken from $SPARK_REMOTE)",
     )
     run.add_argument(

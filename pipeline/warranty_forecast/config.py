@@ -162,6 +162,12 @@ def _memory_size(value: Any) -> str:
     return f"{match.group(1)}{match.group(2)}"
 
 
+def _spark_master(value: Any) -> str:
+    if not isinstance(value, str) or not value.strip():
+        raise ValueError("must be a Spark master URL such as 'local[2]', 'yarn' or 'spark://host:7077'")
+    return value.strip()
+
+
 def _folder(value: Any) -> str:
     if not isinstance(value, str) or not value.strip() or "\0" in value:
         raise ValueError("must be a folder path (text)")
@@ -182,6 +188,11 @@ class RunSettings:
     duckdb_spill_folder: str | None = _key(None, _folder)
     # worker processes for the per-product fits when there are many product lines (32 or more); 0: every core
     workers: int = _key(0, _integer(0, 256))
+    # the shaping stage's engine when --engine is not given: duckdb, or spark (README: Running the shaping on
+    # Spark); and the Spark master URL when --spark-master is not given (None: $WARRANTY_FORECAST_SPARK_MASTER,
+    # else local[2]). Both operational: the run id names a Spark run by its engine, not by these keys.
+    engine: str = _key("duckdb", _one_of(("duckdb", "spark")))
+    spark_master: str | None = _key(None, _spark_master)
 
 
 @dataclass(frozen=True)
@@ -390,15 +401,16 @@ def load_config(
     config_path: Path | None = None,
     run_date: dt.date | None = None,
     draw_charts: bool = True,
-    engine: str = "duckdb",
+    engine: str | None = None,
     spark_master: str | None = None,
 ) -> RunConfig:
     """Build the run configuration from an optional TOML file and the command-line values.
 
-    `run_date` defaults to today's date; an as-of date after it is a ConfigError.
+    `run_date` defaults to today's date; an as-of date after it is a ConfigError. `engine` and
+    `spark_master` (the command line's) win over [run] engine / spark_master; the engine defaults to duckdb.
     """
     run_date = dt.date.today() if run_date is None else run_date
-    if engine not in ENGINES:
+    if engine is not None and engine not in ENGINES:
         raise ConfigError(f"--engine {engine!r} is not one of {', '.join(ENGINES)}")
     if as_of_date is not None and as_of_date > run_date:
         raise ConfigError(
@@ -421,6 +433,7 @@ def load_config(
         except OSError as error:
             raise ConfigError(f"config file {config_path} cannot be read: {error}") from None
     source = str(config_path) if config_path else "defaults"
+    settings = settings_from_document(document, source)
     return RunConfig(
         shipments_path=shipments_path,
         claims_path=claims_path,
@@ -429,9 +442,9 @@ def load_config(
         run_date=run_date,
         config_path=config_path,
         draw_charts=draw_charts,
-        engine=engine,
-        spark_master=spark_master,
-        **settings_from_document(document, source),
+        engine=engine or settings["run"].engine,
+        spark_master=spark_master or settings["run"].spark_master,
+        **settings,
     )
 
 

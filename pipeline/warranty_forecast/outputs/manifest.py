@@ -175,7 +175,7 @@ def _quarantine_counts(quarantine: pd.DataFrame) -> dict[str, int]:
 CODE_KEY = "warranty-forecast-code"
 
 # settings that change how a run computes (memory, spill folder, processes), never what: left out of the run id
-OPERATIONAL_SETTINGS = {"run": ("duckdb_memory_limit", "duckdb_spill_folder", "workers")}
+OPERATIONAL_SETTINGS = {"run": ("duckdb_memory_limit", "duckdb_spill_folder", "workers", "engine", "spark_master")}
 
 
 def _computing_settings(settings: Mapping[str, Any]) -> dict[str, Any]:
