@@ -57,3 +57,28 @@ def test_a_product_whose_fit_fails_without_its_flagged_month_keeps_its_fit_on_al
     assert kept.left_out == {}
     assert any("fit without the flagged build months (2024-01) failed" in w for w in kept.product_warnings)
     assert kept.table.set_index("product").loc["P", "shape"] == screening.table.set_index("product").loc["P", "shape"]
+
+
+def _two_products() -> SimpleNamespace:
+    """Products P (as `_shaped`, month B with 3, 4, 6, 8, 10, 12 returns) and Q (the same rows renamed)."""
+    one = _shaped([3, 4, 6, 8, 10, 12])
+    two = {
+        name: pd.concat([frame, frame.assign(product="Q")], ignore_index=True)
+        for name, frame in vars(one).items()
+    }
+    return SimpleNamespace(**two)
+
+
+def test_the_refit_fits_again_only_the_products_with_months_left_out():
+    # common practice, no source: the same data give the same fit, so a product with nothing left out
+    # keeps its screening fit (the very object); the refitted product matches a refit from scratch
+    shaped = _two_products()
+    screening = fit_lives(shaped, LifeModelSettings())
+    reused = fit_lives(shaped, LifeModelSettings(), left_out={"P": [A]}, unchanged=screening)
+    scratch = fit_lives(shaped, LifeModelSettings(), left_out={"P": [A]})
+    assert reused.products["Q"] is screening.products["Q"] and reused.modes["Q"] is screening.modes["Q"]
+    assert reused.products["P"] is not screening.products["P"]
+    assert list(reused.products) == list(scratch.products) and list(reused.modes) == list(scratch.modes)
+    pd.testing.assert_frame_equal(reused.table, scratch.table)
+    assert reused.product_warnings == scratch.product_warnings
+    assert reused.products["P"].data.n_returns == 43  # month B only (hand count)

@@ -127,7 +127,11 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         clock.run(
             "refit",
             lambda: keep_screening_where_refit_failed(
-                fit_lives(for_life, config.life_model, left_out=alerts.flagged_by_product, workers=workers), screening
+                fit_lives(
+                    for_life, config.life_model, left_out=alerts.flagged_by_product, workers=workers,
+                    unchanged=screening,
+                ),
+                screening,
             ),
             lambda f: f"{f.summary}, without the flagged build months",
         )

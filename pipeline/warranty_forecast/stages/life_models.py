@@ -64,19 +64,36 @@ def fit_lives(
     settings: LifeModelSettings,
     left_out: Mapping[str, Collection[object]] | None = None,
     workers: int = 1,
+    unchanged: FittedLives | None = None,
 ) -> FittedLives:
     """Fit every product and failure mode of the shaped data (never raises for one product's data).
 
     `left_out`: build months per product to leave out of that product's fits (the flagged build months,
     whose own lives the forecast models apart); the life_model table names them in build_months_left_out.
     `workers` > 1: the product fits and the failure-mode fits in that many processes (the same result).
+    `unchanged`: this function's result on the same shaped data and settings with nothing left out (the
+    screening fits): a product with no month left out has the same data, so its fits are taken from it
+    instead of being fitted again; only the products with left-out months are refitted (with thousands of
+    product lines and a few flagged months, the refit is then a few fits instead of all of them).
     """
     left_out = {product: set(months) for product, months in (left_out or {}).items() if months}
     fit_returns = _without(shaped.fit_returns, left_out)
     data_by_product = life_data_by_product(fit_returns, _without(shaped.fit_suspensions, left_out))
     by_product = shaped.cohort_summary.groupby("product")
-    products = fit_products(data_by_product, settings, by_product["max_warranty_months"].max().to_dict(), workers)
-    modes = fit_failure_modes(_without(shaped.returns_by_failure_mode, left_out), data_by_product, settings, workers)
+    warranty = by_product["max_warranty_months"].max().to_dict()
+    returns_by_mode = _without(shaped.returns_by_failure_mode, left_out)
+    if unchanged is None or unchanged.left_out:
+        products = fit_products(data_by_product, settings, warranty, workers)
+        modes = fit_failure_modes(returns_by_mode, data_by_product, settings, workers)
+    else:
+        again = {p for p in data_by_product if p in left_out or p not in unchanged.products}
+        refitted = fit_products({p: data_by_product[p] for p in again}, settings, warranty, workers)
+        products = {p: refitted[p] if p in again else unchanged.products[p] for p in sorted(data_by_product)}
+        refitted_modes = fit_failure_modes(
+            returns_by_mode[returns_by_mode["product"].isin(again)], data_by_product, settings, workers
+        )
+        kept_modes = {p: fits for p, fits in unchanged.modes.items() if p not in again}
+        modes = {p: refitted_modes[p] if p in again else kept_modes[p] for p in sorted({*refitted_modes, *kept_modes})}
     table = life_model_table(products, by_product["units"].sum().to_dict())
     table["build_months_left_out"] = [
         ", ".join(_month_text(month) for month in sorted(left_out.get(product, ()))) for product in table["product"]
