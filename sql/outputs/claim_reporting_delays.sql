@@ -9,7 +9,9 @@
 -- before its failure). observable_days = as_of - failure_date, the right-truncation bound: a failure on
 -- date x is seen only if its delay is at most as_of - x. It is capped at the longest delay_days of all
 -- products, which keeps the table small and loses nothing: a claim whose window exceeds every delay lies
--- in every reverse-time risk set it can lie in, per product or pooled over products.
+-- in every reverse-time risk set it can lie in, per product or pooled over products. The longest delay is
+-- a one-row aggregate joined to every row (not a window over all rows, which Spark computes in one
+-- partition).
 with counted_returns as (
     select
         product,
@@ -19,12 +21,18 @@ with counted_returns as (
     where is_return
 ),
 
+longest_delay as (
+    select max(delay_days) as longest_delay_days
+    from counted_returns
+),
+
 capped as (
     select
         product,
         delay_days,
-        least(observable_days, max(delay_days) over ()) as observable_days
+        least(observable_days, longest_delay_days) as observable_days
     from counted_returns
+    cross join longest_delay
 )
 
 select
