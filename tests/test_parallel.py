@@ -22,6 +22,28 @@ def test_results_come_back_in_the_order_given():
     assert parallel.map_products(_square_plus, arguments, workers=1) == [i * i + 1 for i in range(50)]
 
 
+def _sigterm_handler(_):
+    import signal
+
+    return signal.getsignal(signal.SIGTERM)
+
+
+def test_workers_end_on_sigterm_whatever_handler_the_run_installed():
+    # common practice, no source: a worker that inherited the run's stopping handler would only fail its
+    # item on SIGTERM and go on with the next; the workers restore the default action (end the process)
+    import signal
+
+    def stop(number, frame):  # the run's kind of handler: raise to stop
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, stop)
+    try:
+        handlers = parallel.map_products(_sigterm_handler, [(i,) for i in range(8)], workers=2, min_products=2)
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    assert handlers == [signal.SIG_DFL] * 8
+
+
 def test_worker_count():
     assert parallel.worker_count(3) == 3 and parallel.worker_count(0) >= 1
     with pytest.raises(ValueError, match="workers"):

@@ -12,6 +12,7 @@ from __future__ import annotations
 import copyreg
 import multiprocessing
 import os
+import signal
 import types
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any, Callable, Sequence, TypeVar
@@ -58,7 +59,9 @@ def map_products(
     if workers <= 1 or len(arguments) < min_products or "fork" not in multiprocessing.get_all_start_methods():
         return [function(*items) for items in arguments]
     chunk = max(1, len(arguments) // (workers * 4))
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork"))
+    pool = ProcessPoolExecutor(
+        max_workers=workers, mp_context=multiprocessing.get_context("fork"), initializer=_stop_on_signals
+    )
     try:
         results = list(pool.map(_call, [(function, items) for items in arguments], chunksize=chunk))
     except BaseException:
@@ -66,6 +69,14 @@ def map_products(
         raise
     pool.shutdown(wait=True)
     return results
+
+
+def _stop_on_signals() -> None:
+    """A worker ends at once on SIGINT / SIGTERM. Forked, it inherits the run's handler, which raises an
+    exception to stop the run: in a worker that exception only fails the item at hand and the worker goes
+    on with the next, so a stopped run would wait for the whole stage (seen on the 2,000-line bench)."""
+    for number in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(number, signal.SIG_DFL)
 
 
 def _call(job: tuple[Callable[..., Result], tuple[Any, ...]]) -> Result:
