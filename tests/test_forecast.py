@@ -115,3 +115,33 @@ def test_a_flagged_build_month_is_forecast_with_its_own_model_and_the_others_wit
     assert by_month[february] == pytest.approx(1000 * -np.expm1(-(153 / DAYS - 2.5) / 10), rel=1e-12)
     # a month model for a product without a model forecasts nothing (the product is reported as such)
     assert expected_future_returns(rows, {}, {("P", february): own}).empty
+
+
+@pytest.mark.parametrize(
+    "start",
+    [dt.date(2025, 1, 1), dt.date(2025, 2, 1), dt.date(2024, 12, 31), dt.date(2025, 1, 31), dt.date(2026, 2, 1)],
+)
+def test_no_expected_return_falls_in_a_calendar_month_already_over(start):
+    # common practice, no source: a forecast of returns still to come holds nothing before the day after the
+    # as-of date. The demo (as of 2026-11-30) had 0.42 returns in 2026-11 (2.36 when issue 12 was filed):
+    # a unit started 2025-01-01 and observed through 2026-11-30 (699 days in service) has its next month in
+    # service (ages 699-701 days, midpoint 700 days = 2026-12-02) placed by adding 22.998 *calendar* months
+    # to January 2025, which lands in November 2026 (calendar months between are shorter than 30.4375 days).
+    as_of = dt.date(2026, 11, 30)
+    days_in_service = (as_of - start).days + 1  # observed through the as-of date (lifecore.data.month_interval_ends)
+    rows = suspension_rows(
+        warranty_start_date=start, warranty_months=24, observed_age_months=days_in_service / DAYS
+    )
+    detail = expected_future_returns(rows, {"P": Weibull(1.5, 40.0)})
+    assert len(detail) and (detail["expected_returns"] > 0).all()
+    months = [m.date() for m in pd.to_datetime(detail["month"])]
+    assert min(months) == dt.date(2026, 12, 1)
+    # each piece sits in the calendar month of the day its age interval's midpoint is reached (hand rule:
+    # start + floor(midpoint in days) days; day d after the start is age [d, d + 1) days)
+    from warranty_forecast.lifecore.data import month_interval_ends
+
+    lower, upper = month_interval_ends(detail["months_in_service"].to_numpy())
+    lower = np.maximum(lower, days_in_service / DAYS)
+    for lo, hi, month in zip(lower, upper, months):
+        day = start + dt.timedelta(days=int(np.floor((lo + hi) / 2 * DAYS)))
+        assert month == day.replace(day=1)

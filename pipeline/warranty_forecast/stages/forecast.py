@@ -10,8 +10,10 @@ with (b_{k-1}, b_k] = `lifecore.data.month_interval_ends(k)`, month k's ages on 
 i.e. the conditional probability of failing in (lo, hi] given survival to `a` (the first interval is
 the rest of the current month in service). Computed in log space as
     s * exp(logR(lo) - logR(a)) * (-expm1(logR(hi) - logR(lo))).
-Each expected return is placed in the calendar month that holds the midpoint of its age interval,
-counted from the row's warranty start date (months of 365.25/12 days).
+Each expected return is placed in the calendar month of the day on which the midpoint of its age
+interval is reached: the warranty start date plus floor(midpoint * 365.25/12) days (day d after the start
+holds the ages [d, d + 1) days). A unit observed through the as-of date has age (days since start + 1) / L,
+so every piece falls on the day after the as-of date or later.
 
 Pure functions over DataFrames; the life model comes in as anything with `log_survival(t)`.
 """
@@ -24,7 +26,7 @@ from typing import Mapping, Protocol
 import numpy as np
 import pandas as pd
 
-from warranty_forecast.lifecore.data import month_interval_ends
+from warranty_forecast.lifecore.data import DAYS_PER_MONTH, month_interval_ends
 
 FORECAST_DETAIL_COLUMNS = (
     "product",
@@ -125,15 +127,13 @@ def _product_forecast(rows: pd.DataFrame, model: LifeDistribution) -> pd.DataFra
     row_index = intervals.row_index
     expected = _expected_in_intervals(intervals, model)
 
-    start = pd.to_datetime(rows["warranty_start_date"].to_numpy()[row_index])
-    start_coordinate = (
-        start.year.to_numpy() * 12
-        + (start.month.to_numpy() - 1)
-        + (start.day.to_numpy() - 1) / start.days_in_month.to_numpy()
-    )
-    month_index = np.floor(start_coordinate + (intervals.lower + intervals.upper) / 2.0).astype(np.int64)
-    # datetime64[M] counts months from 1970-01
-    month = (month_index - 1970 * 12).astype("datetime64[M]").astype("datetime64[s]")
+    # the calendar day the interval's midpoint age is reached: day d after the warranty start holds the
+    # ages [d, d + 1) days, so start + floor(midpoint * L) days. Adding the age in months to a calendar-month
+    # coordinate instead put the month after the as-of date into the as-of month (calendar months are not
+    # L days long: 22.998 months from 2025-01-01 is 2026-12-02, but 22.998 calendar months is 2026-11).
+    start = pd.to_datetime(rows["warranty_start_date"].to_numpy()[row_index]).to_numpy().astype("datetime64[D]")
+    midpoint_days = np.floor((intervals.lower + intervals.upper) / 2.0 * DAYS_PER_MONTH).astype(np.int64)
+    month = (start + midpoint_days).astype("datetime64[M]").astype("datetime64[s]")
 
     return pd.DataFrame(
         {
