@@ -13,6 +13,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.text import Text
+
 from warranty_forecast.outputs import charts
 from warranty_forecast.lifecore.data import LifeData
 from warranty_forecast.lifecore.families import WEIBULL
@@ -31,28 +34,166 @@ def matrix():
     return frame
 
 
-def test_probability_plot_draws_points_line_and_band():
-    table = life_table(matrix())
+def drawn(figure):
+    """The figure laid out as it is saved (Agg), so tick labels and text extents are final."""
+    canvas = FigureCanvasAgg(figure)
+    canvas.draw()
+    return canvas.get_renderer()
+
+
+def small_fit():
     data = LifeData.from_monthly_returns([1, 2, 3, 4, 5], [12, 13, 12, 10, 6], [5.0], [4900.0], day_grid=False)
-    fit = Fitter(WEIBULL).fit(data)
-    figure = charts.weibull_probability_plot(table, {"P": fit, "Q": None})
+    return Fitter(WEIBULL).fit(data)
+
+
+def test_percent_labels_keep_their_digits_and_their_percent_sign():
+    # issue 12: "10.00%".rstrip("0") stripped nothing (the "%" came first) and printed "10.00%", "0.10%"
+    # (common practice, no source: a percent with only the digits it needs)
+    assert [charts.percent_label(f) for f in (1e-4, 1e-3, 0.01, 0.05, 0.1, 0.632, 0.99)] == [
+        "0.01%", "0.1%", "1%", "5%", "10%", "63.2%", "99%",
+    ]
+    with pytest.raises(ValueError, match="fraction"):
+        charts.percent_label(float("nan"))
+
+
+def test_probability_plot_axes_line_band_warranty_end_and_guide():
+    table = life_table(matrix())
+    figure = charts.weibull_probability_plot(table, {"P": small_fit(), "Q": None}, warranty_months={"P": 6, "Q": 6})
+    renderer = drawn(figure)
     panel_p = next(a for a in figure.axes if a.get_title() == "P")
     panel_q = next(a for a in figure.axes if a.get_title() == "Q")
-    assert len(panel_p.lines) >= 2 and len(panel_p.collections) >= 1
-    assert any("Weibull shape" in t.get_text() for t in panel_p.get_legend().get_texts())
+    # bottom axis in months, as a reader counts them (no 10^0, 10^1)
+    labels = [t.get_text() for t in panel_p.get_xticklabels() if t.get_text()]
+    assert labels and set(labels) <= {"1", "2", "3", "6"} and "1" in labels
+    # the line stops at the warranty's end on the day grid (month 6 ends at 183 days: hand arithmetic)
+    fitted = next(line for line in panel_p.lines if "Weibull shape" in str(line.get_label()))
+    assert fitted.get_xdata().max() == pytest.approx(183 / (365.25 / 12))
+    end = next(line for line in panel_p.lines if line.get_gid() == "warranty-end")
+    assert end.get_xdata()[0] == pytest.approx(183 / (365.25 / 12)) and "warranty end (6 months)" == end.get_label()
+    # the band is drawn to be seen (and printable): alpha >= 0.25 plus its two edge lines
+    band = next(c for c in panel_p.collections if "Wald band" in str(c.get_label()))
+    assert band.get_alpha() >= 0.25
+    # the right axis: percent labels that do not overlap one another
+    secondary = panel_p.child_axes[0]
+    ticks = [t for t in secondary.get_yticklabels() if t.get_text()]
+    assert ticks and all(re.fullmatch(r"\d+(\.\d*[1-9])?%", t.get_text()) for t in ticks)
+    boxes = sorted((t.get_window_extent(renderer) for t in ticks), key=lambda b: b.y0)
+    assert all(lower.y1 <= upper.y0 for lower, upper in zip(boxes, boxes[1:]))
+    # the reading guide's words on the chart
+    assert "bending down away from it" in figure._suptitle.get_text().replace("\n", " ")
     assert not any("Weibull shape" in t.get_text() for t in panel_q.get_legend().get_texts())
 
 
-def test_expected_returns_chart_stacks_products_and_handles_empty():
-    forecast = pd.DataFrame(
-        {"product": ["P", "Q", "P"], "build_month": [dt.date(2024, 1, 1)] * 3,
-         "month": [dt.date(2024, 5, 1), dt.date(2024, 5, 1), dt.date(2024, 6, 1)], "expected_returns": [1.0, 2.0, 3.0]}
-    )
-    figure = charts.expected_returns_by_month(forecast)
-    heights = sorted(round(p.get_height(), 6) for p in figure.axes[0].patches)
-    assert heights == [0.0, 1.0, 2.0, 3.0]
+def test_fraction_ticks_are_thinned_to_a_readable_gap():
+    # a span of 10 on the log(-log) scale: ticks at least 7.5% of it (0.75) apart (hand rule, no source)
+    ticks = charts.fraction_ticks(-12.0, -2.0)
+    positions = np.log(-np.log1p(-np.array(ticks)))
+    assert len(ticks) >= 3 and np.all(np.diff(positions) >= 0.075 * 10.0 - 1e-12)
+    assert charts.fraction_ticks(1.0, 1.0) == []
+
+
+AS_OF = dt.date(2024, 11, 30)
+
+
+def forecast_frames():
+    months = [dt.date(2024, 12, 1), dt.date(2025, 1, 1), dt.date(2025, 2, 1)]
+    forecast = pd.DataFrame({
+        "product": ["P"] * 3 + ["Q"] * 3, "build_month": [dt.date(2024, 1, 1)] * 6, "month": months * 2,
+        "expected_returns": [10.0, 8.0, 6.0, 3.0, 2.0, 1.0],
+        "expected_claims": [12.0, 8.0, 6.0, 3.0, 2.0, 1.0],  # P: 2 claims of earlier failures in December
+    })
+    intervals = pd.DataFrame({"product": ["P"] * 3, "month": months, "expected_returns": [10.0, 8.0, 6.0],
+                              "returns_lower": [5, 4, 2], "returns_upper": [15, 12, 10]})
+    returns = pd.DataFrame({"product": ["P", "P", "Q", "P"], "build_month": [dt.date(2024, 1, 1)] * 4,
+                            "claim_month": [dt.date(2024, 10, 1), dt.date(2024, 11, 1), dt.date(2024, 11, 1),
+                                            dt.date(2023, 1, 1)],
+                            "returns": [7, 9, 4, 100]})
+    costs = forecast.assign(expected_cost=forecast["expected_claims"] * 100.0)
+    return forecast, intervals, returns, costs
+
+
+def test_calendar_month_chart_as_of_line_returns_to_date_band_and_cost():
+    forecast, intervals, returns, costs = forecast_frames()
+    figure = charts.expected_returns_by_month(forecast, as_of_date=AS_OF, returns_to_date=returns,
+                                              intervals=intervals, costs=costs, currency="EUR")
+    drawn(figure)
+    counts, cost = figure.axes[0], figure.axes[1]
+    december = 2024 * 12 + 11  # month number of 2024-12
+    # the as-of line at the end of 2024-11-30, the start of December, on both panels
+    assert charts.as_of_line_x(AS_OF) == december
+    assert charts.as_of_line_x(dt.date(2024, 2, 15)) == pytest.approx(2024 * 12 + 1 + 15 / 29)
+    for axis in (counts, cost):
+        line = next(l for l in axis.lines if l.get_gid() == "as-of")
+        assert line.get_xdata()[0] == december
+    # the forecast (claims, each month at its middle) right of the line, returns counted left of it
+    expected = next(l for l in counts.lines if l.get_gid() == "forecast:P")
+    assert list(expected.get_xdata()) == [december + 0.5, december + 1.5, december + 2.5]
+    assert list(expected.get_ydata()) == [12.0, 8.0, 6.0]
+    counted = next(l for l in counts.lines if l.get_gid() == "returns:P")
+    assert list(counted.get_xdata()) == [december - 1.5, december - 0.5]  # 2024-10 and -11; 2023-01 too old
+    assert list(counted.get_ydata()) == [7.0, 9.0]
+    # the band: the first failures' interval plus the 2 claims of earlier failures at their expected value
+    band = next(c for c in counts.collections if c.get_gid() == "band:P")
+    vertices = band.get_paths()[0].vertices
+    assert vertices[:, 1].min() == pytest.approx(2.0) and vertices[:, 1].max() == pytest.approx(17.0)
+    assert not any(c.get_gid() == "band:Q" for c in counts.collections)  # no interval rows for Q
+    # the cost view: stacked bars per product, totals in the title with the currency
+    heights = sorted(round(p.get_height(), 6) for p in cost.patches)
+    assert heights == [100.0, 200.0, 300.0, 600.0, 800.0, 1200.0]
+    assert "3,200 (EUR) still to pay" in cost.get_title()
+    assert counts.get_title().startswith("32 claims still expected")
+    labels = [t.get_text() for t in cost.get_xticklabels() if t.get_text()]
+    assert labels[0] == "2024-10" and labels[-1] == "2025-02" and all(YYYY_MM.match(t) for t in labels)
+    assert any(t.get_text() == "as of 2024-11-30" for t in counts.get_legend().get_texts())
+
+
+def test_calendar_month_chart_alone_and_empty():
+    forecast, *_ = forecast_frames()
+    figure = charts.expected_returns_by_month(forecast.drop(columns="expected_claims"))
+    assert len(figure.axes) == 1 and not any(l.get_gid() == "as-of" for l in figure.axes[0].lines)
+    assert figure.axes[0].get_title().startswith("30 returns still expected")
     empty = charts.expected_returns_by_month(forecast.iloc[0:0])
     assert "no forecast" in empty.axes[0].texts[0].get_text()
+
+
+def test_series_differ_in_line_style_and_marker_not_only_colour():
+    # a chart printed in grey: the Okabe & Ito colours blue, vermillion and bluish green are all mid-grey
+    # (Rec. 709 luma of their sRGB values 0.37, 0.44, 0.48: hand arithmetic), so the series also differ in
+    # line style and marker. The palette is Okabe & Ito (2008), Color Universal Design (from memory).
+    assert charts.PALETTE[:3] == ("#0072B2", "#D55E00", "#009E73")
+    assert set(charts.OKABE_ITO.values()) == {"#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2",
+                                              "#D55E00", "#CC79A7"}
+    styles = {(str(charts.series_style(i)["linestyle"]), charts.series_style(i)["marker"]) for i in range(8)}
+    assert len(styles) == 8
+
+
+def test_footer_carries_as_of_date_and_run_id_once():
+    forecast, *_ = forecast_frames()
+    figure = charts.expected_returns_by_month(forecast)
+    height = figure.get_figheight()
+    charts.with_footer(figure, "2024-11-30-abc123", AS_OF)
+    charts.with_footer(figure, "2024-11-30-abc123", AS_OF)
+    footers = [t for t in figure.texts if t.get_gid() == charts.FOOTER_GID]
+    assert [t.get_text() for t in footers] == ["as of 2024-11-30, run 2024-11-30-abc123"]
+    assert figure.get_figheight() == pytest.approx(height + 0.28)
+    renderer = drawn(figure)
+    footer_box = footers[0].get_window_extent(renderer)
+    assert footer_box.y0 >= 0 and all(  # below every axis and its labels
+        footer_box.y1 <= axis.get_tightbbox(renderer).y0 + 1 for axis in figure.axes
+    )
+
+
+def test_every_text_has_one_type_size():
+    forecast, intervals, returns, costs = forecast_frames()
+    figures = [
+        charts.expected_returns_by_month(forecast, as_of_date=AS_OF, returns_to_date=returns, intervals=intervals,
+                                         costs=costs),
+        charts.weibull_probability_plot(life_table(matrix()), {"P": small_fit(), "Q": None}),
+    ]
+    for figure in figures:
+        drawn(figure)
+        sizes = {t.get_fontsize() for t in figure.findobj(Text) if t.get_text() and t.get_visible()}
+        assert sizes == {charts.TYPE_SIZE}
 
 
 # -- the build-month charts (issue 8) -----------------------------------------------------------------
@@ -289,13 +430,13 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
             line.get_label() for line in panel.lines if line.get_label().startswith("_")
         }
         flagged_line = lines["2024-02 (flagged)"]
-        assert flagged_line.get_linewidth() > 2 and flagged_line.get_color() != "#9a9a9a"
+        assert flagged_line.get_linewidth() > 2 and flagged_line.get_color() != charts.MUTED
         # Feb: 1,000 units to 94 days, 20 + 10 returns; month 4 has 2 days, 66 unit-months (thin), so the line
         # ends at 3 (hand computation: returns x 1,000 / unit-months, months of 31, 30 and 31 days)
         assert flagged_line.get_xdata().tolist() == [0, 1, 2, 3]
         month_1, month_2 = 20 * 1000 / (1000 * 31 / L), 10 * 1000 / (980 * 30 / L)
         assert flagged_line.get_ydata() == pytest.approx([0.0, month_1, month_1 + month_2, month_1 + month_2])
-        greys = [line for line in panel.lines if line.get_color() == "#9a9a9a" and len(line.get_xdata())]
+        greys = [line for line in panel.lines if line.get_color() == charts.MUTED and len(line.get_xdata())]
         january = next(line for line in greys if len(line.get_xdata()) == 4)
         jan_1, jan_2 = 2 * 1000 / (1000 * 31 / L), 1 * 1000 / (998 * 30 / L)
         assert january.get_ydata() == pytest.approx([0.0, jan_1, jan_1 + jan_2, jan_1 + jan_2])

@@ -9,24 +9,122 @@ service, rates, and expected returns from a baseline's `cdf`) in small pure func
 
 from __future__ import annotations
 
+import calendar
+import datetime as dt
 import math
 from typing import Iterable, Mapping, Protocol
 
 import numpy as np
 import pandas as pd
-from matplotlib import colormaps
 from matplotlib.axes import Axes
 from matplotlib.collections import PatchCollection
 from matplotlib.colors import LogNorm, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+from matplotlib.ticker import FixedFormatter, FixedLocator, FuncFormatter, LogLocator, NullFormatter
 
 from warranty_forecast.lifecore.data import month_interval_ends
 from warranty_forecast.lifecore.result import FitResult
 from warranty_forecast.outputs.safe_text import chart_text
 
 _PER_THOUSAND = 1000.0
+
+# -- the look shared by every chart ---------------------------------------------------------------------
+
+OKABE_ITO = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish_purple": "#CC79A7",
+}
+"""The eight colours of Okabe & Ito (2008), "Color Universal Design (CUD): how to make figures and
+presentations that are friendly to colorblind people" (hex values from that page, from memory): told
+apart by readers with any of the common colour-vision deficiencies."""
+
+PALETTE = tuple(OKABE_ITO[name] for name in (
+    "blue", "vermillion", "bluish_green", "orange", "reddish_purple", "sky_blue", "black", "yellow",
+))
+"""Series colours in order. Blue, vermillion and bluish green first: the three differ most in lightness
+too, so a chart printed in grey still separates them; every series also gets its own line style or
+marker (LINE_STYLES, MARKERS), which carries the difference where grey does not."""
+
+LINE_STYLES = ("-", "--", ":", "-.", (0, (5, 1, 1, 1, 1, 1)), (0, (1, 3)), (0, (8, 2)), (0, (3, 1, 1, 1)))
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+HATCHES = ("", "//", "..", "xx", "\\\\", "--", "++", "oo")
+
+EMPHASIS = OKABE_ITO["vermillion"]  # a fit, a flagged month, what the reader should look at
+DATA = OKABE_ITO["blue"]  # observed points
+MUTED = "#8c8c8c"  # context: other build months, reference lines
+TYPE_SIZE = 9.0
+"""One type size (points) for every text of every chart: titles differ by weight, not size."""
+
+FOOTER_GID = "run-footer"
+
+
+def currency_of(reserve_by_product: pd.DataFrame) -> str:
+    """The reserve's currency code for a chart's axis label ('' when the table has none or several)."""
+    if not len(reserve_by_product) or "currency" not in reserve_by_product:
+        return ""
+    codes = reserve_by_product["currency"].dropna().astype(str).unique()
+    return str(codes[0]) if len(codes) == 1 else ""
+
+
+def series_style(i: int) -> dict[str, object]:
+    """Colour, line style and marker of the i-th series (0-based; they repeat after eight)."""
+    return {"color": PALETTE[i % len(PALETTE)], "linestyle": LINE_STYLES[i % len(LINE_STYLES)],
+            "marker": MARKERS[i % len(MARKERS)]}
+
+
+def _finish(figure: Figure) -> Figure:
+    """Every text of the figure at TYPE_SIZE (titles bold), tick labels included (also of secondary and
+    twin axes); then the layout. Call last in each chart function."""
+    for text in figure.findobj(lambda artist: hasattr(artist, "set_fontsize") and hasattr(artist, "get_text")):
+        text.set_fontsize(TYPE_SIZE)
+    axes = list(figure.axes)
+    axes += [child for axis in figure.axes for child in getattr(axis, "child_axes", [])]
+    for axis in axes:
+        axis.tick_params(labelsize=TYPE_SIZE)
+        axis.title.set_fontweight("bold")
+        legend = axis.get_legend()
+        if legend is not None:
+            for text in legend.get_texts():
+                text.set_fontsize(TYPE_SIZE)
+    if figure._suptitle is not None:
+        figure._suptitle.set_fontweight("bold")
+    figure.tight_layout()
+    return figure
+
+
+def with_footer(figure: Figure, run_id: str, as_of_date: object) -> Figure:
+    """`figure` with a footer line "as of YYYY-MM-DD, run <run id>" at its bottom left, so a printed or
+    pasted chart keeps where it came from; the figure grows by the footer's height (the axes keep their
+    size). Drawn once: a second call replaces the text. Returns the same figure."""
+    as_of = as_of_date.isoformat() if hasattr(as_of_date, "isoformat") else str(as_of_date)
+    as_of = as_of[:10]
+    text = f"as of {as_of}, run {run_id}"
+    for old in [t for t in figure.texts if t.get_gid() == FOOTER_GID]:
+        old.set_text(chart_text(text, 120))
+        return figure
+    height = figure.get_figheight()
+    extra = 0.28  # inches
+    for axis in figure.axes:
+        box = axis.get_position()
+        axis.set_position([box.x0, (box.y0 * height + extra) / (height + extra), box.width,
+                           box.height * height / (height + extra)])
+    for text_artist in figure.texts:
+        x, y = text_artist.get_position()
+        text_artist.set_position((x, (y * height + extra) / (height + extra)))
+    if figure._suptitle is not None:
+        x, y = figure._suptitle.get_position()
+        figure._suptitle.set_position((x, (y * height + extra) / (height + extra)))
+    figure.set_figheight(height + extra)
+    figure.text(0.01, 0.08 / (height + extra), chart_text(text, 120), ha="left", va="bottom",
+                fontsize=TYPE_SIZE, color="#4d4d4d", gid=FOOTER_GID)
+    return figure
 
 
 def products_to_draw(
@@ -315,8 +413,7 @@ def return_rate_heatmap(
         + (f" (observed / expected: or under {MIN_EXPECTED_RETURNS:g} expected returns)" if with_ratio else "")
         + "; blank: not yet observed at that age"
     )
-    figure.tight_layout()
-    return figure
+    return _finish(figure)
 
 
 def _cell_grid(rows: pd.DataFrame) -> dict[str, np.ndarray]:
@@ -358,7 +455,7 @@ def _dress_cell_axes(axis: Axes, grid: dict[str, np.ndarray], thin: np.ndarray) 
     axis.set_xticks([c - 1 for c in columns], [str(c) for c in columns])
     first = int(grid["first_month"])
     numbers, labels = _month_ticks(first, first + count - 1)
-    axis.set_yticks([n - first for n in numbers], labels, fontsize=7)
+    axis.set_yticks([n - first for n in numbers], labels)
     axis.set_xlim(-0.5, width - 0.5)
     axis.set_ylim(count - 0.5, -0.5)
 
@@ -391,8 +488,7 @@ def observed_to_expected_by_build_month(alerts: BuildMonthAlertsLike | pd.DataFr
             axis.set_title(f"{chart_text(product)}: {words}")
             _draw_ratio_view(axis, months, rows, view, flagged)
     figure.suptitle("Observed / expected returns by build month, against each product's baseline (exact intervals)")
-    figure.tight_layout()
-    return figure
+    return _finish(figure)
 
 
 def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: str, flagged: np.ndarray) -> None:
@@ -414,8 +510,8 @@ def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: s
     ceiling = max(float(highs.max()) * 2.5, 2.0)
     style = {"markersize": 3.5, "linestyle": "none", "elinewidth": 0.8}
     for where, kwargs in (
-        (positive & ~flagged, {"fmt": "o", "color": "#1b4965", "ecolor": "#9fb7c9", "label": "build month (exact interval)"}),
-        (positive & flagged, {"fmt": "D", "color": "#c0392b", "ecolor": "#c0392b", "markersize": 5.5,
+        (positive & ~flagged, {"fmt": "o", "color": DATA, "ecolor": OKABE_ITO["sky_blue"], "label": "build month (exact interval)"}),
+        (positive & flagged, {"fmt": "D", "color": EMPHASIS, "ecolor": EMPHASIS, "markersize": 5.5,
                               "label": "flagged build month"}),
     ):
         if where.any():
@@ -425,13 +521,13 @@ def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: s
     if zero.any():
         y = np.full(zero.sum(), floor)
         axis.errorbar(months[zero], y, yerr=np.vstack([np.zeros_like(y), upper[zero] - y]), fmt="v",
-                      markerfacecolor="white", color="#1b4965", ecolor="#9fb7c9",
+                      markerfacecolor="white", color=DATA, ecolor=OKABE_ITO["sky_blue"],
                       **{**style, "label": "no returns (drawn at the bottom)"})
     for month, value in zip(months[flagged & drawn], np.where(ratio > 0, ratio, floor)[flagged & drawn]):
         axis.annotate(_month_label(int(month)), (month, value), xytext=(5, 0), textcoords="offset points",
-                      ha="left", va="center", fontsize=7.5, color="#c0392b",
+                      ha="left", va="center", color=EMPHASIS,
                       bbox={"boxstyle": "round,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.8})
-    axis.axhline(1.0, color="#4d4d4d", linestyle="--", linewidth=0.9, label="as expected (1)")
+    axis.axhline(1.0, color=OKABE_ITO["black"], linestyle="--", linewidth=0.9, label="as expected (1)")
     axis.set_yscale("log")
     axis.set_ylim(floor / 1.25, ceiling)
     axis.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
@@ -440,10 +536,10 @@ def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: s
     axis.set_ylabel("observed / expected returns (log scale)")
     axis.set_xlabel("build month")
     numbers, labels = _month_ticks(int(months.min()), int(months.max()))
-    axis.set_xticks(numbers, labels, rotation=90, fontsize=7)
+    axis.set_xticks(numbers, labels, rotation=90)
     axis.set_xlim(months.min() - 1, months.max() + 1)
     axis.grid(True, axis="y", which="major", alpha=0.3)
-    axis.legend(fontsize=7, loc="upper left")
+    axis.legend(loc="upper left")
 
 
 def cumulative_returns_per_unit(
@@ -472,7 +568,6 @@ def cumulative_returns_per_unit(
     if not products:
         return _message_figure("no units in service: no cumulative returns to show")
     figure, axes = _grid(len(products), width=5.6, height=4.6)
-    palette = [colormaps["tab10"](i) for i in (3, 0, 1, 2, 4, 5, 6, 8, 9)]  # tab10 without its grey
     for axis, product in zip(axes.flat, products):
         rows = cells[cells["product"] == product]
         others, lines = 0, 0
@@ -482,17 +577,17 @@ def cumulative_returns_per_unit(
                 continue
             key = (str(product), int(_month_numbers([build_month])[0]))
             if key in picked:
-                axis.plot(months, cumulative, color=palette[lines % len(palette)], linewidth=2.4, zorder=3,
+                axis.plot(months, cumulative, **{**series_style(lines + 1), "marker": None}, linewidth=2.4, zorder=3,
                           label=f"{_month_label(key[1])} (flagged)")
                 lines += 1
             else:
-                axis.plot(months, cumulative, color="#9a9a9a", linewidth=0.7, alpha=0.7, zorder=2)
+                axis.plot(months, cumulative, color=MUTED, linewidth=0.7, alpha=0.7, zorder=2)
                 others += 1
         if not lines and not others:
             axis.text(0.5, 0.5, "no build month with enough exposure", ha="center", va="center",
                       transform=axis.transAxes)
         if others:
-            axis.plot([], [], color="#9a9a9a", linewidth=0.7, label=f"other build months ({others})")
+            axis.plot([], [], color=MUTED, linewidth=0.7, label=f"other build months ({others})")
         axis.set_title(chart_text(product))
         axis.set_xlabel("months in service")
         axis.set_ylabel("cumulative returns per 1,000 units")
@@ -500,10 +595,9 @@ def cumulative_returns_per_unit(
         axis.set_ylim(bottom=0)
         axis.grid(True, alpha=0.3)
         if lines or others:
-            axis.legend(fontsize=7, loc="upper left")
+            axis.legend(loc="upper left")
     figure.suptitle("Cumulative returns per 1,000 units by build month (cumulative hazard on unit-months observed)")
-    figure.tight_layout()
-    return figure
+    return _finish(figure)
 
 
 def _cumulative_hazard(month_rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
@@ -595,64 +689,127 @@ def _message_figure(text: str) -> Figure:
     axis = figure.subplots()
     axis.text(0.5, 0.5, text, ha="center", va="center")
     axis.set_axis_off()
-    return figure
+    return _finish(figure)
+
+
+PROBABILITY_PLOT_GUIDE = (
+    "How to read: dots along the line, the Weibull describes the returns. Dots bending down away from it"
+    " (flattening): a subpopulation that fails early and is used up (a bad batch, a mix of failure modes);"
+    " a kink or an S, two mechanisms; the first months far above it, infant failures. Judge by the dots"
+    " with short bars."
+)
+"""The reading guide's words (README, 'Life table and probability plot'), printed under the title."""
+
+AGE_TICKS_MONTHS = (1, 2, 3, 6, 12, 18, 24, 36, 48, 60, 84, 120, 180, 240)
+"""Months in service labelled on a probability plot's log axis (those inside the axis)."""
+
+FRACTION_TICKS = (1e-5, 1e-4, 2e-4, 5e-4, 1e-3, 2e-3, 5e-3, 0.01, 0.02, 0.05, 0.1, 0.2, 0.3, 0.5, 0.632, 0.8, 0.9,
+                  0.99)
+"""Fractions failed labelled on the right axis (those inside the axis, thinned so no two labels touch)."""
+
+_MIN_LABEL_GAP = 0.075  # of the axis height: about two lines of TYPE_SIZE on a 4-inch panel
+
+
+def percent_label(fraction: float) -> str:
+    """A fraction as a percent with only the digits it needs: 0.001 -> '0.1%', 0.1 -> '10%', 0.632 -> '63.2%'."""
+    if not math.isfinite(fraction):
+        raise ValueError(f"fraction must be finite, got {fraction!r}")
+    return f"{100.0 * fraction:.4g}%"
 
 
 def weibull_probability_plot(
     life_table: pd.DataFrame,
     fits: Mapping[str, FitResult | None],
     alternatives: Mapping[str, LifeCurve | None] | None = None,
+    warranty_months: Mapping[str, float] | None = None,
 ) -> Figure:
     """Life-table fraction failed (with Greenwood bounds) and the fitted Weibull line with its Wald band.
 
-    Axes: log(age in months: the end of each month in service, `age_months`) against log(-log(1 - F)); a
-    Weibull is a straight line of slope shape.
-    `alternatives` (e.g. the lognormal fits) are drawn dashed for comparison.
+    Axes: months in service (the end of each month in service, `age_months`) on a log scale, labelled
+    1, 2, 3, 6, 12, 24 ... (AGE_TICKS_MONTHS), against log(-log(1 - F)); the right axis gives F as a
+    percent (FRACTION_TICKS). A Weibull is a straight line of slope shape. The line and its band stop at
+    the end of the warranty's cover (`warranty_months`: product -> W months, the longest warranty of the
+    product; its end on the day grid, `month_interval_ends(W)`), marked by a dotted vertical line; without
+    it they stop at the oldest age in the life table. `alternatives` (e.g. the lognormal fits) are drawn
+    dashed. The reading guide (PROBABILITY_PLOT_GUIDE) is printed under the title.
     """
     alternatives = alternatives or {}
+    warranty_months = warranty_months or {}
     products = sorted(life_table["product"].unique())
-    figure, axes = _grid(len(products))
+    if not products:
+        return _message_figure("no life table: no product has units in service")
+    figure, axes = _grid(len(products), width=5.4, height=4.6)
     for axis, product in zip(axes.flat, products):
-        rows = life_table[(life_table["product"] == product) & (life_table["fraction_failed"] > 0)]
-        months = (rows["age_months"] if "age_months" in rows else rows["months_in_service"]).to_numpy(dtype=float)
-        axis.errorbar(
-            months,
-            _weibull_scale(rows["fraction_failed"]),
-            yerr=np.vstack(
-                [
-                    _weibull_scale(rows["fraction_failed"]) - _weibull_scale(rows["fraction_failed_lower"]),
-                    _weibull_scale(rows["fraction_failed_upper"]) - _weibull_scale(rows["fraction_failed"]),
-                ]
-            ),
-            fmt="o",
-            markersize=3.5,
-            color="#1b4965",
-            ecolor="#9fb7c9",
-            label="life table (Greenwood bounds)",
-        )
-        fit = fits.get(product)
-        if fit is not None and len(months):
-            grid = np.geomspace(max(months.min() * 0.5, 0.25), months.max() * 1.5, 120)
-            lower, upper = fit.bounds("cdf", t=grid)
-            axis.plot(grid, _weibull_scale(fit.cdf(grid)), color="#c0392b", label=(
-                f"Weibull shape {fit.shape:.3g}, scale {fit.scale:.4g} mo"
-            ))
-            axis.fill_between(grid, _weibull_scale(lower), _weibull_scale(upper), color="#c0392b", alpha=0.15,
-                              label=f"{fit.confidence_level:.0%} Wald band")
-            alternative = alternatives.get(product)
-            if alternative is not None:
-                axis.plot(grid, _weibull_scale(alternative.cdf(grid)), color="#5c677d", linestyle="--",
-                          linewidth=1.0, label="lognormal alternative")
-        axis.set_xscale("log")
-        axis.set_title(chart_text(product))
-        axis.set_xlabel("months in service (log scale)")
-        axis.set_ylabel("log(-log(1 - fraction failed))")
-        _fraction_ticks(axis)
-        axis.grid(True, which="both", alpha=0.3)
-        axis.legend(fontsize=7, loc="upper left")
-    figure.suptitle("Weibull probability plot")
-    figure.tight_layout()
-    return figure
+        _probability_panel(axis, product, life_table, fits.get(product), alternatives.get(product),
+                           warranty_months.get(product))
+    figure.suptitle(
+        "Weibull probability plot: dots on the straight line mean the fitted Weibull describes the returns\n"
+        + _wrapped(PROBABILITY_PLOT_GUIDE, 40 * min(len(products), 3) + 20)
+    )
+    return _finish(figure)
+
+
+def _wrapped(text: str, width: int) -> str:
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width=width))
+
+
+def _probability_panel(axis: Axes, product: str, life_table: pd.DataFrame, fit: FitResult | None,
+                       alternative: LifeCurve | None, warranty: float | None) -> None:
+    rows = life_table[(life_table["product"] == product) & (life_table["fraction_failed"] > 0)]
+    months = (rows["age_months"] if "age_months" in rows else rows["months_in_service"]).to_numpy(dtype=float)
+    y = _weibull_scale(rows["fraction_failed"])
+    low = _weibull_scale(rows["fraction_failed_lower"])
+    high = _weibull_scale(rows["fraction_failed_upper"])
+    axis.errorbar(months, y, yerr=np.vstack([y - low, high - y]), fmt="o", markersize=3.5, color=DATA,
+                  ecolor=OKABE_ITO["sky_blue"], elinewidth=1.0, label="life table (Greenwood bounds)", zorder=3)
+    shown = [y, low, high]
+    if warranty is not None and math.isfinite(float(warranty)) and warranty > 0:
+        end = float(month_interval_ends(np.array([float(warranty)]))[1][0])
+        end_label = f"warranty end ({float(warranty):g} months)"
+    else:
+        end = float(months.max()) if len(months) else None
+        end_label = "oldest age observed"
+    if fit is not None and len(months) and end is not None:
+        grid = np.geomspace(max(months.min() * 0.5, 0.25), end, 120)
+        lower, upper = fit.bounds("cdf", t=grid)
+        line = _weibull_scale(fit.cdf(grid))
+        axis.fill_between(grid, _weibull_scale(lower), _weibull_scale(upper), color=EMPHASIS, alpha=0.28,
+                          linewidth=0.0, label=f"{fit.confidence_level:.0%} Wald band", zorder=1)
+        for edge in (lower, upper):
+            axis.plot(grid, _weibull_scale(edge), color=EMPHASIS, linewidth=0.6, alpha=0.8, zorder=1)
+        axis.plot(grid, line, color=EMPHASIS, linewidth=1.8, zorder=2,
+                  label=f"Weibull shape {fit.shape:.3g}, scale {fit.scale:.4g} months")
+        shown += [line, _weibull_scale(lower), _weibull_scale(upper)]
+        if alternative is not None:
+            curve = _weibull_scale(alternative.cdf(grid))
+            axis.plot(grid, curve, color=OKABE_ITO["bluish_green"], linestyle="--", linewidth=1.2,
+                      label="lognormal alternative")
+            shown.append(curve)
+    if end is not None and len(months):
+        axis.axvline(end, color=OKABE_ITO["black"], linestyle=":", linewidth=1.2, label=end_label, gid="warranty-end")
+    axis.set_xscale("log")
+    if len(months):
+        left = max(months.min() * 0.4, 0.2)
+        right = max(end or months.max(), months.max()) * 1.25
+        axis.set_xlim(left, right)
+        ticks = [t for t in AGE_TICKS_MONTHS if left <= t <= right]
+        axis.xaxis.set_major_locator(FixedLocator(ticks))
+        axis.xaxis.set_major_formatter(FixedFormatter([str(t) for t in ticks]))
+        axis.xaxis.set_minor_formatter(NullFormatter())
+        values = np.concatenate([np.asarray(v, dtype=float) for v in shown])
+        values = values[np.isfinite(values)]
+        if len(values):
+            bottom, top = float(values.min()), float(values.max())
+            pad = max(0.08 * (top - bottom), 0.15)
+            axis.set_ylim(bottom - 2.5 * pad, top + pad)  # room for the legend below the line's right end
+    axis.set_title(chart_text(product))
+    axis.set_xlabel("months in service (log scale)")
+    axis.set_ylabel("log(-log(1 - fraction failed))")
+    _fraction_ticks(axis)
+    axis.grid(True, which="major", alpha=0.3)
+    axis.legend(loc="lower right")
 
 
 def _weibull_scale(fraction: pd.Series | np.ndarray) -> np.ndarray:
@@ -660,41 +817,200 @@ def _weibull_scale(fraction: pd.Series | np.ndarray) -> np.ndarray:
     return np.log(-np.log1p(-values))
 
 
+def fraction_ticks(bottom: float, top: float) -> list[float]:
+    """The FRACTION_TICKS inside (bottom, top) on the log(-log(1 - F)) scale, thinned from the top down
+    so that no two are closer than _MIN_LABEL_GAP of the span (their labels would overlap)."""
+    span = top - bottom
+    if not (math.isfinite(span) and span > 0):
+        return []
+    inside = [f for f in FRACTION_TICKS if bottom <= float(_weibull_scale(np.array([f]))[0]) <= top]
+    kept: list[float] = []
+    for fraction in sorted(inside, reverse=True):
+        position = float(_weibull_scale(np.array([fraction]))[0])
+        if all(abs(position - float(_weibull_scale(np.array([k]))[0])) >= _MIN_LABEL_GAP * span for k in kept):
+            kept.append(fraction)
+    return sorted(kept)
+
+
 def _fraction_ticks(axis: Axes) -> None:
     secondary = axis.secondary_yaxis("right", functions=(lambda y: y, lambda y: y))
-    fractions = np.array([1e-4, 1e-3, 0.01, 0.05, 0.1, 0.3, 0.632, 0.9, 0.99])
-    secondary.set_yticks(_weibull_scale(fractions), [f"{f:.2%}".rstrip("0").rstrip(".") for f in fractions])
+    bottom, top = axis.get_ylim()
+    fractions = fraction_ticks(bottom, top)
+    secondary.set_yticks(_weibull_scale(np.array(fractions)), [percent_label(f) for f in fractions])
     secondary.set_ylabel("fraction failed")
 
 
-def expected_returns_by_month(forecast: pd.DataFrame, products: Iterable[str] | None = None) -> Figure:
-    """Expected future returns per calendar month, stacked by product (`products` only, the others as one band)."""
-    figure = Figure(figsize=(10, 4.5))
-    axis = figure.subplots()
+# -- the calendar-month forecast -------------------------------------------------------------------------
+
+
+def expected_returns_by_month(
+    forecast: pd.DataFrame,
+    products: Iterable[str] | None = None,
+    *,
+    as_of_date: dt.date | None = None,
+    returns_to_date: pd.DataFrame | None = None,
+    intervals: pd.DataFrame | None = None,
+    costs: pd.DataFrame | None = None,
+    currency: str = "",
+    interval_label: str = "5-95%",
+    history_months: int = 12,
+) -> Figure:
+    """Claims per calendar month: the returns counted in the `history_months` months to the as-of date's
+    month (hollow markers, thin line) and the forecast after it (filled markers, thick line), one series
+    per product (`products` only; the others summed into one series), a dashed vertical line at the end of
+    the as-of date; below, the expected cost per calendar month stacked by product (when `costs` is given).
+
+    `forecast`: product x (build month x) calendar month `month` (first day) with expected_returns and,
+    when present, expected_claims (first failures + claims not yet reported + repeat claims; drawn when
+    present). `intervals`: the forecast_by_calendar_month table (product, month, expected_returns,
+    returns_lower, returns_upper: the first failures' prediction interval); the band is that interval plus
+    the other claims at their expected values. `returns_to_date`: counted returns with product,
+    claim_month, returns (returns_by_failure_month). `costs`: product, month, expected_cost (the published
+    forecast). Months are calendar months; the x axis holds month numbers (year x 12 + month - 1), each
+    month's value drawn at its middle (+ 0.5), the as-of line at as-of month + day / days in the month.
+    """
     if forecast.empty:
-        axis.text(0.5, 0.5, "no forecast: no product has a published life model", ha="center", va="center")
-        axis.set_axis_off()
-        return figure
-    table = forecast.groupby(["month", "product"])["expected_returns"].sum().unstack("product", fill_value=0.0)
-    table = table.sort_index()
-    if products is not None:  # the others summed into one band
-        shown = [product for product in table.columns if product in set(products)]
-        others = [product for product in table.columns if product not in set(products)]
-        if others:
-            table = table[shown].assign(**{f"{len(others)} other products": table[others].sum(axis=1)})
-    months = pd.to_datetime(pd.Series(table.index))
+        return _message_figure("no forecast: no product has a published life model")
+    with_cost = costs is not None and len(costs) and "expected_cost" in costs
+    figure = Figure(figsize=(10.5, 7.8 if with_cost else 4.8))
+    axes = figure.subplots(2 if with_cost else 1, 1, squeeze=False, sharex=True)[:, 0]
+    count_axis = axes[0]
+    value = "expected_claims" if "expected_claims" in forecast else "expected_returns"
+    table = _by_month_product(forecast, value)
+    shown, others = _shown_products(table.columns, products)
+    series = _grouped_series(table, shown, others)
+    band = _interval_band(intervals, forecast, value, shown) if intervals is not None else {}
+    past = _returns_by_claim_month(returns_to_date, as_of_date, history_months) if returns_to_date is not None else None
+    past_series = _grouped_series(past, shown, others) if past is not None and len(past.columns) else {}
+    for i, (name, values) in enumerate(series.items()):
+        style = series_style(i)
+        x = _month_numbers(values.index) + 0.5
+        if name in band:
+            low, high = band[name]
+            count_axis.fill_between(x, low, high, color=style["color"], alpha=0.22, linewidth=0.0, step=None,
+                                    label=f"{chart_text(name)}: {interval_label} prediction interval", gid=f"band:{name}")
+        count_axis.plot(x, values.to_numpy(dtype=float), color=style["color"], linestyle=style["linestyle"],
+                        marker=style["marker"], markersize=3.5, linewidth=1.8, label=f"{chart_text(name)}: expected",
+                        gid=f"forecast:{name}")
+        if name in past_series:
+            history = past_series[name]
+            count_axis.plot(_month_numbers(history.index) + 0.5, history.to_numpy(dtype=float), color=style["color"],
+                            linestyle=style["linestyle"], marker=style["marker"], markersize=3.5, linewidth=0.9,
+                            markerfacecolor="white", label=f"{chart_text(name)}: returns counted",
+                            gid=f"returns:{name}")
+    count_axis.set_ylabel("claims per month")
+    count_axis.set_ylim(bottom=0)
+    total = float(forecast[value].sum())
+    what = "claims" if value == "expected_claims" else "returns"
+    count_axis.set_title(
+        f"{total:,.0f} {what} still expected (right of the as-of line"
+        + (f"; band: {interval_label} prediction interval" if band else "") + "); returns counted so far on its left"
+    )
+    if with_cost:
+        _cost_panel(axes[1], costs, shown, others, currency)
+    months = np.concatenate([_month_numbers(v.index) for v in [*series.values(), *past_series.values()]])
+    first, last = int(months.min()), int(months.max())
+    if as_of_date is not None:
+        at = as_of_line_x(as_of_date)
+        first = min(first, int(at))
+        for axis in axes:
+            axis.axvline(at, color=OKABE_ITO["black"], linestyle="--", linewidth=1.2, gid="as-of",
+                         label=f"as of {as_of_date.isoformat()}" if axis is count_axis else None)
+    numbers, labels = _month_ticks(first, last)
+    axes[-1].set_xticks([n + 0.5 for n in numbers], labels, rotation=90)
+    axes[-1].set_xlim(first, last + 1)
+    axes[-1].set_xlabel("calendar month of the claim (YYYY-MM; forecast: month of failure, claims not yet"
+                        " reported: month of claim)")
+    for axis in axes:
+        axis.grid(True, axis="y", alpha=0.3)
+    count_axis.legend(loc="upper right", ncol=2 if len(series) > 1 else 1)
+    figure.suptitle("Claims by calendar month, counted and expected")
+    return _finish(figure)
+
+
+def as_of_line_x(as_of_date: dt.date) -> float:
+    """The as-of marker's x on the calendar-month axis: the end of the as-of day, as month number (year x 12
+    + month - 1) + day / days in the month (2026-11-30 -> 24322 + 30 / 30 = 24323.0, the start of December)."""
+    days = calendar.monthrange(as_of_date.year, as_of_date.month)[1]
+    return as_of_date.year * 12 + as_of_date.month - 1 + as_of_date.day / days
+
+
+def _by_month_product(frame: pd.DataFrame, value: str, month: str = "month") -> pd.DataFrame:
+    """value summed to calendar month (index, first days as dates) x product (columns)."""
+    table = frame.assign(**{month: pd.to_datetime(frame[month]).dt.date, value: frame[value].astype(float)})
+    table = table.groupby([month, "product"])[value].sum()
+    return table.unstack("product", fill_value=0.0).sort_index()
+
+
+def _shown_products(columns: Iterable[str], products: Iterable[str] | None) -> tuple[list[str], list[str]]:
+    names = [str(c) for c in columns]
+    if products is None:
+        return names, []
+    wanted = {str(p) for p in products}
+    return [n for n in names if n in wanted], [n for n in names if n not in wanted]
+
+
+def _grouped_series(table: pd.DataFrame, shown: list[str], others: list[str]) -> dict[str, pd.Series]:
+    """One series per shown product present in `table`, and the others' sum under 'N other products'."""
+    table = table.rename(columns=str)
+    series = {name: table[name] for name in shown if name in table.columns}
+    rest = [name for name in others if name in table.columns]
+    if rest:
+        series[f"{len(others)} other products"] = table[rest].sum(axis=1)
+    return series
+
+
+def _interval_band(intervals: pd.DataFrame, forecast: pd.DataFrame, value: str,
+                   shown: list[str]) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Per shown product: (lower, upper) per forecast month: the first failures' returns_lower / _upper plus
+    the claims beyond first failures (value - expected_returns) at their expected values. Products without
+    interval rows get no band; a month missing from the intervals takes its expected value on both sides."""
+    if not len(intervals) or not {"returns_lower", "returns_upper"} <= set(intervals.columns):
+        return {}
+    extra = _by_month_product(forecast.assign(_extra=forecast[value] - forecast["expected_returns"]), "_extra")
+    main = _by_month_product(forecast, value)
+    bounds = intervals.assign(month=pd.to_datetime(intervals["month"]).dt.date, product=intervals["product"].astype(str))
+    band = {}
+    for name in shown:
+        rows = bounds[bounds["product"] == name].set_index("month")
+        if not len(rows) or name not in main.rename(columns=str).columns:
+            continue
+        months = main.index
+        own_extra = extra.rename(columns=str)[name].reindex(months, fill_value=0.0).to_numpy(dtype=float)
+        centre = main.rename(columns=str)[name].to_numpy(dtype=float)
+        low = rows["returns_lower"].reindex(months).to_numpy(dtype=float) + own_extra
+        high = rows["returns_upper"].reindex(months).to_numpy(dtype=float) + own_extra
+        band[name] = (np.where(np.isfinite(low), low, centre), np.where(np.isfinite(high), high, centre))
+    return band
+
+
+def _returns_by_claim_month(returns: pd.DataFrame, as_of_date: dt.date | None, history_months: int) -> pd.DataFrame:
+    """Counted returns per claim month x product, the `history_months` months up to the as-of date's month."""
+    if not len(returns):
+        return pd.DataFrame()
+    table = _by_month_product(returns, "returns", month="claim_month")
+    if as_of_date is not None and len(table):
+        last = as_of_date.year * 12 + as_of_date.month - 1
+        numbers = _month_numbers(table.index)
+        table = table[(numbers <= last) & (numbers > last - history_months)]
+    return table
+
+
+def _cost_panel(axis: Axes, costs: pd.DataFrame, shown: list[str], others: list[str], currency: str) -> None:
+    table = _by_month_product(costs, "expected_cost")
+    series = _grouped_series(table, shown, others)
     bottom = np.zeros(len(table))
-    for product in table.columns:
-        values = table[product].to_numpy(dtype=float)
-        axis.bar(months, values, bottom=bottom, width=25, label=chart_text(product))
-        bottom += values
-    axis.set_title("Expected future returns by calendar month")
-    axis.set_xlabel("calendar month")
-    axis.set_ylabel("expected returns")
-    axis.legend(title="product")
-    axis.grid(True, axis="y", alpha=0.3)
-    figure.tight_layout()
-    return figure
+    x = _month_numbers(table.index) + 0.5
+    for i, (name, values) in enumerate(series.items()):
+        heights = values.to_numpy(dtype=float)
+        axis.bar(x, heights, bottom=bottom, width=0.8, color=PALETTE[i % len(PALETTE)], hatch=HATCHES[i % len(HATCHES)],
+                 edgecolor="white", linewidth=0.4, label=chart_text(name), gid=f"cost:{name}")
+        bottom += heights
+    unit = f" ({chart_text(currency, 12)})" if currency else " (currency units)"
+    axis.set_ylabel(f"expected cost{unit}")
+    axis.yaxis.set_major_formatter(FuncFormatter(lambda amount, _: f"{amount:,.0f}"))
+    axis.set_title(f"Expected cost of those claims: {float(bottom.sum()):,.0f}{unit} still to pay, by month")
+    axis.legend(loc="upper right", title="product")
 
 
 def failure_mode_pareto(returns_by_failure_mode: pd.DataFrame) -> Figure:
@@ -706,14 +1022,13 @@ def failure_mode_pareto(returns_by_failure_mode: pd.DataFrame) -> Figure:
         rows = by_code[by_code["product"] == product].sort_values(["returns", "failure_mode"], ascending=[False, True])
         counts = rows["returns"].to_numpy(dtype=float)
         positions = np.arange(len(rows))
-        axis.bar(positions, counts, color="#1b4965")
-        axis.set_xticks(positions, [chart_text(m, 30) for m in rows["failure_mode"]], rotation=35, ha="right", fontsize=8)
+        axis.bar(positions, counts, color=DATA)
+        axis.set_xticks(positions, [chart_text(m, 30) for m in rows["failure_mode"]], rotation=35, ha="right")
         axis.set_ylabel("returns to date")
         axis.set_title(chart_text(product))
         share = axis.twinx()
-        share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color="#c0392b", marker="o", markersize=3.5)
+        share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color=EMPHASIS, marker="o", markersize=3.5)
         share.set_ylim(0, 105)
         share.set_ylabel("cumulative share of returns (%)")
-    figure.suptitle("Returns by failure code (Pareto)")
-    figure.tight_layout()
-    return figure
+    figure.suptitle("Returns by failure code, largest first: the codes left of where the line flattens hold most returns")
+    return _finish(figure)
