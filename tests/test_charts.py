@@ -448,3 +448,79 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
     assert len([line for line in one_month.lines if len(line.get_xdata())]) == 1
     empty = next(a for a in figure.axes if a.get_title() == "E")
     assert "no build month with enough exposure" in empty.texts[0].get_text()
+
+
+# -- finance and the Pareto by build month (issue 12) ---------------------------------------------------
+
+
+def reserve_frames():
+    reserve = pd.DataFrame({
+        "product": ["P", "Q", "R"], "reserve": [300.0, 100.0, 50.0], "reserve_current": [200.0, 60.0, 50.0],
+        "reserve_non_current": [100.0, 40.0, 0.0], "reserve_lower": [250.0, 80.0, 40.0],
+        "reserve_upper": [360.0, 125.0, 65.0], "reserve_open_claims": [10.0, 0.0, 0.0], "reserve_handling": [0.0, 5.0, 0.0],
+        "currency": ["EUR"] * 3,
+    })
+    months = [dt.date(2024, 12, 1), dt.date(2025, 11, 1), dt.date(2025, 12, 1)]
+    costs = pd.DataFrame({"product": ["P"] * 3 + ["Q"] * 3, "month": months * 2,
+                          "expected_cost": [100.0, 90.0, 100.0, 30.0, 30.0, 35.0]})
+    roll = pd.DataFrame({
+        "product": ["P", "(all products)"], "is_total": [False, True], "opening_as_of_date": [dt.date(2024, 10, 31)] * 2,
+        "opening_reserve": [0.0, 420.0], "accruals_for_units_shipped": [0.0, 40.0], "claims_settled": [0.0, 25.0],
+        "changes_in_estimate": [0.0, 15.0], "closing_reserve": [0.0, 450.0],
+    })
+    return reserve, costs, roll
+
+
+def test_finance_chart_current_split_interval_months_and_movement():
+    reserve, costs, roll = reserve_frames()
+    figure = charts.reserve_for_finance(reserve, costs, roll, as_of_date=AS_OF, currency=charts.currency_of(reserve),
+                                        products=["P", "Q"])
+    drawn(figure)
+    by_product, by_month, movement = figure.axes[:3]
+    # by product: R summed into "1 other products" (no interval: quantiles do not add); current + non-current
+    assert [t.get_text() for t in by_product.get_yticklabels()] == ["1 other products", "Q", "P"]
+    current = [p.get_width() for p in by_product.patches if p.get_gid() == "reserve-current"]
+    later = [p.get_width() for p in by_product.patches if p.get_gid() == "reserve-non-current"]
+    assert current == [50.0, 60.0, 200.0] and later == [0.0, 40.0, 100.0]
+    whisker = next(c for c in by_product.collections if c.get_gid() == "reserve-interval")
+    spans = sorted((min(s[:, 0]), max(s[:, 0])) for s in whisker.get_segments())
+    assert spans == [(80.0, 125.0), (250.0, 360.0)]
+    # by month: the current part ends with 2025-11, the as-of month + 12 (reserve.CURRENT_MONTHS)
+    end = next(l for l in by_month.lines if l.get_gid() == "current-end")
+    assert end.get_xdata()[0] == 2025 * 12 + 10 + 0.5
+    assert sorted(p.get_height() for p in by_month.patches if p.get_gid() == "month-current") == [120.0, 130.0]
+    assert [p.get_height() for p in by_month.patches if p.get_gid() == "month-non-current"] == [135.0]
+    assert "open claims, handling: 15" in by_month.get_title()
+    # movement: +40 - 25 + 15 = +30 = 450 - 420 (the roll-forward's rows add up)
+    heights = {p.get_gid(): p.get_height() for p in movement.patches}
+    assert heights == {"movement:+ accruals for units shipped": 40.0, "movement:- claims settled": -25.0,
+                       "movement:+/- changes in estimate": 15.0, "movement:= net change": 30.0}
+    assert "420.00 -> 450.00 (EUR)" in movement.get_title()
+    assert figure._suptitle.get_text().startswith("Warranty reserve to book as of 2024-11-30: 450.00 (EUR), 310.00")
+
+
+def test_finance_chart_before_any_earlier_run_says_so():
+    reserve, costs, _ = reserve_frames()
+    figure = charts.reserve_for_finance(reserve.drop(columns=["reserve_lower", "reserve_upper"]), costs, None,
+                                        as_of_date=AS_OF)
+    assert any("no earlier run" in t.get_text() for t in figure.axes[2].texts)
+    assert not any(c.get_gid() == "reserve-interval" for c in figure.axes[0].collections)
+    assert "no reserve" in charts.reserve_for_finance(reserve.iloc[0:0], costs, as_of_date=AS_OF).axes[0].texts[0].get_text()
+
+
+def test_pareto_by_build_month_shows_a_code_concentrated_in_one_month():
+    rows = [("P", dt.date(2024, m, 1), "WEAR", 10) for m in (1, 2, 3)]
+    rows += [("P", dt.date(2024, 2, 1), "BATCH", 25), ("P", dt.date(2024, 3, 1), "RARE", 1)]
+    table = pd.DataFrame(rows, columns=["product", "build_month", "failure_mode", "returns"]).assign(months_in_service=1)
+    figure = charts.failure_mode_pareto(table)
+    drawn(figure)
+    total, by_month = figure.axes[0], figure.axes[1]
+    assert [t.get_text() for t in total.get_xticklabels()] == ["WEAR", "BATCH", "RARE"]  # 30, 25, 1
+    assert [p.get_height() for p in total.patches] == [30.0, 25.0, 1.0]
+    batch = [p for p in by_month.patches if p.get_gid() == "month-code:BATCH"]
+    assert [p.get_height() for p in batch] == [0.0, 25.0, 0.0]  # all of it in 2024-02
+    assert [p.get_y() for p in batch] == [10.0, 10.0, 10.0]  # stacked on WEAR
+    # the same colour for a code in both panels
+    assert total.patches[1].get_facecolor() == batch[1].get_facecolor()
+    assert [t.get_text() for t in by_month.get_xticklabels()] == ["2024-01", "2024-02", "2024-03"]
+    assert "batch defect" in figure._suptitle.get_text()

@@ -48,9 +48,9 @@ apart by readers with any of the common colour-vision deficiencies."""
 PALETTE = tuple(OKABE_ITO[name] for name in (
     "blue", "vermillion", "bluish_green", "orange", "reddish_purple", "sky_blue", "black", "yellow",
 ))
-"""Series colours in order. Blue, vermillion and bluish green first: the three differ most in lightness
-too, so a chart printed in grey still separates them; every series also gets its own line style or
-marker (LINE_STYLES, MARKERS), which carries the difference where grey does not."""
+"""Series colours in order. Printed in grey, blue, vermillion and bluish green are all mid-grey (Rec. 709 luma
+0.37, 0.44, 0.48), so every series also gets its own line style and marker (LINE_STYLES, MARKERS) or bar
+hatch (HATCHES): those carry the difference in grey print."""
 
 LINE_STYLES = ("-", "--", ":", "-.", (0, (5, 1, 1, 1, 1, 1)), (0, (1, 3)), (0, (8, 2)), (0, (3, 1, 1, 1)))
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
@@ -1013,22 +1013,246 @@ def _cost_panel(axis: Axes, costs: pd.DataFrame, shown: list[str], others: list[
     axis.legend(loc="upper right", title="product")
 
 
+PARETO_CODES = 7
+"""Failure codes coloured on the Pareto's build-month panel (the largest of the product); the rest are one
+grey 'other codes' band."""
+
+
 def failure_mode_pareto(returns_by_failure_mode: pd.DataFrame) -> Figure:
-    """Counted returns by failure code, largest first, with the cumulative share, per product."""
+    """Per product (columns): counted returns by failure code, largest first, with the cumulative share
+    (top), and the same returns by build month stacked by failure code (below; the PARETO_CODES largest
+    codes in the top panel's colours and hatches, the rest grey), so a code concentrated in one build month,
+    invisible in the Pareto over all history, stands out as a spike of one colour.
+
+    `returns_by_failure_mode`: product, failure_mode, returns and, for the lower panel, build_month (rows
+    per product x build month x code x month in service; summed here)."""
     by_code = returns_by_failure_mode.groupby(["product", "failure_mode"], as_index=False)["returns"].sum()
     products = sorted(by_code["product"].unique())
-    figure, axes = _grid(len(products), width=5.2, height=4.4)
-    for axis, product in zip(axes.flat, products):
+    if not products:
+        return _message_figure("no returns with a failure code yet: no Pareto to show")
+    by_month = "build_month" in returns_by_failure_mode.columns
+    figure, panels = _panel_grid(len(products), 2 if by_month else 1, width=5.6, height=4.0)
+    for product, axes in zip(products, panels):
+        axis = axes[0]
         rows = by_code[by_code["product"] == product].sort_values(["returns", "failure_mode"], ascending=[False, True])
         counts = rows["returns"].to_numpy(dtype=float)
+        codes = [str(code) for code in rows["failure_mode"]]
         positions = np.arange(len(rows))
-        axis.bar(positions, counts, color=DATA)
-        axis.set_xticks(positions, [chart_text(m, 30) for m in rows["failure_mode"]], rotation=35, ha="right")
+        for i, (position, count, code) in enumerate(zip(positions, counts, codes)):
+            colour, hatch = _code_style(i)
+            axis.bar(position, count, color=colour, hatch=hatch, edgecolor="white", linewidth=0.4, gid=f"code:{code}")
+        axis.set_xticks(positions, [chart_text(m, 30) for m in codes], rotation=35, ha="right")
         axis.set_ylabel("returns to date")
-        axis.set_title(chart_text(product))
+        axis.set_title(f"{chart_text(product)}: all build months")
         share = axis.twinx()
-        share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color=EMPHASIS, marker="o", markersize=3.5)
+        share.plot(positions, 100.0 * np.cumsum(counts) / counts.sum(), color=OKABE_ITO["black"], marker="o",
+                   markersize=3.5, linewidth=1.2)
         share.set_ylim(0, 105)
         share.set_ylabel("cumulative share of returns (%)")
-    figure.suptitle("Returns by failure code, largest first: the codes left of where the line flattens hold most returns")
+        if by_month:
+            _codes_by_build_month(axes[1], returns_by_failure_mode[returns_by_failure_mode["product"] == product], codes)
+            axes[1].set_title(f"{chart_text(product)}: by build month")
+    figure.suptitle(
+        "Returns by failure code, largest first (top); by build month (below): a code piled up in a few build"
+        " months is a batch defect, not the product's life"
+    )
     return _finish(figure)
+
+
+def _code_style(rank: int) -> tuple[str, str]:
+    """Colour and hatch of the failure code ranked `rank` (0 = most returns) in the Pareto."""
+    if rank >= PARETO_CODES:
+        return MUTED, ""
+    return PALETTE[rank % len(PALETTE)], HATCHES[rank % len(HATCHES)]
+
+
+def _codes_by_build_month(axis: Axes, rows: pd.DataFrame, ranked_codes: list[str]) -> None:
+    table = rows.assign(failure_mode=rows["failure_mode"].astype(str), returns=rows["returns"].astype(float))
+    table = table.groupby(["build_month", "failure_mode"])["returns"].sum().unstack("failure_mode", fill_value=0.0)
+    months = _month_numbers(table.index)
+    bottom = np.zeros(len(table))
+    shown = ranked_codes[:PARETO_CODES]
+    for rank, code in enumerate(shown):
+        if code not in table.columns:
+            continue
+        colour, hatch = _code_style(rank)
+        heights = table[code].to_numpy(dtype=float)
+        axis.bar(months, heights, bottom=bottom, width=0.85, color=colour, hatch=hatch, edgecolor="white",
+                 linewidth=0.3, label=chart_text(code, 30), gid=f"month-code:{code}")
+        bottom += heights
+    rest = [code for code in table.columns if code not in shown]
+    if rest:
+        heights = table[rest].sum(axis=1).to_numpy(dtype=float)
+        axis.bar(months, heights, bottom=bottom, width=0.85, color=MUTED, linewidth=0.0,
+                 label=f"{len(rest)} other codes", gid="month-code:other")
+    numbers, labels = _month_ticks(int(months.min()), int(months.max()))
+    axis.set_xticks(numbers, labels, rotation=90)
+    axis.set_xlim(months.min() - 1, months.max() + 1)
+    axis.set_ylim(0, max(float(table.sum(axis=1).max()), 1.0) * 1.4)  # the legend above the bars
+    axis.set_xlabel("build month")
+    axis.set_ylabel("returns to date")
+    axis.grid(True, axis="y", alpha=0.3)
+    axis.legend(loc="upper left", ncol=2)
+
+
+# -- finance: the reserve ---------------------------------------------------------------------------------
+
+
+def reserve_for_finance(
+    reserve_by_product: pd.DataFrame,
+    costs: pd.DataFrame,
+    roll_forward: pd.DataFrame | None = None,
+    *,
+    as_of_date: dt.date,
+    currency: str = "",
+    products: Iterable[str] | None = None,
+    current_months: int = 12,
+    interval_label: str = "5-95%",
+) -> Figure:
+    """The reserve as finance reads it, in three panels:
+
+    * by product (top left): the reserve to book split into current (claims in the as-of date's month and
+      the `current_months` calendar months after it) and non-current, with the reserve's prediction
+      interval (reserve_lower / reserve_upper) as a whisker; `products` only, the others as one row.
+    * by month still to come (top right): the forecast's expected cost per calendar month (`costs`:
+      product, month, expected_cost), current months solid, later months hatched, a dotted line where the
+      current part ends (after as-of month + current_months). Open claims and handling are in the reserve
+      but not in any month: the title gives them.
+    * movement since the last run (bottom): the roll-forward's total row as a waterfall, opening reserve +
+      accruals for units shipped - claims settled +/- changes in estimate = closing reserve (a sentence when
+      there is no earlier run).
+
+    Amounts in the reserve's currency (`currency`, a label only), undiscounted.
+    """
+    if not len(reserve_by_product) or "reserve" not in reserve_by_product:
+        return _message_figure("no reserve: no product has a forecast")
+    figure = Figure(figsize=(12.0, 8.6))
+    grid = figure.add_gridspec(2, 2, height_ratios=(1.15, 1.0))
+    product_axis = figure.add_subplot(grid[0, 0])
+    month_axis = figure.add_subplot(grid[0, 1])
+    movement_axis = figure.add_subplot(grid[1, :])
+    unit = f" ({chart_text(currency, 12)})" if currency else " (currency units)"
+    _reserve_by_product_panel(product_axis, reserve_by_product, products, unit, interval_label)
+    _reserve_by_month_panel(month_axis, reserve_by_product, costs, as_of_date, current_months, unit)
+    _movement_panel(movement_axis, roll_forward, unit)
+    total = float(reserve_by_product["reserve"].sum())
+    current = float(reserve_by_product["reserve_current"].sum()) if "reserve_current" in reserve_by_product else math.nan
+    figure.suptitle(
+        f"Warranty reserve to book as of {as_of_date.isoformat()}: {total:,.2f}{unit}"
+        + (f", {current:,.2f} of it current (claims to {_month_label(as_of_date.year * 12 + as_of_date.month - 1 + current_months)})"
+           if math.isfinite(current) else "")
+    )
+    return _finish(figure)
+
+
+def _money(amount: float, _: object = None) -> str:
+    return f"{amount:,.0f}"
+
+
+def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterable[str] | None, unit: str,
+                              interval_label: str) -> None:
+    table = table.assign(product=table["product"].astype(str))
+    numeric = [c for c in ("reserve", "reserve_current", "reserve_non_current", "reserve_lower", "reserve_upper")
+               if c in table]
+    shown, others = _shown_products(sorted(table["product"].unique()), products)
+    rows = table[table["product"].isin(shown)].groupby("product")[numeric].sum(min_count=1)
+    rows = rows.sort_values("reserve", ascending=True)
+    if others:
+        rest = table[table["product"].isin(others)][numeric].sum()
+        rest[["reserve_lower", "reserve_upper"]] = np.nan  # quantiles do not add up
+        rows = pd.concat([rest.to_frame(f"{len(others)} other products").T, rows])
+    positions = np.arange(len(rows))
+    if {"reserve_current", "reserve_non_current"} <= set(rows.columns):
+        current = rows["reserve_current"].to_numpy(dtype=float)
+        later = rows["reserve_non_current"].to_numpy(dtype=float)
+        axis.barh(positions, current, color=DATA, label="current", gid="reserve-current")
+        axis.barh(positions, later, left=current, color=OKABE_ITO["sky_blue"], hatch="//", edgecolor="white",
+                  linewidth=0.4, label="non-current", gid="reserve-non-current")
+    else:
+        axis.barh(positions, rows["reserve"].to_numpy(dtype=float), color=DATA, label="reserve", gid="reserve")
+    if {"reserve_lower", "reserve_upper"} <= set(rows.columns):
+        low, high = rows["reserve_lower"].to_numpy(dtype=float), rows["reserve_upper"].to_numpy(dtype=float)
+        middle = rows["reserve"].to_numpy(dtype=float)
+        has = np.isfinite(low) & np.isfinite(high)
+        if has.any():
+            axis.errorbar(middle[has], positions[has], xerr=np.vstack([middle[has] - low[has], high[has] - middle[has]]),
+                          fmt="none", ecolor=OKABE_ITO["black"], elinewidth=1.2, capsize=4,
+                          label=f"{interval_label} prediction interval", gid="reserve-interval")
+    for position, amount in zip(positions, rows["reserve"].to_numpy(dtype=float)):
+        axis.annotate(_money(amount), (amount, position), xytext=(6, 6), textcoords="offset points", va="bottom")
+    axis.set_yticks(positions, [chart_text(p) for p in rows.index])
+    axis.xaxis.set_major_formatter(FuncFormatter(_money))
+    axis.set_xlim(0, float(np.nanmax(np.concatenate([rows["reserve"].to_numpy(dtype=float),
+                                                     rows.get("reserve_upper", rows["reserve"]).to_numpy(dtype=float)]))) * 1.3)
+    axis.set_xlabel(f"reserve{unit}")
+    axis.set_title("By product: current part solid, non-current hatched")
+    axis.legend(loc="lower right")
+    axis.grid(True, axis="x", alpha=0.3)
+
+
+def _reserve_by_month_panel(axis: Axes, reserve: pd.DataFrame, costs: pd.DataFrame, as_of_date: dt.date,
+                            current_months: int, unit: str) -> None:
+    if costs is None or not len(costs) or "expected_cost" not in costs:
+        _panel_message(axis, "By month still to come", "no expected cost by month")
+        return
+    by_month = costs.assign(month=pd.to_datetime(costs["month"]).dt.date).groupby("month")["expected_cost"].sum()
+    months = _month_numbers(by_month.index)
+    amounts = by_month.to_numpy(dtype=float)
+    last_current = as_of_date.year * 12 + as_of_date.month - 1 + current_months
+    current = months <= last_current
+    axis.bar(months[current], amounts[current], width=0.85, color=DATA, label="current", gid="month-current")
+    axis.bar(months[~current], amounts[~current], width=0.85, color=OKABE_ITO["sky_blue"], hatch="//",
+             edgecolor="white", linewidth=0.4, label="non-current", gid="month-non-current")
+    axis.axvline(last_current + 0.5, color=OKABE_ITO["black"], linestyle=":", linewidth=1.2, gid="current-end",
+                 label=f"current ends with {_month_label(last_current)}")
+    numbers, labels = _month_ticks(int(months.min()), int(months.max()))
+    axis.set_xticks(numbers, labels, rotation=90)
+    axis.yaxis.set_major_formatter(FuncFormatter(_money))
+    axis.set_ylabel(f"expected cost{unit}")
+    outside = [c for c in ("reserve_open_claims", "reserve_handling") if c in reserve]
+    extra = float(reserve[outside].to_numpy(dtype=float).sum()) if outside else 0.0
+    axis.set_title(f"By month still to come (open claims, handling: {extra:,.0f})")
+    axis.legend(loc="upper right")
+    axis.grid(True, axis="y", alpha=0.3)
+
+
+def movement_steps(total: pd.Series) -> list[tuple[str, float]]:
+    """The roll-forward's total row as signed movements (label, amount): accruals for units shipped (+),
+    claims settled (-), changes in estimate (+/-) and their sum, the net change (closing - opening)."""
+    steps = [
+        ("+ accruals for units shipped", float(total["accruals_for_units_shipped"])),
+        ("- claims settled", -float(total["claims_settled"])),
+        ("+/- changes in estimate", float(total["changes_in_estimate"])),
+    ]
+    steps.append(("= net change", float(total["closing_reserve"]) - float(total["opening_reserve"])))
+    return steps
+
+
+def _movement_panel(axis: Axes, roll_forward: pd.DataFrame | None, unit: str) -> None:
+    """The movements as bars from 0 (the opening and closing reserves, far larger, are in the title: bars of
+    them would flatten the movements to nothing)."""
+    if roll_forward is None or not len(roll_forward):
+        _panel_message(axis, "Movement since the last run", "no earlier run under this output root: no movement yet")
+        return
+    totals = roll_forward[roll_forward["is_total"].astype(bool)] if "is_total" in roll_forward else roll_forward
+    total = totals.iloc[0] if len(totals) else roll_forward.sum(numeric_only=True)
+    steps = movement_steps(total)
+    for i, (label, amount) in enumerate(steps):
+        net = i == len(steps) - 1
+        colour = DATA if net else (OKABE_ITO["orange"] if amount >= 0 else OKABE_ITO["sky_blue"])
+        axis.bar(i, amount, width=0.6, color=colour, hatch="" if amount >= 0 or net else "//", edgecolor="white",
+                 linewidth=0.4, gid=f"movement:{label}")
+        axis.annotate(f"{amount:+,.2f}", (i, amount), xytext=(0, 3 if amount >= 0 else -3), textcoords="offset points",
+                      ha="center", va="bottom" if amount >= 0 else "top")
+    axis.axhline(0.0, color=OKABE_ITO["black"], linewidth=0.8)
+    axis.set_xticks(range(len(steps)), [label for label, _ in steps])
+    axis.yaxis.set_major_formatter(FuncFormatter(_money))
+    axis.set_ylabel(f"change in reserve{unit}")
+    low, high = min(0.0, *(a for _, a in steps)), max(0.0, *(a for _, a in steps))
+    axis.set_ylim(low * 1.25 if low < 0 else 0.0, high * 1.25 if high > 0 else 1.0)
+    since = str(total.get("opening_as_of_date", ""))[:10]
+    axis.set_title(
+        f"Movement since the run as of {since}: reserve {float(total['opening_reserve']):,.2f} ->"
+        f" {float(total['closing_reserve']):,.2f}{unit}"
+    )
+    axis.grid(True, axis="y", alpha=0.3)
