@@ -919,8 +919,8 @@ def expected_returns_by_month(
     numbers, labels = _month_ticks(first, last)
     axes[-1].set_xticks([n + 0.5 for n in numbers], labels, rotation=90)
     axes[-1].set_xlim(first, last + 1)
-    axes[-1].set_xlabel("calendar month of the claim (YYYY-MM; forecast: month of failure, claims not yet"
-                        " reported: month of claim)")
+    axes[-1].set_xlabel("calendar month (YYYY-MM): of the failure for expected first failures, of the claim for"
+                        " returns counted and claims not yet reported")
     for axis in axes:
         axis.grid(True, axis="y", alpha=0.3)
     count_axis.legend(loc="upper right", ncol=2 if len(series) > 1 else 1)
