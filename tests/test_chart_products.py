@@ -42,7 +42,7 @@ def test_expected_returns_chart_sums_the_other_products_into_one_band():
     })
     figure = charts.expected_returns_by_month(forecast, ["B"])
     legend = [text.get_text() for text in figure.axes[0].get_legend().get_texts()]
-    assert legend == ["B: expected", "2 other products: expected"]
+    assert legend == ["B", "2 other products", "expected"]
     values = {line.get_gid(): list(line.get_ydata()) for line in figure.axes[0].lines}
     assert values == {"forecast:B": [2.0, 5.0], "forecast:2 other products": [4.0, 10.0]}  # the others: 1 + 3, 4 + 6
 

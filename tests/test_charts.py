@@ -144,7 +144,8 @@ def test_calendar_month_chart_as_of_line_returns_to_date_band_and_cost():
     assert counts.get_title().startswith("32 claims still expected")
     labels = [t.get_text() for t in cost.get_xticklabels() if t.get_text()]
     assert labels[0] == "2024-10" and labels[-1] == "2025-02" and all(YYYY_MM.match(t) for t in labels)
-    assert any(t.get_text() == "as of 2024-11-30" for t in counts.get_legend().get_texts())
+    legend = [t.get_text() for t in counts.get_legend().get_texts()]
+    assert legend == ["P", "Q", "as of 2024-11-30", "expected", "returns counted", "5-95% prediction interval"]
 
 
 def test_calendar_month_chart_alone_and_empty():

@@ -20,7 +20,8 @@ from matplotlib.axes import Axes
 from matplotlib.collections import PatchCollection
 from matplotlib.colors import LogNorm, Normalize
 from matplotlib.figure import Figure
-from matplotlib.patches import Rectangle
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch, Rectangle
 from matplotlib.ticker import FixedFormatter, FixedLocator, FuncFormatter, LogLocator, NullFormatter
 
 from warranty_forecast.lifecore.data import month_interval_ends
@@ -888,15 +889,15 @@ def expected_returns_by_month(
         if name in band:
             low, high = band[name]
             count_axis.fill_between(x, low, high, color=style["color"], alpha=0.22, linewidth=0.0, step=None,
-                                    label=f"{chart_text(name)}: {interval_label} prediction interval", gid=f"band:{name}")
+                                    gid=f"band:{name}")
         count_axis.plot(x, values.to_numpy(dtype=float), color=style["color"], linestyle=style["linestyle"],
-                        marker=style["marker"], markersize=3.5, linewidth=1.8, label=f"{chart_text(name)}: expected",
+                        marker=style["marker"], markersize=3.5, linewidth=1.8, label=chart_text(name),
                         gid=f"forecast:{name}")
         if name in past_series:
             history = past_series[name]
             count_axis.plot(_month_numbers(history.index) + 0.5, history.to_numpy(dtype=float), color=style["color"],
                             linestyle=style["linestyle"], marker=style["marker"], markersize=3.5, linewidth=0.9,
-                            markerfacecolor="white", label=f"{chart_text(name)}: returns counted",
+                            markerfacecolor="white",
                             gid=f"returns:{name}")
     count_axis.set_ylabel("claims per month")
     count_axis.set_ylim(bottom=0)
@@ -915,7 +916,7 @@ def expected_returns_by_month(
         first = min(first, int(at))
         for axis in axes:
             axis.axvline(at, color=OKABE_ITO["black"], linestyle="--", linewidth=1.2, gid="as-of",
-                         label=f"as of {as_of_date.isoformat()}" if axis is count_axis else None)
+                         label=f"as of {as_of_date.isoformat()}")
     numbers, labels = _month_ticks(first, last)
     axes[-1].set_xticks([n + 0.5 for n in numbers], labels, rotation=90)
     axes[-1].set_xlim(first, last + 1)
@@ -923,7 +924,15 @@ def expected_returns_by_month(
                         " returns counted and claims not yet reported")
     for axis in axes:
         axis.grid(True, axis="y", alpha=0.3)
-    count_axis.legend(loc="upper right", ncol=2 if len(series) > 1 else 1)
+    # one entry per product (its colour, line and marker), then what filled / hollow / shaded mean
+    keys = [
+        Line2D([], [], color=OKABE_ITO["black"], marker="o", linewidth=1.8, markersize=3.5, label="expected"),
+        *([Line2D([], [], color=OKABE_ITO["black"], marker="o", linewidth=0.9, markersize=3.5, markerfacecolor="white",
+                  label="returns counted")] if past_series else []),
+        *([Patch(facecolor=MUTED, alpha=0.4, label=f"{interval_label} prediction interval")] if band else []),
+    ]
+    handles, _ = count_axis.get_legend_handles_labels()
+    count_axis.legend(handles=[*handles, *keys], loc="upper right", ncol=2)
     figure.suptitle("Claims by calendar month, counted and expected")
     return _finish(figure)
 
