@@ -385,7 +385,11 @@ def _spread_repeats(
     a calendar month counted as one). Each row's interval is cut at whole months of u (the rate is constant
     inside each) and each piece at calendar month boundaries, in proportion to time.
     """
-    open_rows = np.flatnonzero((end > start) & (weight > 0))
+    # a product whose repeat rate is zero everywhere adds nothing: its rows are not spread at all (with
+    # thousands of product lines and no serialised repairs that is every row)
+    code, names = pd.factorize(rows["product"], sort=True)
+    has_rate = np.array([_has_rate(rates, name) for name in names] + [False], dtype=bool)  # code -1: none
+    open_rows = np.flatnonzero((end > start) & (weight > 0) & has_rate[code])
     if len(open_rows) == 0:
         return _empty_forecast()
     first = np.floor(start[open_rows]).astype(np.int64) + 1  # month j holding u just above start
@@ -400,14 +404,14 @@ def _spread_repeats(
     rate = np.zeros(len(j))
     # the pieces grouped by product once (a mask per product would read every piece once per product:
     # quadratic in the number of product lines)
-    names, code = np.unique(products[open_rows], return_inverse=True)
-    piece_code = np.repeat(code.ravel(), count)
+    piece_code = np.repeat(code[open_rows], count)
     order = np.argsort(piece_code, kind="stable")
     bounds = np.searchsorted(piece_code[order], np.arange(len(names) + 1))
     for index, product in enumerate(names):
         take = order[bounds[index]:bounds[index + 1]]
-        table = rates.rates(product, int(j[take].max()))
-        rate[take] = table[j[take] - 1]
+        if take.size:
+            table = rates.rates(product, int(j[take].max()))
+            rate[take] = table[j[take] - 1]
     density = weight[row] * rate  # repeat claims per month of u, constant on (lower, upper]
     keep = (density > 0) & (upper > lower)
     row, lower, upper, density = row[keep], lower[keep], upper[keep], density[keep]
@@ -436,6 +440,12 @@ def _spread_repeats(
     summed["month"] = [dt.date(int(i) // 12, int(i) % 12 + 1, 1) for i in summed["month_index"]]
     summed["build_month"] = pd.to_datetime(summed["build_month"]).dt.date
     return summed.loc[:, ["product", "build_month", "month", "expected_repeat_claims"]]
+
+
+def _has_rate(rates: RepeatRates, product: object) -> bool:
+    """False when `product`'s repeat rate is zero at every month since the first claim (tail included)."""
+    own = np.asarray(rates.rate_by_product.get(product, np.zeros(0)), dtype=float)
+    return bool(np.any(own > 0) or rates.tail_rate.get(product, 0.0) > 0)
 
 
 def _calendar_coordinate(day: dt.date, *, end_of_day: bool) -> float:
