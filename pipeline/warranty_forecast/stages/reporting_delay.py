@@ -682,6 +682,26 @@ def correct_product(
         return unchanged("no correction: no unit was in service within the delay of the as-of date")
     problem = _problem(returns, suspensions, cells)
     start = np.array(suspensions["warranty_start_date"].tolist(), dtype="datetime64[D]")
+
+    def result(corrected, completed, expected, iterations, converged, path, note):  # type: ignore[no-untyped-def]
+        return DelayCorrectedFit(
+            product=product,
+            delay=delay,
+            uncorrected=uncorrected,
+            corrected=corrected,
+            data=completed,
+            uncorrected_data=data,
+            fit_returns=_completed_returns(returns, suspensions, cells, expected),
+            fit_suspensions=_completed_suspensions(suspensions, cells, expected),
+            unreported_by_failure_month=_by_failure_month(product, suspensions, start, cells, expected),
+            unreported_by_claim_month=_by_claim_month(product, suspensions, cells, expected, delay, as_of_date),
+            expected_unreported=float(expected.sum()),
+            iterations=iterations,
+            converged=converged,
+            log_likelihoods=path,
+            note=note,
+        )
+
     if negligible_shift > 0.0:
         shift, expected, completed = _first_step_shift(problem, uncorrected.fit)
         if shift < negligible_shift:
@@ -690,23 +710,8 @@ def correct_product(
                 f" {shift:.2g} standard errors (under {negligible_shift:g}); the frames are completed at the"
                 " uncorrected fit"
             ))
-            return DelayCorrectedFit(
-                product=product,
-                delay=delay,
-                uncorrected=uncorrected,
-                corrected=uncorrected,
-                data=completed,
-                uncorrected_data=data,
-                fit_returns=_completed_returns(returns, suspensions, cells, expected),
-                fit_suspensions=_completed_suspensions(suspensions, cells, expected),
-                unreported_by_failure_month=_by_failure_month(product, suspensions, start, cells, expected),
-                unreported_by_claim_month=_by_claim_month(product, suspensions, cells, expected, delay, as_of_date),
-                expected_unreported=float(expected.sum()),
-                iterations=0,
-                converged=True,
-                log_likelihoods=(_observed_log_likelihood(problem, np.asarray(uncorrected.fit.theta, dtype=float)),),
-                note=note,
-            )
+            at_start = (_observed_log_likelihood(problem, np.asarray(uncorrected.fit.theta, dtype=float)),)
+            return result(uncorrected, completed, expected, 0, True, at_start, note)
     fitter = Fitter("weibull", confidence_level=settings.confidence_level, min_returns=settings.min_returns)
     try:
         last, expected, completed, iterations, converged, path = _em_fit(
@@ -722,23 +727,7 @@ def correct_product(
                            " completed data's own fit")
     if not converged:
         note = _join(note, f"EM not converged in {max_iterations} iterations (step above {tolerance:g})")
-    return DelayCorrectedFit(
-        product=product,
-        delay=delay,
-        uncorrected=uncorrected,
-        corrected=corrected,
-        data=completed,
-        uncorrected_data=data,
-        fit_returns=_completed_returns(returns, suspensions, cells, expected),
-        fit_suspensions=_completed_suspensions(suspensions, cells, expected),
-        unreported_by_failure_month=_by_failure_month(product, suspensions, start, cells, expected),
-        unreported_by_claim_month=_by_claim_month(product, suspensions, cells, expected, delay, as_of_date),
-        expected_unreported=float(expected.sum()),
-        iterations=iterations,
-        converged=converged,
-        log_likelihoods=path,
-        note=note,
-    )
+    return result(corrected, completed, expected, iterations, converged, path, note)
 
 
 def _completed_returns(
