@@ -211,8 +211,12 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
                 only_drawn(life_table_by_month),
                 {product: fit.fit for product, fit in lives.products.items() if product in drawn},
                 {product: fit.lognormal for product, fit in lives.products.items() if product in drawn},
+                shaped.fit_suspensions.groupby("product")["warranty_months"].max().to_dict(),
             ),
-            "expected_returns_by_month": charts.expected_returns_by_month(forecast.by_month, drawn),
+            "expected_returns_by_month": charts.expected_returns_by_month(
+                forecast.by_month, drawn, as_of_date=shaped.as_of_date, returns_to_date=shaped.returns_by_failure_month,
+                intervals=by_calendar_month, costs=reserve.forecast, currency=charts.currency_of(reserve.by_product),
+            ),
             "failure_mode_pareto": charts.failure_mode_pareto(only_drawn(shaped.returns_by_failure_mode)),
         },
         lambda f: (f"{len(f)} figures of {len(drawn)} product line(s)" if config.draw_charts
@@ -275,7 +279,10 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         chart_note=chart_note,
     )
     # each chart drawn to PNG once: the same bytes go to <name>.png and into report.html, in one publish
-    pngs = {name: figure_png(figure) for name, figure in figures.items()}
+    pngs = {
+        name: figure_png(charts.with_footer(figure, manifest.run_id, manifest.as_of_date))
+        for name, figure in figures.items()
+    }
     report_html = render_html_report(
         manifest=manifest,
         life_model=lives.table,
