@@ -301,9 +301,12 @@ def render_report(
         "- `cumulative_returns_per_unit.png`: cumulative returns per 1,000 units by months in service, one line"
         " per build month; flagged months in colour.",
         "- `weibull_probability_plot.png`: life-table fraction failed with Greenwood bounds, fitted Weibull line "
-        "and its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
-        "- `expected_returns_by_month.png`: expected future returns per calendar month.",
-        "- `failure_mode_pareto.png`: returns to date by failure code, largest first, with the cumulative share.",
+        "and its Wald band to the warranty end; points bending away from the line mean the Weibull does not describe"
+        " the returns.",
+        "- `expected_returns_by_month.png`: claims expected per calendar month after the as-of line with their"
+        " prediction band, the returns counted in the 12 months before it, and the expected cost per month.",
+        "- `failure_mode_pareto.png`: returns to date by failure code, largest first, with the cumulative share;"
+        " below, by build month (a code piled up in a few months is a batch defect).",
         "",
     ]
     return "\n".join(lines)
