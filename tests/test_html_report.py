@@ -311,7 +311,7 @@ def test_demo_page_embeds_the_published_charts(demo_page):
     folder = demo_page.parent
     images = {attributes["alt"]: attributes["src"] for tag, attributes in parsed.tags if tag == "img"}
     published = {path.stem: path.read_bytes() for path in folder.glob("*.png")}
-    assert set(images) == set(published) and len(published) == 6
+    assert set(images) == set(published) and len(published) == 7
     for name, source in images.items():
         assert base64.b64decode(source.split(",", 1)[1], validate=True) == published[name]
     text = " ".join(parsed.text)
@@ -325,7 +325,7 @@ def test_demo_page_in_chromium_dom_has_no_broken_image(demo_page, tmp_path):
     dom = _run_chromium(tmp_path, "--dump-dom", demo_page.resolve().as_uri()).stdout.decode("utf-8")
     parsed = parse(dom)
     sources = [attributes.get("src") or "" for tag, attributes in parsed.tags if tag == "img"]
-    assert len(sources) == 6
+    assert len(sources) == 7
     for source in sources:
         assert source.startswith("data:image/png;base64,")
         try:

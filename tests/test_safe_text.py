@@ -81,7 +81,10 @@ def test_charts_draw_hostile_product_and_failure_code_names():
     titles = {a.get_title() for a in heatmap.axes if a.get_visible()}
     assert r"\$x: returns per 1,000 unit-months" in titles
     legend = [t.get_text() for t in by_month.axes[0].get_legend().get_texts()]
-    assert len(legend) == len(names)  # "_hidden" is not dropped from the legend
+    # one legend entry per product, "_hidden" (a name matplotlib would leave out) included, after which the
+    # chart's own entries explain its marks
+    assert sorted(legend[:len(names)]) == sorted(chart_text(name) for name in names)
+    assert not set(legend[len(names):]) & {chart_text(name) for name in names}
 
 
 def test_one_line_escapes_bidirectional_overrides():

@@ -218,6 +218,10 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
                 intervals=by_calendar_month, costs=reserve.forecast, currency=charts.currency_of(reserve.by_product),
             ),
             "failure_mode_pareto": charts.failure_mode_pareto(only_drawn(shaped.returns_by_failure_mode)),
+            "reserve_for_finance": charts.reserve_for_finance(
+                reserve.by_product, reserve.forecast, movement.roll_forward, as_of_date=shaped.as_of_date,
+                currency=charts.currency_of(reserve.by_product), products=drawn,
+            ),
         },
         lambda f: (f"{len(f)} figures of {len(drawn)} product line(s)" if config.draw_charts
                    else "not drawn (--no-charts)"),

@@ -70,8 +70,12 @@ CHART_CAPTIONS = {
     " month; flagged months in colour.",
     "weibull_probability_plot": "Life-table fraction failed with Greenwood bounds, the fitted Weibull line and"
     " its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
-    "expected_returns_by_month": "Expected future returns per calendar month, stacked by product.",
-    "failure_mode_pareto": "Returns to date by failure code, largest first, with the cumulative share.",
+    "expected_returns_by_month": "Claims expected per calendar month after the as-of line, with their prediction"
+    " band, beside the returns counted in the 12 months before it; below, the expected cost per month.",
+    "failure_mode_pareto": "Returns to date by failure code, largest first, with the cumulative share; below, by"
+    " build month (a code piled up in a few months is a batch defect).",
+    "reserve_for_finance": "The reserve by product (current and non-current, with its prediction interval), the"
+    " expected cost by month still to come, and the movement since the last run.",
 }
 
 # reserve_by_product columns the product table shows (or folds into another column); any other column

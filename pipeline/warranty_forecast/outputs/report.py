@@ -307,6 +307,8 @@ def render_report(
         " prediction band, the returns counted in the 12 months before it, and the expected cost per month.",
         "- `failure_mode_pareto.png`: returns to date by failure code, largest first, with the cumulative share;"
         " below, by build month (a code piled up in a few months is a batch defect).",
+        "- `reserve_for_finance.png`: the reserve by product (current / non-current, prediction interval), the"
+        " expected cost by month still to come, and the movement since the last run.",
         "",
     ]
     return "\n".join(lines)
