@@ -509,6 +509,16 @@ def test_finance_chart_before_any_earlier_run_says_so():
     assert "no reserve" in charts.reserve_for_finance(reserve.iloc[0:0], costs, as_of_date=AS_OF).axes[0].texts[0].get_text()
 
 
+def test_finance_chart_with_no_product_reserve_draws_an_empty_scale():
+    # a run whose products have no reserve yet (every amount NaN) must still draw, not fail on NaN axis
+    # limits (found by a clean-clone run of the stale-extracts test; common practice, no source)
+    reserve, costs, _ = reserve_frames()
+    empty = reserve.assign(**{c: np.nan for c in reserve.columns if c.startswith("reserve")})
+    figure = charts.reserve_for_finance(empty, costs, None, as_of_date=AS_OF)
+    figure.savefig(io.BytesIO(), format="png", dpi=30)
+    assert figure.axes[0].get_xlim() == (0.0, 1.0)
+
+
 def test_pareto_by_build_month_shows_a_code_concentrated_in_one_month():
     rows = [("P", dt.date(2024, m, 1), "WEAR", 10) for m in (1, 2, 3)]
     rows += [("P", dt.date(2024, 2, 1), "BATCH", 25), ("P", dt.date(2024, 3, 1), "RARE", 1)]

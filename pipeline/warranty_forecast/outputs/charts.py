@@ -1191,8 +1191,11 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
         axis.annotate(_money(amount), (amount, position), xytext=(6, 6), textcoords="offset points", va="bottom")
     axis.set_yticks(positions, [chart_text(p) for p in rows.index])
     axis.xaxis.set_major_formatter(FuncFormatter(_money))
-    axis.set_xlim(0, float(np.nanmax(np.concatenate([rows["reserve"].to_numpy(dtype=float),
-                                                     rows.get("reserve_upper", rows["reserve"]).to_numpy(dtype=float)]))) * 1.3)
+    amounts = np.concatenate([rows["reserve"].to_numpy(dtype=float),
+                              rows.get("reserve_upper", rows["reserve"]).to_numpy(dtype=float)])
+    finite = amounts[np.isfinite(amounts)]
+    largest = float(finite.max()) if finite.size else 0.0  # no product with a reserve: an empty scale, not NaN
+    axis.set_xlim(0, largest * 1.3 if largest > 0 else 1.0)
     axis.set_xlabel(f"reserve{unit}")
     axis.set_title("By product: current part solid, non-current hatched")
     axis.legend(loc="lower right")
