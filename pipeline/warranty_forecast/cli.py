@@ -23,7 +23,7 @@ from types import FrameType
 from typing import Iterator, Sequence
 
 from warranty_forecast import __version__, exit_codes
-from warranty_forecast.config import load_config, parse_date
+from warranty_forecast.config import ENGINES, load_config, parse_date
 from warranty_forecast.outputs.safe_text import one_line
 from warranty_forecast.errors import (
     AlreadyRunningError,
@@ -134,7 +134,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="write the tables, report and manifest without the PNG charts (faster)",
     )
     run.add_argument(
-        "--engine", choices=("duckdb", "spark"), default=None,
+        "--engine", choices=ENGINES, default=None,
         help="the engine of the shaping stage: duckdb (default, or [run] engine of --config) or spark (needs the"
         " extra .[spark]; see README: Running the shaping on Spark)",
     )

@@ -174,6 +174,9 @@ def _folder(value: Any) -> str:
     return value
 
 
+ENGINES = ("duckdb", "spark")  # the shaping stage's engines: same models, same tables
+
+
 @dataclass(frozen=True)
 class RunSettings:
     """[run]: when to warn about stale extracts and when to refuse a run; DuckDB's memory and spill folder."""
@@ -191,7 +194,7 @@ class RunSettings:
     # the shaping stage's engine when --engine is not given: duckdb, or spark (README: Running the shaping on
     # Spark); and the Spark master URL when --spark-master is not given (None: $WARRANTY_FORECAST_SPARK_MASTER,
     # else local[2]). Both operational: the run id names a Spark run by its engine, not by these keys.
-    engine: str = _key("duckdb", _one_of(("duckdb", "spark")))
+    engine: str = _key("duckdb", _one_of(ENGINES))
     spark_master: str | None = _key(None, _spark_master)
 
 
@@ -387,9 +390,6 @@ def parse_date(text: str, what: str) -> dt.date:
         return dt.date.fromisoformat(text)
     except ValueError:
         raise ConfigError(f"{what}: {text!r} is not a date in YYYY-MM-DD form") from None
-
-
-ENGINES = ("duckdb", "spark")  # the shaping stage's engines: same models, same tables
 
 
 def load_config(

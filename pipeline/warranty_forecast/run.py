@@ -196,6 +196,8 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     def only_drawn(frame):  # type: ignore[no-untyped-def]
         return frame[frame["product"].isin(drawn)]
 
+    currency = charts.currency_of(reserve.by_product)
+
     figures = clock.run(
         "charts",
         lambda: {} if not config.draw_charts else {
@@ -215,12 +217,12 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
             ),
             "expected_returns_by_month": charts.expected_returns_by_month(
                 forecast.by_month, drawn, as_of_date=shaped.as_of_date, returns_to_date=shaped.returns_by_failure_month,
-                intervals=by_calendar_month, costs=reserve.forecast, currency=charts.currency_of(reserve.by_product),
+                intervals=by_calendar_month, costs=reserve.forecast, currency=currency,
             ),
             "failure_mode_pareto": charts.failure_mode_pareto(only_drawn(shaped.returns_by_failure_mode)),
             "reserve_for_finance": charts.reserve_for_finance(
                 reserve.by_product, reserve.forecast, movement.roll_forward, as_of_date=shaped.as_of_date,
-                currency=charts.currency_of(reserve.by_product), products=drawn,
+                currency=currency, products=drawn,
             ),
         },
         lambda f: (f"{len(f)} figures of {len(drawn)} product line(s)" if config.draw_charts

@@ -370,11 +370,7 @@ def cause_table(alerts: pd.DataFrame, returns_by_code: pd.DataFrame) -> pd.DataF
     """
     frames = []
     codes_of = rows_by_product(returns_by_code)
-    flagged_products = set(alerts.loc[alerts["is_flagged"], "product"])
-    for product, months in alerts[alerts["product"].isin(flagged_products)].groupby("product", sort=True):
-        flagged = months[months["is_flagged"]]
-        if not len(flagged):
-            continue
+    for product, flagged in alerts[alerts["is_flagged"]].groupby("product", sort=True):
         rows = codes_of[product]
         in_baseline = rows[~rows["build_month"].isin(set(flagged["build_month"]))]
         by_code = in_baseline.groupby("failure_code")["returns"].sum()
