@@ -500,6 +500,32 @@ def test_finance_chart_current_split_interval_months_and_movement():
     assert figure._suptitle.get_text().startswith("Warranty reserve to book as of 2024-11-30: 450.00 (EUR), 310.00")
 
 
+def test_cost_intervals_by_month_are_whiskers_on_both_cost_panels():
+    # the reserve_by_calendar_month table's interval (all products) as one whisker per month, from cost_lower
+    # to cost_upper at the month's bar; a month without an interval gets none
+    reserve, costs, roll = reserve_frames()
+    months = [dt.date(2024, 12, 1), dt.date(2025, 11, 1), dt.date(2025, 12, 1)]
+    cost_by_month = pd.DataFrame({"month": months, "expected_cost": [130.0, 120.0, 135.0],
+                                  "cost_lower": [100.0, 90.0, np.nan], "cost_upper": [170.0, 160.0, np.nan]})
+    figure = charts.reserve_for_finance(reserve, costs, roll, as_of_date=AS_OF, cost_by_month=cost_by_month)
+    drawn(figure)
+    whisker = next(c for c in figure.axes[1].collections if c.get_gid() == "cost-interval")
+    spans = sorted((s[0, 0], min(s[:, 1]), max(s[:, 1])) for s in whisker.get_segments())
+    assert spans == [(2024 * 12 + 11, 100.0, 170.0), (2025 * 12 + 10, 90.0, 160.0)]
+    assert "5-95% prediction interval" in [t.get_text() for t in figure.axes[1].get_legend().get_texts()]
+    forecast, intervals, returns, month_costs = forecast_frames()
+    month_table = month_costs.groupby("month", as_index=False)["expected_cost"].sum()
+    month_table = month_table.assign(cost_lower=month_table["expected_cost"] * 0.8,
+                                     cost_upper=month_table["expected_cost"] * 1.3)
+    figure = charts.expected_returns_by_month(forecast, as_of_date=AS_OF, intervals=intervals, costs=month_costs,
+                                              cost_by_month=month_table)
+    drawn(figure)
+    whisker = next(c for c in figure.axes[1].collections if c.get_gid() == "cost-interval")
+    tops = sorted(max(s[:, 1]) for s in whisker.get_segments())
+    assert tops == pytest.approx(sorted(month_table["expected_cost"] * 1.3))
+    assert [s[0, 0] for s in whisker.get_segments()] == [n + 0.5 for n in charts._month_numbers(month_table["month"])]
+
+
 def test_finance_chart_before_any_earlier_run_says_so():
     reserve, costs, _ = reserve_frames()
     figure = charts.reserve_for_finance(reserve.drop(columns=["reserve_lower", "reserve_upper"]), costs, None,

@@ -42,7 +42,7 @@ EXPECTED_FILES = {
     "safety_term_claims.parquet", "flagged_build_month_lives.parquet", "observed_to_expected_by_build_month.png",
     "reporting_delay.parquet", "forecast_by_calendar_month.parquet", "forecast_intervals.parquet",
     "cumulative_returns_per_unit.png", "report.html", "reserve_by_product.csv", "reserve.csv", "roll_forward.parquet",
-    "reserve_for_finance.png",
+    "reserve_for_finance.png", "reserve_by_calendar_month.parquet",
 }
 
 

@@ -22,6 +22,20 @@ def test_results_come_back_in_the_order_given():
     assert parallel.map_products(_square_plus, arguments, workers=1) == [i * i + 1 for i in range(50)]
 
 
+def test_fold_sees_each_result_in_the_order_given_and_its_return_is_kept():
+    arguments = [(i, 1) for i in range(50)]
+    for workers, least in ((2, 2), (1, None)):
+        seen: list[int] = []
+
+        def fold(result: int) -> int:
+            seen.append(result)
+            return -result
+
+        got = parallel.map_products(_square_plus, arguments, workers=workers, min_products=least, fold=fold)
+        assert seen == [i * i + 1 for i in range(50)]
+        assert got == [-(i * i + 1) for i in range(50)]
+
+
 def _sigterm_handler(_):
     import signal
 

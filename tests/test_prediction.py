@@ -17,6 +17,7 @@ from warranty_forecast.stages.forecast import CompetingRisks, expected_future_re
 from warranty_forecast.stages.prediction import (
     BY_BUILD_MONTH_COLUMNS,
     BY_PRODUCT_COLUMNS,
+    COST_BY_MONTH_COLUMNS,
     NEXT_12_MONTHS,
     TO_WARRANTY_END,
     ClaimCosts,
@@ -366,6 +367,43 @@ def test_reserve_intervals_with_a_fixed_cost_follow_the_counts():
     wide = predict_returns(data, {"P": normal(4.0)}, AS_OF, draws=4000, seed=3,
                            claim_costs={"P": ClaimCosts.from_summary(100.0, 80.0, 30)}).reserve_by_product.iloc[0]
     assert wide["reserve_upper"] - wide["reserve_lower"] > reserve["reserve_upper"] - reserve["reserve_lower"]
+
+
+def test_cost_by_calendar_month_sums_the_products_draw_by_draw():
+    # parameters known (zero covariance) and one fixed cost of 100: a product's month cost is 100 x Poisson(mu_pm)
+    # and the run's is 100 x Poisson(mu_Pm + mu_Qm); sample quantiles of 4,000 draws within 2 counts of
+    # scipy.stats.poisson.ppf. A sum of the products' quantiles would be wider than the quantile of the sum.
+    two = pd.concat([rows(), rows(observed_age_months=[2.2, 1.9, 1.0, 0.4]).assign(product="Q")], ignore_index=True)
+    costs = {"P": ClaimCosts.fixed(100.0), "Q": ClaimCosts.fixed(100.0)}
+    result = predict_returns(two, {"P": plug_in(), "Q": plug_in()}, AS_OF, draws=4000, seed=5, claim_costs=costs)
+    by_month = result.by_month
+    assert by_month["expected_cost"].to_numpy() == pytest.approx(100.0 * by_month["expected_returns"].to_numpy(), rel=1e-12)
+    for row in by_month.itertuples(index=False):
+        drawn = np.array([row.cost_lower, row.cost_median, row.cost_upper]) / 100.0
+        assert np.abs(drawn - stats.poisson.ppf(LEVELS, row.expected_returns)).max() <= 2
+    assert (by_month["cost_lower"] <= by_month["cost_median"]).all() and (by_month["cost_median"] <= by_month["cost_upper"]).all()
+    mu = by_month.groupby("month")["expected_returns"].sum()
+    table = result.cost_by_month.set_index("month")
+    assert list(table.index) == list(mu.index)
+    assert table["products"].tolist() == by_month.groupby("month")["product"].nunique().tolist()
+    assert table["expected_cost"].to_numpy() == pytest.approx(100.0 * mu.to_numpy(), rel=1e-12)
+    for month, mean in mu.items():
+        drawn = table.loc[month, ["cost_lower", "cost_median", "cost_upper"]].to_numpy(dtype=float) / 100.0
+        assert np.abs(drawn - stats.poisson.ppf(LEVELS, mean)).max() <= 2
+    both = by_month.groupby("month").filter(lambda g: len(g) == 2 and g["expected_returns"].min() > 20)
+    assert both["month"].nunique() >= 3
+    for month, group in both.groupby("month"):
+        summed_quantiles = group["cost_upper"].sum() - group["cost_lower"].sum()
+        assert table.loc[month, "cost_upper"] - table.loc[month, "cost_lower"] < summed_quantiles
+    # a product without costs adds nothing to the run's month costs and has no cost columns
+    alone = predict_returns(two, {"P": plug_in(), "Q": plug_in()}, AS_OF, draws=400, seed=5, claim_costs={"P": costs["P"]})
+    assert alone.by_month.loc[alone.by_month["product"] == "Q", "cost_upper"].isna().all()
+    p_months = alone.by_month[alone.by_month["product"] == "P"]
+    assert alone.cost_by_month["expected_cost"].to_numpy() == pytest.approx(p_months["expected_cost"].to_numpy(), rel=1e-12)
+    assert set(alone.cost_by_month["products"]) == {1}
+    # no costs at all: an empty table with its columns
+    none = predict_returns(two, {"P": plug_in(), "Q": plug_in()}, AS_OF, draws=20, seed=5)
+    assert none.cost_by_month.empty and list(none.cost_by_month.columns) == list(COST_BY_MONTH_COLUMNS)
 
 
 # ------------------------------------------------------------------------------------------------

@@ -24,6 +24,7 @@ from warranty_forecast.stages.reserve import (
     claim_timing,
     discount_factors,
     inflation_factors,
+    reserve_by_calendar_month,
     with_prediction_intervals,
     years_from_as_of,
 )
@@ -233,6 +234,70 @@ def test_prediction_intervals_are_inflated_like_the_reserve_and_unchanged_at_rat
         assert table[["reserve_lower", "reserve_median", "reserve_upper"]].iloc[0].tolist() == pytest.approx(
             [100.0 * factor, 400.0 * factor, 800.0 * factor], abs=0.005
         )
+
+
+def test_cost_intervals_by_calendar_month_are_inflated_per_month_with_the_other_claims_on_top():
+    # by hand: a month's interval = (drawn first-failure cost + claims beyond the first failures x cost per
+    # claim) x that month's inflation factor (claim_timing), to the cent; the run's table sums the products'
+    # expectations and takes the per-draw sums' quantiles (a stand-in for stages.prediction's cost_by_month)
+    as_of = dt.date(2024, 12, 31)
+    months = [dt.date(2025, 1, 1), dt.date(2026, 6, 1)]
+    forecast = pd.concat([_forecast({months[0]: 3.0, months[1]: 1.0}, "A"), _forecast({months[0]: 2.0}, "B")],
+                         ignore_index=True)
+    forecast.loc[0, "expected_unreported_returns"] = 0.5  # A, January 2025: half a claim not yet reported
+    forecast.loc[0, "expected_claims"] = 3.5
+    settings = ReserveSettings(cost_per_claim=100.0, annual_inflation_rate=0.04)
+    booked = book_reserve(_summary(("A", "B")), _no_observed_costs(("A", "B")), forecast,
+                          {"A": "forecast (weibull)", "B": "forecast (weibull)"}, {"A", "B"}, settings, as_of_date=as_of)
+    prediction = SimpleNamespace(
+        by_build_month=pd.DataFrame({
+            "product": ["A", "B"], "build_month": [pd.Timestamp(BUILD)] * 2, "returns_lower": [1, 0],
+            "returns_median": [4, 2], "returns_upper": [8, 5], "reserve_lower": [100.0, 0.0],
+            "reserve_median": [400.0, 200.0], "reserve_upper": [800.0, 500.0],
+        }),
+        reserve_by_product=pd.DataFrame({
+            "product": ["A", "B"], "reserve_lower": [100.0, 0.0], "reserve_median": [400.0, 200.0],
+            "reserve_upper": [800.0, 500.0],
+        }),
+        by_product=pd.DataFrame({
+            "product": ["A", "B"], "horizon": ["to_warranty_end"] * 2, "lower": [1, 0], "median": [4, 2], "upper": [8, 5],
+        }),
+        by_month=pd.DataFrame({
+            "product": ["A", "A", "B"], "month": [pd.Timestamp(m) for m in (*months, months[0])],
+            "returns_lower": [0, 0, 0], "returns_median": [3, 1, 2], "returns_upper": [6, 3, 5],
+            "expected_cost": [300.0, 100.0, 200.0], "cost_lower": [100.0, 0.0, 0.0],
+            "cost_median": [300.0, 100.0, 200.0], "cost_upper": [600.0, 300.0, 500.0],
+        }),
+        cost_by_month=pd.DataFrame({
+            "month": months, "products": [2, 1], "expected_cost": [500.0, 100.0], "cost_lower": [200.0, 0.0],
+            "cost_median": [500.0, 100.0], "cost_upper": [900.0, 300.0],
+        }),
+    )
+    booked, calendar = with_prediction_intervals(booked, prediction)
+    factor = claim_timing(months, as_of, settings).set_index("month")["inflation_factor"]
+    assert factor.iloc[0] > 1.0 and factor.iloc[1] > factor.iloc[0]
+    a_january = calendar[(calendar["product"] == "A") & (calendar["month"] == months[0])].iloc[0]
+    assert a_january[["cost_lower", "cost_median", "cost_upper"]].tolist() == pytest.approx(
+        [round((v + 50.0) * factor.iloc[0], 2) for v in (100.0, 300.0, 600.0)], abs=1e-9
+    )
+    assert a_january["expected_cost"] == pytest.approx(350.0 * factor.iloc[0], rel=1e-12)
+    assert a_january["currency"] == "XXX"
+    table = reserve_by_calendar_month(booked, prediction, as_of).set_index("month")
+    assert table.loc[months[0], ["cost_lower", "cost_median", "cost_upper"]].tolist() == pytest.approx(
+        [round((v + 50.0) * factor.iloc[0], 2) for v in (200.0, 500.0, 900.0)], abs=1e-9
+    )
+    assert table.loc[months[1], "cost_upper"] == pytest.approx(round(300.0 * factor.iloc[1], 2), abs=1e-9)
+    assert table["products"].tolist() == [2, 1]
+    assert table["is_current"].tolist() == [True, False]  # 2026-06 is past the as-of month + 12
+    assert table["expected_claims"].tolist() == pytest.approx([5.5, 1.0])
+    # the months' expected costs add up to the future claims' reserve of the products
+    assert table["expected_cost"].sum() == pytest.approx(booked.by_product["reserve_future_claims"].sum(), rel=1e-12)
+    assert (table["currency"] == "XXX").all()
+    # a run with no cost per claim anywhere: an empty table with its columns
+    unpriced = book_reserve(_summary(), _no_observed_costs(), _forecast({months[0]: 1.0}), {"A": "forecast (weibull)"},
+                            {"A"}, ReserveSettings(), as_of_date=as_of)
+    empty = reserve_by_calendar_month(unpriced, SimpleNamespace(cost_by_month=pd.DataFrame()), as_of)
+    assert empty.empty and "cost_upper" in empty.columns
 
 
 # --- configuration ----------------------------------------------------------------------------------------

@@ -37,7 +37,7 @@ from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reporting_delay import reporting_delay_stage
 from warranty_forecast.stages.prediction import claim_costs_by_product, predict_returns
 from warranty_forecast.stages.parallel import worker_count
-from warranty_forecast.stages.reserve import book_reserve, with_prediction_intervals
+from warranty_forecast.stages.reserve import book_reserve, reserve_by_calendar_month, with_prediction_intervals
 from warranty_forecast.stages.roll_forward import ReserveMovement, reserve_movement
 from warranty_forecast.stages.shaping import shape_extracts
 
@@ -165,6 +165,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         lambda p: f"{p.draws} draws per product at levels {', '.join(f'{v:g}' for v in p.levels)}",
     )
     reserve, by_calendar_month = with_prediction_intervals(reserve, prediction)
+    cost_by_calendar_month = reserve_by_calendar_month(reserve, prediction, shaped.as_of_date)
     # the runs already published under the output root: the last one before this as-of date (change since
     # the last run) and the last month-end close (the roll-forward's opening)
     published = published_runs(config.out_dir)
@@ -218,11 +219,12 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
             "expected_returns_by_month": charts.expected_returns_by_month(
                 forecast.by_month, drawn, as_of_date=shaped.as_of_date, returns_to_date=shaped.returns_by_failure_month,
                 intervals=by_calendar_month, costs=reserve.forecast, currency=currency,
+                cost_by_month=cost_by_calendar_month,
             ),
             "failure_mode_pareto": charts.failure_mode_pareto(only_drawn(shaped.returns_by_failure_mode)),
             "reserve_for_finance": charts.reserve_for_finance(
                 reserve.by_product, reserve.forecast, movement.roll_forward, as_of_date=shaped.as_of_date,
-                currency=currency, products=drawn,
+                currency=currency, products=drawn, cost_by_month=cost_by_calendar_month,
             ),
         },
         lambda f: (f"{len(f)} figures of {len(drawn)} product line(s)" if config.draw_charts
@@ -249,6 +251,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         "reporting_delay": delays.table,
         "forecast": reserve.forecast,
         "forecast_by_calendar_month": by_calendar_month,
+        "reserve_by_calendar_month": cost_by_calendar_month,
         "forecast_intervals": prediction.by_product,
         "reserve": reserve.by_build_month,
         "reserve_by_product": reserve.by_product,

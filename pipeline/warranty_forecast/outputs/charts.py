@@ -855,6 +855,7 @@ def expected_returns_by_month(
     currency: str = "",
     interval_label: str = "5-95%",
     history_months: int = 12,
+    cost_by_month: pd.DataFrame | None = None,
 ) -> Figure:
     """Claims per calendar month: the returns counted in the `history_months` months to the as-of date's
     month (hollow markers, thin line) and the forecast after it (filled markers, thick line), one series
@@ -867,7 +868,9 @@ def expected_returns_by_month(
     returns_lower, returns_upper: the first failures' prediction interval); the band is that interval plus
     the other claims at their expected values. `returns_to_date`: counted returns with product,
     claim_month, returns (returns_by_failure_month). `costs`: product, month, expected_cost (the published
-    forecast). Months are calendar months; the x axis holds month numbers (year x 12 + month - 1), each
+    forecast). `cost_by_month`: the reserve_by_calendar_month table (month, expected_cost, cost_lower,
+    cost_upper: every product's cost in the month): its interval as a whisker on each month's stack.
+    Months are calendar months; the x axis holds month numbers (year x 12 + month - 1), each
     month's value drawn at its middle (+ 0.5), the as-of line at as-of month + day / days in the month.
     """
     if forecast.empty:
@@ -909,6 +912,8 @@ def expected_returns_by_month(
     )
     if with_cost:
         _cost_panel(axes[1], costs, shown, others, currency)
+        if cost_by_month is not None and _cost_whiskers(axes[1], cost_by_month, 0.5, f"{interval_label} prediction interval"):
+            axes[1].legend(loc="upper right", title="product")
     months = np.concatenate([_month_numbers(v.index) for v in [*series.values(), *past_series.values()]])
     first, last = int(months.min()), int(months.max())
     if as_of_date is not None:
@@ -1003,6 +1008,23 @@ def _returns_by_claim_month(returns: pd.DataFrame, as_of_date: dt.date | None, h
         numbers = _month_numbers(table.index)
         table = table[(numbers <= last) & (numbers > last - history_months)]
     return table
+
+
+def _cost_whiskers(axis: Axes, cost_by_month: pd.DataFrame, offset: float, label: str) -> bool:
+    """Each month's cost interval (cost_lower to cost_upper, all products) as a black whisker at month number
+    + `offset`; False (nothing drawn) when the table has no interval."""
+    if not len(cost_by_month) or not {"cost_lower", "cost_upper", "expected_cost"} <= set(cost_by_month.columns):
+        return False
+    rows = cost_by_month[np.isfinite(cost_by_month["cost_lower"].astype(float))
+                         & np.isfinite(cost_by_month["cost_upper"].astype(float))]
+    if not len(rows):
+        return False
+    x = _month_numbers(rows["month"]) + offset
+    centre = rows["expected_cost"].to_numpy(dtype=float)
+    low, high = rows["cost_lower"].to_numpy(dtype=float), rows["cost_upper"].to_numpy(dtype=float)
+    axis.errorbar(x, centre, yerr=np.vstack([np.maximum(centre - low, 0.0), np.maximum(high - centre, 0.0)]),
+                  fmt="none", ecolor=OKABE_ITO["black"], elinewidth=0.9, capsize=1.5, label=label, gid="cost-interval")
+    return True
 
 
 def _cost_panel(axis: Axes, costs: pd.DataFrame, shown: list[str], others: list[str], currency: str) -> None:
@@ -1117,6 +1139,7 @@ def reserve_for_finance(
     products: Iterable[str] | None = None,
     current_months: int = 12,
     interval_label: str = "5-95%",
+    cost_by_month: pd.DataFrame | None = None,
 ) -> Figure:
     """The reserve as finance reads it, in three panels:
 
@@ -1125,8 +1148,10 @@ def reserve_for_finance(
       interval (reserve_lower / reserve_upper) as a whisker; `products` only, the others as one row.
     * by month still to come (top right): the forecast's expected cost per calendar month (`costs`:
       product, month, expected_cost), current months solid, later months hatched, a dotted line where the
-      current part ends (after as-of month + current_months). Open claims and handling are in the reserve
-      but not in any month: the title gives them.
+      current part ends (after as-of month + current_months); with `cost_by_month` (the
+      reserve_by_calendar_month table: month, expected_cost, cost_lower, cost_upper), each month's
+      prediction interval as a whisker. Open claims and handling are in the reserve but not in any month:
+      the title gives them.
     * movement since the last run (bottom): the roll-forward's total row as a waterfall, opening reserve +
       accruals for units shipped - claims settled +/- changes in estimate = closing reserve (a sentence when
       there is no earlier run).
@@ -1142,7 +1167,8 @@ def reserve_for_finance(
     movement_axis = figure.add_subplot(grid[1, :])
     unit = f" ({chart_text(currency, 12)})" if currency else " (currency units)"
     _reserve_by_product_panel(product_axis, reserve_by_product, products, unit, interval_label)
-    _reserve_by_month_panel(month_axis, reserve_by_product, costs, as_of_date, current_months, unit)
+    _reserve_by_month_panel(month_axis, reserve_by_product, costs, as_of_date, current_months, unit,
+                            cost_by_month, interval_label)
     _movement_panel(movement_axis, roll_forward, unit)
     total = float(reserve_by_product["reserve"].sum())
     current = float(reserve_by_product["reserve_current"].sum()) if "reserve_current" in reserve_by_product else math.nan
@@ -1203,7 +1229,8 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
 
 
 def _reserve_by_month_panel(axis: Axes, reserve: pd.DataFrame, costs: pd.DataFrame, as_of_date: dt.date,
-                            current_months: int, unit: str) -> None:
+                            current_months: int, unit: str, cost_by_month: pd.DataFrame | None = None,
+                            interval_label: str = "5-95%") -> None:
     if costs is None or not len(costs) or "expected_cost" not in costs:
         _panel_message(axis, "By month still to come", "no expected cost by month")
         return
@@ -1217,6 +1244,8 @@ def _reserve_by_month_panel(axis: Axes, reserve: pd.DataFrame, costs: pd.DataFra
              edgecolor="white", linewidth=0.4, label="non-current", gid="month-non-current")
     axis.axvline(last_current + 0.5, color=OKABE_ITO["black"], linestyle=":", linewidth=1.2, gid="current-end",
                  label=f"current ends with {_month_label(last_current)}")
+    if cost_by_month is not None:
+        _cost_whiskers(axis, cost_by_month, 0.0, f"{interval_label} prediction interval")
     numbers, labels = _month_ticks(int(months.min()), int(months.max()))
     axis.set_xticks(numbers, labels, rotation=90)
     axis.yaxis.set_major_formatter(FuncFormatter(_money))

@@ -198,7 +198,10 @@ def render_report(
         " carry the fitted model's uncertainty and the counts' randomness, not the risk that the model itself is"
         " wrong."
         " Per build month: `reserve.parquet`; per calendar month: `forecast.parquet`,"
-        " `forecast_by_calendar_month.parquet`; next 12 months: `forecast_intervals.parquet`."
+        " `forecast_by_calendar_month.parquet` (per product, with the month's cost interval) and"
+        " `reserve_by_calendar_month.parquet` (the future claims' cost of all products each month, with its"
+        " interval: each month's own, so the months' bounds do not add up); next 12 months:"
+        " `forecast_intervals.parquet`."
         " added_by_flagged_months: the part of the reserve that comes from forecasting the flagged build months"
         " with their own life rather than with their product's model (see Build-month alerts).",
         "",

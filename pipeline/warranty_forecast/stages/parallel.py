@@ -51,24 +51,32 @@ def map_products(
     arguments: Sequence[tuple[Any, ...]],
     workers: int,
     min_products: int | None = None,
+    fold: Callable[[Result], Result] | None = None,
 ) -> list[Result]:
     """[function(*a) for a in arguments], in worker processes when `workers` > 1 and there are at least
     `min_products` items (default MIN_PRODUCTS_FOR_WORKERS; `function` must be a module-level function, its
-    arguments and result picklable)."""
+    arguments and result picklable). `fold`: called on each result as it arrives, in the order given; what
+    it returns is kept (e.g. a running sum takes a large array out of each result, so the results of
+    thousands of products are never all held at once)."""
     min_products = MIN_PRODUCTS_FOR_WORKERS if min_products is None else min_products
+    keep = fold if fold is not None else _same
     if workers <= 1 or len(arguments) < min_products or "fork" not in multiprocessing.get_all_start_methods():
-        return [function(*items) for items in arguments]
+        return [keep(function(*items)) for items in arguments]
     chunk = max(1, len(arguments) // (workers * 4))
     pool = ProcessPoolExecutor(
         max_workers=workers, mp_context=multiprocessing.get_context("fork"), initializer=_stop_on_signals
     )
     try:
-        results = list(pool.map(_call, [(function, items) for items in arguments], chunksize=chunk))
+        results = [keep(result) for result in pool.map(_call, [(function, items) for items in arguments], chunksize=chunk)]
     except BaseException:
         pool.shutdown(wait=False, cancel_futures=True)
         raise
     pool.shutdown(wait=True)
     return results
+
+
+def _same(result: Result) -> Result:
+    return result
 
 
 def _stop_on_signals() -> None:

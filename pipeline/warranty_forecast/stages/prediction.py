@@ -39,6 +39,13 @@ fitted parameters and (2) the randomness of the counts themselves. The predictiv
    matched to a mean, standard deviation and count, or a fixed cost (configured override). Quantiles of
    the totals per build month and per product (the product total per draw is the sum over its build
    months, so it is coherent with them).
+5. Cost by calendar month. Per draw, the returns of each calendar month are drawn the same way and
+   costed, giving quantiles per product x month; and, for the whole run, each draw's month totals are
+   summed over the products (products are independent: each has its own generator, so draw b of one
+   product added to draw b of another is a draw of the sum), giving quantiles of every month's cost over
+   all products. A quantile of a sum is not the sum of the quantiles, which is why the sum is formed per
+   draw. The sums are folded in as each product's draws arrive, in product order (the same bits for any
+   number of workers), so memory holds one month x draws array, not one per product.
 
 Everything is seeded: the generator of a product is numpy's default generator seeded with (seed, a
 CRC-32 of the product name), so a product's intervals do not depend on which other products are in the
@@ -87,7 +94,11 @@ BY_BUILD_MONTH_COLUMNS = (
     "product", "build_month", "expected_returns", "returns_lower", "returns_median", "returns_upper",
     "expected_reserve", "reserve_lower", "reserve_median", "reserve_upper",
 )
-BY_MONTH_COLUMNS = ("product", "month", "expected_returns", "returns_lower", "returns_median", "returns_upper")
+BY_MONTH_COLUMNS = (
+    "product", "month", "expected_returns", "returns_lower", "returns_median", "returns_upper",
+    "expected_cost", "cost_lower", "cost_median", "cost_upper",
+)
+COST_BY_MONTH_COLUMNS = ("month", "products", "expected_cost", "cost_lower", "cost_median", "cost_upper")
 BY_PRODUCT_COLUMNS = ("product", "horizon", "expected", "lower", "median", "upper")
 RESERVE_BY_PRODUCT_COLUMNS = (
     "product", "expected_reserve", "reserve_lower", "reserve_median", "reserve_upper", "cost_basis",
@@ -725,6 +736,7 @@ class _ProductPrediction:
     reserve: pd.DataFrame | None
     notes: tuple[str, ...]
     method: str
+    month_costs: FloatArray | None = None  # (draws, months of by_month): the cost drawn per month; folded, then dropped
 
 
 def _month_text(value: object) -> str:
@@ -829,6 +841,7 @@ def _predict_product(
     })
 
     reserve = None
+    month_costs = None
     if costs is not None:
         counts = rng.poisson(mu[:, :n_build])
         totals = costs.draw_totals(rng, counts)
@@ -844,7 +857,50 @@ def _predict_product(
             "reserve_upper": [product_total[2]],
             "cost_basis": [costs.basis],
         })
-    return _ProductPrediction(by_build_month, by_month, by_product, reserve, tuple(notes), method)
+        if n_month:  # drawn after the build months' totals: the generator's earlier draws stay as they were
+            month_costs = costs.draw_totals(rng, rng.poisson(mu[:, n_build:total]))
+            by_month["expected_cost"] = expected[n_build:total] * costs.mean
+            by_month["cost_lower"], by_month["cost_median"], by_month["cost_upper"] = _sample_quantiles(month_costs, levels)
+    return _ProductPrediction(by_build_month, by_month, by_product, reserve, tuple(notes), method, month_costs)
+
+
+class _MonthCostSums:
+    """Each calendar month's cost summed over the products, draw by draw (`fold` one product at a time,
+    in product order); `table` gives the quantiles of the sums (COST_BY_MONTH_COLUMNS)."""
+
+    def __init__(self, draws: int) -> None:
+        self._draws = draws
+        self._sums: dict[object, FloatArray] = {}
+        self._expected: dict[object, float] = {}
+        self._products: dict[object, int] = {}
+
+    def fold(self, timed: tuple[_ProductPrediction, float]) -> tuple[_ProductPrediction, float]:
+        piece, elapsed = timed
+        if piece.month_costs is None:
+            return timed
+        for column, (month, expected) in enumerate(zip(piece.by_month["month"], piece.by_month["expected_cost"])):
+            if month not in self._sums:
+                self._sums[month] = np.zeros(self._draws)
+                self._expected[month] = 0.0
+                self._products[month] = 0
+            self._sums[month] += piece.month_costs[:, column]
+            self._expected[month] += float(expected)
+            self._products[month] += 1
+        return dataclasses.replace(piece, month_costs=None), elapsed
+
+    def table(self, levels: tuple[float, ...]) -> pd.DataFrame:
+        months = sorted(self._sums)
+        if not months:
+            return pd.DataFrame({c: pd.Series(dtype=object) for c in COST_BY_MONTH_COLUMNS})
+        quantiles = _sample_quantiles(np.column_stack([self._sums[m] for m in months]), levels)
+        return pd.DataFrame({
+            "month": months,
+            "products": [self._products[m] for m in months],
+            "expected_cost": [self._expected[m] for m in months],
+            "cost_lower": quantiles[0],
+            "cost_median": quantiles[1],
+            "cost_upper": quantiles[2],
+        })
 
 
 # ------------------------------------------------------------------------------------------------
@@ -860,7 +916,11 @@ class ReturnsPrediction:
     * by_build_month (BY_BUILD_MONTH_COLUMNS): per product x build month, its returns until its warranties
       end; expected_returns is the plug-in forecast (as forecast.parquet sums it); reserve columns
       (currency units) are NaN for a product without costs; expected_reserve = expected x mean cost.
-    * by_month (BY_MONTH_COLUMNS): per product x calendar month (first day, `date`), summed over build months.
+    * by_month (BY_MONTH_COLUMNS): per product x calendar month (first day, `date`), summed over build months;
+      expected_cost / cost_* (currency units, NaN for a product without costs): the cost of the month's
+      returns at the product's mean cost per claim, not inflated or discounted.
+    * cost_by_month (COST_BY_MONTH_COLUMNS): per calendar month, the same cost summed over the products
+      with costs (`products` of them), its quantiles those of the per-draw sums.
     * by_product (BY_PRODUCT_COLUMNS): per product and horizon, "next_12_months" (the 12 calendar months
       after the as-of date's month; returns placed in calendar months as the forecast places them, at
       the midpoint of their month in service) and "to_warranty_end" (every future return still covered).
@@ -876,6 +936,9 @@ class ReturnsPrediction:
     by_month: pd.DataFrame
     by_product: pd.DataFrame
     reserve_by_product: pd.DataFrame
+    cost_by_month: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame({c: pd.Series(dtype=object) for c in COST_BY_MONTH_COLUMNS})
+    )
     methods: Mapping[str, str] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
     seconds: Mapping[str, float] = field(default_factory=dict)
@@ -947,7 +1010,8 @@ def predict_returns(
         for product, rows in suspensions.groupby("product", sort=True)
         if models.get(product) is not None
     ]
-    timed = map_products(_predict_product_timed, jobs, workers)
+    month_cost_sums = _MonthCostSums(draws)
+    timed = map_products(_predict_product_timed, jobs, workers, fold=month_cost_sums.fold)
     pieces = [piece for piece, _ in timed]
     for job, (piece, elapsed) in zip(jobs, timed):
         methods[job[0]] = piece.method
@@ -964,6 +1028,7 @@ def predict_returns(
         by_month=_concat([p.by_month for p in pieces], BY_MONTH_COLUMNS),
         by_product=_concat([p.by_product for p in pieces], BY_PRODUCT_COLUMNS),
         reserve_by_product=_concat(reserves, RESERVE_BY_PRODUCT_COLUMNS),
+        cost_by_month=month_cost_sums.table(levels),
         methods=methods,
         notes=tuple(note for p in pieces for note in p.notes),
         seconds=seconds,

@@ -516,7 +516,13 @@ INTERVAL_COLUMNS = ("returns_lower", "returns_median", "returns_upper", "reserve
 CALENDAR_MONTH_COLUMNS = (
     "product", "month", "expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims",
     "returns_lower", "returns_median", "returns_upper",
+    "currency", "expected_cost", "cost_lower", "cost_median", "cost_upper",
 )
+RESERVE_BY_CALENDAR_MONTH_COLUMNS = (
+    "month", "is_current", "products", "currency", "expected_claims", "expected_cost", "expected_cost_discounted",
+    "cost_lower", "cost_median", "cost_upper",
+)
+_COST_QUANTILES = ("cost_lower", "cost_median", "cost_upper")
 
 
 def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[ReserveResult, pd.DataFrame]:  # type: ignore[no-untyped-def]
@@ -569,16 +575,79 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     known = by_product["reserve_open_claims"] + by_product["reserve_handling"]
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
         by_product[column] = ((by_product[column].astype(float) + beyond) * inflation + known).round(2)
-    calendar = result.forecast.assign(month=pd.to_datetime(result.forecast["month"]).dt.date).groupby(
-        ["product", "month"], as_index=False
-    )[["expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims"]].sum()
-    months = prediction.by_month.loc[:, ["product", "month", "returns_lower", "returns_median", "returns_upper"]].copy()
+    calendar = _priced_by_product_and_month(result)
+    months = prediction.by_month.reindex(
+        columns=["product", "month", "returns_lower", "returns_median", "returns_upper", *_COST_QUANTILES]
+    ).copy()
     months["month"] = pd.to_datetime(months["month"]).dt.date
-    calendar = calendar.merge(months, on=["product", "month"], how="left").loc[:, list(CALENDAR_MONTH_COLUMNS)]
+    calendar = calendar.merge(months, on=["product", "month"], how="left")
+    for column in _COST_QUANTILES:  # first failures drawn, the claims beyond them at their expectation, inflated
+        calendar[column] = ((calendar[column].astype(float) + calendar["beyond_first_cost"]) * calendar["inflation"]).round(2)
+    calendar["currency"] = calendar["product"].map(_currency_by_product(result))
     return (
         dataclasses.replace(result, by_build_month=by_build_month, by_product=by_product),
-        calendar.sort_values(["product", "month"], ignore_index=True),
+        calendar.loc[:, list(CALENDAR_MONTH_COLUMNS)].sort_values(["product", "month"], ignore_index=True),
     )
+
+
+def _currency_by_product(result: ReserveResult) -> dict[str, object]:
+    table = result.by_build_month
+    if "currency" not in table or table.empty:
+        return {}
+    return table.groupby("product")["currency"].first().to_dict()
+
+
+def _priced_by_product_and_month(result: ReserveResult) -> pd.DataFrame:
+    """The costed forecast per product x calendar month: expected counts and costs (expected_cost inflated,
+    expected_cost_discounted), the cost of the claims beyond the first failures (not yet reported, repeat)
+    at the product's cost per claim before inflation (beyond_first_cost), and the month's inflation factor
+    (expected_cost over expected claims x cost per claim; 1 where that is 0 or unknown)."""
+    forecast = result.forecast.assign(month=pd.to_datetime(result.forecast["month"]).dt.date)
+    counts = ["expected_returns", "expected_unreported_returns", "expected_repeat_claims", "expected_claims"]
+    money = [c for c in ("expected_cost", "expected_cost_discounted") if c in forecast]
+    calendar = forecast.groupby(["product", "month"], as_index=False)[counts + money].sum(min_count=1)
+    for column in ("expected_cost", "expected_cost_discounted"):
+        if column not in calendar:
+            calendar[column] = np.nan
+    per_claim = calendar["product"].map(result.costs.set_index("product")["cost_per_claim"]).astype(float)
+    calendar["beyond_first_cost"] = (calendar["expected_unreported_returns"] + calendar["expected_repeat_claims"]) * per_claim
+    calendar["uninflated_cost"] = calendar["expected_claims"] * per_claim
+    calendar["inflation"] = _inflation_factor(calendar["expected_cost"], calendar["uninflated_cost"])
+    return calendar
+
+
+def reserve_by_calendar_month(result: ReserveResult, prediction, as_of_date: dt.date) -> pd.DataFrame:  # type: ignore[no-untyped-def]
+    """The cost of the claims still to come per calendar month over all products with a cost per claim
+    (RESERVE_BY_CALENDAR_MONTH_COLUMNS; currency units), for finance's view by month.
+
+    expected_cost / expected_cost_discounted: the costed forecast summed (its total is the products'
+    reserve_future_claims / its discounted part); cost_lower / _median / _upper: quantiles of the month's
+    cost over all products (stages.prediction's per-draw sums: parameter uncertainty, Poisson counts and the
+    spread of claim costs), plus the claims beyond the first failures at their expectation, times the month's
+    inflation factor, to the cent; not discounted. is_current: the as-of date's month or one of the
+    reserve.CURRENT_MONTHS months after it. Open claims and handling are not placed in months (see
+    reserve_by_product)."""
+    calendar = _priced_by_product_and_month(result)
+    calendar = calendar[calendar["expected_cost"].notna()]
+    columns = list(RESERVE_BY_CALENDAR_MONTH_COLUMNS)
+    if calendar.empty:
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in columns})
+    totals = calendar.groupby("month", as_index=False).agg(
+        products=("product", "nunique"), expected_claims=("expected_claims", "sum"),
+        expected_cost=("expected_cost", "sum"), expected_cost_discounted=("expected_cost_discounted", "sum"),
+        beyond_first_cost=("beyond_first_cost", "sum"), uninflated_cost=("uninflated_cost", "sum"),
+    )
+    totals["inflation"] = _inflation_factor(totals["expected_cost"], totals["uninflated_cost"])
+    drawn = prediction.cost_by_month.reindex(columns=["month", *_COST_QUANTILES]).copy()
+    drawn["month"] = pd.to_datetime(drawn["month"]).dt.date
+    totals = totals.merge(drawn, on="month", how="left")
+    for column in _COST_QUANTILES:
+        totals[column] = ((totals[column].astype(float) + totals["beyond_first_cost"]) * totals["inflation"]).round(2)
+    last_current = _month_index(as_of_date) + CURRENT_MONTHS
+    totals["is_current"] = [_month_index(m) <= last_current for m in totals["month"]]
+    currencies = sorted(set(_currency_by_product(result).values()) - {None})
+    totals["currency"] = currencies[0] if len(currencies) == 1 else None
+    return totals.loc[:, columns].sort_values("month", ignore_index=True)
 
 
 def _inflation_factor(reserve: pd.Series, uninflated: pd.Series) -> pd.Series:
