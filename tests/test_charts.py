@@ -345,6 +345,58 @@ def test_heatmap_rates_per_unit_month_with_ratios_masks_and_labels():
     assert "no baseline" in no_baseline.texts[0].get_text()
 
 
+def test_clear_departures_are_the_cells_whose_exact_interval_excludes_one():
+    # reference: Garwood's (1936) exact interval of a Poisson mean from chi-square quantiles (scipy.stats.chi2):
+    # lower = chi2(a/2; 2k) / 2, upper = chi2(1 - a/2; 2k + 2) / 2; the ratio's interval divides them by E
+    from scipy import stats
+
+    rng = np.random.default_rng(11)
+    expected = rng.uniform(0.2, 60.0, 4000)
+    returns = rng.poisson(expected * rng.choice([0.3, 1.0, 2.5], size=expected.size)).astype(float)
+    alpha = 1.0 - charts.CLEAR_DEPARTURE_LEVEL
+    lower = np.where(returns > 0, stats.chi2.ppf(alpha / 2, 2 * returns) / 2, 0.0) / expected
+    upper = stats.chi2.ppf(1 - alpha / 2, 2 * returns + 2) / 2 / expected
+    want = np.where(lower > 1.0, 1, np.where(upper < 1.0, -1, 0))
+    got = charts.clear_departures(returns, expected)
+    assert (got == want).all()
+    assert (got == 1).sum() > 100 and (got == -1).sum() > 100 and (got == 0).sum() > 100
+    # nothing expected, or no count: no mark
+    assert charts.clear_departures(np.array([3.0, np.nan]), np.array([0.0, 5.0])).tolist() == [0, 0]
+    with pytest.raises(ValueError, match="level"):
+        charts.clear_departures(returns, expected, level=1.0)
+
+
+def test_heatmap_marks_clear_departures_so_grey_print_reads_above_from_below():
+    # P, January: 90 and 80 returns in months 1 and 2 against about 33 expected (far more); February month
+    # 1: one return against about 33 (far fewer). The marks sit on the ratio
+    # panel only, on cells that are coloured (not thin), + for more and - for fewer
+    returned, units = heat_map_inputs()
+    many = returns_table([("P", JAN, 1, 90), ("P", JAN, 2, 80), ("P", FEB, 1, 1)])
+    figure = charts.return_rate_heatmap(many, units, {"P": Exponential(30.0), "$x$": None})
+    drawn(figure)
+    ratio_axis = next(a for a in figure.axes if a.get_title() == "P: observed / expected (baseline)")
+    more = next(c for c in ratio_axis.collections if c.get_gid() == "more-than-expected")
+    assert sorted(map(tuple, more.get_offsets().tolist())) == [(0.0, 0.0), (1.0, 0.0)]  # (month - 1, row)
+    fewer = [c for c in ratio_axis.collections if c.get_gid() == "fewer-than-expected"]
+    marked = {tuple(xy) for c in fewer for xy in c.get_offsets().tolist()}
+    cells = charts.return_rate_cells(many, units, {"P": Exponential(30.0)})
+    shown = cells[(cells["product"] == "P") & ~cells["is_ratio_thin"]]
+    signs = charts.clear_departures(shown["returns"].to_numpy(), shown["expected_returns"].to_numpy())
+    months = charts._month_numbers(shown["build_month"]) - charts._month_numbers([JAN])[0]
+    want = {(float(k - 1), float(m)) for k, m, sign in zip(shown["months_in_service"], months, signs) if sign == -1}
+    assert marked == want
+    rate_axis = next(a for a in figure.axes if a.get_title() == "P: returns per 1,000 unit-months")
+    assert not any(c.get_gid() in ("more-than-expected", "fewer-than-expected") for c in rate_axis.collections)
+    assert "+ more returns than expected, - fewer" in figure.get_suptitle()
+
+
+def test_flagged_finding_words():
+    jan = charts._month_numbers([JAN])[0]
+    assert charts.flagged_finding([]) == "no build month flagged"
+    assert charts.flagged_finding([jan + 1, jan]) == "2024-01, 2024-02 flagged"
+    assert charts.flagged_finding(range(jan, jan + 5)) == "2024-01, 2024-02, 2024-03 and 2 more flagged"
+
+
 def test_heatmap_without_baselines_has_one_row_and_long_histories_get_quarterly_ticks():
     months = [dt.date(2022 + (m - 1) // 12, (m - 1) % 12 + 1, 1) for m in range(3, 33)]  # 2022-03 .. 2024-08
     units = suspensions([("P", month, 1.0, 200) for month in months])
@@ -391,11 +443,11 @@ def test_observed_to_expected_chart_marks_and_labels_flagged_months():
     figure = charts.observed_to_expected_by_build_month(SimpleNamespace(table=alert_rows()))
     figure.savefig(io.BytesIO(), format="png", dpi=30)
     titles = [a.get_title() for a in figure.axes if a.get_visible()]
-    assert titles == [
-        r"\$x\$: whole observation window", "P: whole observation window",
-        r"\$x\$: first 3 months in service", "P: first 3 months in service",
+    assert titles == [  # each title says what the panel shows: which build months are flagged
+        r"\$x\$: no build month flagged; whole observation window", "P: 2024-02 flagged; whole observation window",
+        r"\$x\$: no build month flagged; first 3 months in service", "P: 2024-02 flagged; first 3 months in service",
     ]
-    for title in ("P: whole observation window", "P: first 3 months in service"):
+    for title in ("P: 2024-02 flagged; whole observation window", "P: 2024-02 flagged; first 3 months in service"):
         axis = next(a for a in figure.axes if a.get_title() == title)
         assert axis.get_yscale() == "log"
         assert [t.get_text() for t in axis.texts] == ["2024-02"]  # the flagged month, labelled
@@ -425,7 +477,7 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
     for flagged in ({("P", FEB)}, alert_rows().assign(product="P")):  # pairs, or the alert table (Feb flagged)
         figure = charts.cumulative_returns_per_unit(returned, units, flagged)
         figure.savefig(io.BytesIO(), format="png", dpi=30)
-        panel = next(a for a in figure.axes if a.get_title() == "P")
+        panel = next(a for a in figure.axes if a.get_title() == "P: 2024-02 flagged")
         lines = {line.get_label(): line for line in panel.lines}
         assert set(lines) == {"2024-02 (flagged)", "other build months (2)"} | {
             line.get_label() for line in panel.lines if line.get_label().startswith("_")
@@ -444,10 +496,10 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
         march = next(line for line in greys if len(line.get_xdata()) == 3)
         assert march.get_ydata().tolist() == [0.0, 0.0, 0.0]  # a month with no returns
     titles = [a.get_title() for a in figure.axes if a.get_visible()]
-    assert titles == [r"\$x\$", "E", "P"]
-    one_month = next(a for a in figure.axes if a.get_title() == r"\$x\$")
+    assert titles == [r"\$x\$: no build month flagged", "E: no build month flagged", "P: 2024-02 flagged"]
+    one_month = next(a for a in figure.axes if a.get_title() == r"\$x\$: no build month flagged")
     assert len([line for line in one_month.lines if len(line.get_xdata())]) == 1
-    empty = next(a for a in figure.axes if a.get_title() == "E")
+    empty = next(a for a in figure.axes if a.get_title() == "E: no build month flagged")
     assert "no build month with enough exposure" in empty.texts[0].get_text()
 
 

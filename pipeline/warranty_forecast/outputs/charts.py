@@ -22,7 +22,9 @@ from matplotlib.colors import LogNorm, Normalize
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
+from matplotlib.patheffects import withStroke
 from matplotlib.ticker import FixedFormatter, FixedLocator, FuncFormatter, LogLocator, NullFormatter
+from scipy import stats
 
 from warranty_forecast.lifecore.data import month_interval_ends
 from warranty_forecast.lifecore.result import FitResult
@@ -199,6 +201,13 @@ OBSERVED_TO_EXPECTED_COLOUR_LIMIT = 10.0
 """The O/E colour scale runs from 1/10 to 10 on a log scale, the same in every panel; ratios beyond take
 the end colours (a cell with no returns where some were expected takes the lower end)."""
 
+CLEAR_DEPARTURE_LEVEL = 0.99
+"""An O/E cell is marked + (more returns than expected) or - (fewer) when its exact two-sided interval at
+this level excludes 1: the Poisson tail beyond its count, given the expected returns, is under
+(1 - level) / 2 (Garwood's interval, the same test as the alerts' exact bounds). The marks carry what the
+colour says in grey print, and only where the count is beyond chance: at 1% a few hundred cells of noise
+mark a few. Per cell, not across cells: the alerts, not the map, decide what is flagged."""
+
 _SALE_MONTH_GROUP = ["product", "build_month", "sale_month", "warranty_months"]
 _CELL = ["product", "build_month", "months_in_service"]
 
@@ -350,6 +359,24 @@ def return_rate_cells(
     return cells[list(RETURN_RATE_CELL_COLUMNS)]
 
 
+def clear_departures(returns: np.ndarray, expected: np.ndarray, level: float = CLEAR_DEPARTURE_LEVEL) -> np.ndarray:
+    """+1 where `returns` (counts) are more than `expected` (Poisson means) beyond chance, -1 where fewer,
+    0 otherwise (and where nothing is expected): the exact two-sided interval of returns / expected at
+    `level` lies above 1 (P(N >= returns) < (1 - level) / 2 for N ~ Poisson(expected)) or below 1
+    (P(N <= returns) < (1 - level) / 2)."""
+    if not 0.0 < level < 1.0:
+        raise ValueError(f"level must be in (0, 1), got {level!r}")
+    returns = np.asarray(returns, dtype=float)
+    expected = np.asarray(expected, dtype=float)
+    tail = (1.0 - level) / 2.0
+    known = np.isfinite(expected) & (expected > 0) & np.isfinite(returns)
+    mean = np.where(known, expected, 1.0)
+    count = np.where(known, returns, 0.0)
+    above = known & (stats.poisson.sf(count - 1.0, mean) < tail)  # P(N >= count)
+    below = known & (stats.poisson.cdf(count, mean) < tail)  # P(N <= count)
+    return np.where(above, 1, np.where(below, -1, 0))
+
+
 def return_rate_heatmap(
     fit_returns: pd.DataFrame,
     fit_suspensions: pd.DataFrame,
@@ -408,13 +435,29 @@ def return_rate_heatmap(
         bar.set_ticks(ticks, labels=[f"{t:g}" for t in ticks])
         ratio_axis.set_title(f"{chart_text(product)}: observed / expected (baseline)")
         _dress_cell_axes(ratio_axis, grid, grid["ratio_thin"])
+        _mark_clear_departures(ratio_axis, grid)
     figure.suptitle(
         "Returns by build month and months in service\n"
         f"hatched grey, not coloured: under {MIN_EXPOSURE_UNIT_MONTHS:,.0f} unit-months of exposure"
         + (f" (observed / expected: or under {MIN_EXPECTED_RETURNS:g} expected returns)" if with_ratio else "")
         + "; blank: not yet observed at that age"
+        + (f"\nobserved / expected: + more returns than expected, - fewer, beyond chance"
+           f" ({CLEAR_DEPARTURE_LEVEL:.0%} exact interval excludes 1); red more, blue fewer" if with_ratio else "")
     )
     return _finish(figure)
+
+
+def _mark_clear_departures(axis: Axes, grid: dict[str, np.ndarray]) -> None:
+    """A black + on the coloured O/E cells with clearly more returns than expected, a black - on those with
+    clearly fewer (`clear_departures`), so the map reads the same in grey print."""
+    shown = ~grid["ratio_thin"] & np.isfinite(grid["expected"]) & (grid["expected"] > 0)
+    sign = np.where(shown, clear_departures(np.nan_to_num(grid["returns"]), grid["expected"]), 0)
+    for value, marker, gid, label in ((1, "+", "more-than-expected", "more than expected"),
+                                      (-1, "_", "fewer-than-expected", "fewer than expected")):
+        rows, columns = np.nonzero(sign == value)
+        if len(rows):
+            axis.scatter(columns, rows, marker=marker, s=16, linewidths=1.1, color=OKABE_ITO["black"], gid=gid,
+                         label=label, zorder=3, path_effects=[withStroke(linewidth=2.4, foreground="white")])
 
 
 def _cell_grid(rows: pd.DataFrame) -> dict[str, np.ndarray]:
@@ -426,7 +469,9 @@ def _cell_grid(rows: pd.DataFrame) -> dict[str, np.ndarray]:
     shape = (last - first + 1, width)
     i = months - first
     j = rows["months_in_service"].to_numpy(dtype=np.int64) - 1
-    grid = {name: np.full(shape, np.nan) for name in ("rate", "ratio", "exposure")}
+    grid = {name: np.full(shape, np.nan) for name in ("rate", "ratio", "exposure", "returns", "expected")}
+    grid["returns"][i, j] = rows["returns"].to_numpy(dtype=float)
+    grid["expected"][i, j] = rows["expected_returns"].to_numpy(dtype=float)
     grid["rate"][i, j] = rows["rate_per_1000_unit_months"].to_numpy(dtype=float)
     grid["ratio"][i, j] = rows["observed_to_expected"].to_numpy(dtype=float)
     grid["exposure"][i, j] = rows["exposure_unit_months"].to_numpy(dtype=float)
@@ -482,14 +527,27 @@ def observed_to_expected_by_build_month(alerts: BuildMonthAlertsLike | pd.DataFr
         months = _month_numbers(rows["build_month"])
         flagged = rows["is_flagged"].to_numpy(dtype=bool)
         early_months = int(rows["early_life_months"].iloc[0])
+        finding = flagged_finding(months[flagged])
         for axis, view, words in (
             (window_axis, "window", "whole observation window"),
             (early_axis, "early", f"first {early_months} months in service"),
         ):
-            axis.set_title(f"{chart_text(product)}: {words}")
+            axis.set_title(f"{chart_text(product)}: {finding}; {words}")
             _draw_ratio_view(axis, months, rows, view, flagged)
-    figure.suptitle("Observed / expected returns by build month, against each product's baseline (exact intervals)")
+    figure.suptitle("Observed / expected returns by build month, against each product's baseline (exact intervals):"
+                    " dots near 1 are build months like the rest; a flagged month stands clear above")
     return _finish(figure)
+
+
+def flagged_finding(month_numbers: Iterable[int], listed: int = 3) -> str:
+    """What a product's panel shows, in words: 'no build month flagged', '2025-02 flagged', or the first
+    `listed` flagged months and how many more."""
+    labels = [_month_label(int(m)) for m in sorted(month_numbers)]
+    if not labels:
+        return "no build month flagged"
+    if len(labels) <= listed:
+        return f"{', '.join(labels)} flagged"
+    return f"{', '.join(labels[:listed])} and {len(labels) - listed} more flagged"
 
 
 def _draw_ratio_view(axis: Axes, months: np.ndarray, rows: pd.DataFrame, view: str, flagged: np.ndarray) -> None:
@@ -589,7 +647,8 @@ def cumulative_returns_per_unit(
                       transform=axis.transAxes)
         if others:
             axis.plot([], [], color=MUTED, linewidth=0.7, label=f"other build months ({others})")
-        axis.set_title(chart_text(product))
+        axis.set_title(f"{chart_text(product)}: "
+                       + flagged_finding(month for name, month in picked if name == str(product)))
         axis.set_xlabel("months in service")
         axis.set_ylabel("cumulative returns per 1,000 units")
         axis.set_xlim(left=0)
@@ -597,7 +656,8 @@ def cumulative_returns_per_unit(
         axis.grid(True, alpha=0.3)
         if lines or others:
             axis.legend(loc="upper left")
-    figure.suptitle("Cumulative returns per 1,000 units by build month (cumulative hazard on unit-months observed)")
+    figure.suptitle("Cumulative returns per 1,000 units by build month (cumulative hazard on unit-months observed):"
+                    " a line climbing away from the grey bundle is a build month failing faster than the rest")
     return _finish(figure)
 
 
