@@ -85,13 +85,14 @@ def _write_run(folder: Path, as_of: str, forecast: pd.DataFrame, reserve: pd.Dat
     return folder
 
 
-def test_the_backtest_sums_the_forecast_window_and_differences_returns_to_date(tmp_path, capsys):
+@pytest.mark.parametrize("month_name", ["calendar_month", "month"])  # published now; a folder from before the rename
+def test_the_backtest_sums_the_forecast_window_and_differences_returns_to_date(tmp_path, capsys, month_name):
     # hand-made: forecast for 2025-07 .. 2025-09 made at as-of 2025-06-30; the later run is at 2025-08-31,
     # so 2025-07 and 2025-08 count (3 + 4 = 7 and 1 + 1 = 2 under the product model) and 2025-09 does not
     january, february = dt.date(2025, 1, 1), dt.date(2025, 2, 1)
     forecast = pd.DataFrame({
         "product": ["P"] * 4, "build_month": [january, january, january, february],
-        "month": [dt.date(2025, 7, 1), dt.date(2025, 8, 1), dt.date(2025, 9, 1), dt.date(2025, 7, 1)],
+        month_name: [dt.date(2025, 7, 1), dt.date(2025, 8, 1), dt.date(2025, 9, 1), dt.date(2025, 7, 1)],
         "expected_returns": [3.0, 4.0, 5.0, 2.0], "expected_returns_product_model": [1.0, 1.0, 1.0, 2.0],
     })
     earlier = _write_run(tmp_path / "a", "2025-06-30", forecast, pd.DataFrame({
@@ -111,3 +112,14 @@ def test_the_backtest_sums_the_forecast_window_and_differences_returns_to_date(t
     printed = capsys.readouterr().out
     assert "2025-01-01" in printed and "2025-02-01" not in printed.split("product totals")[0]
     assert main([str(later), str(earlier)]) == 1  # the later run must be later
+
+
+def test_a_forecast_holding_both_month_names_is_refused(tmp_path, capsys):
+    january = dt.date(2025, 1, 1)
+    forecast = pd.DataFrame({"product": ["P"], "build_month": [january], "month": [dt.date(2025, 7, 1)],
+                             "calendar_month": [dt.date(2025, 7, 1)], "expected_returns": [1.0]})
+    reserve = pd.DataFrame({"product": ["P"], "build_month": [january], "returns_to_date": [1]})
+    earlier = _write_run(tmp_path / "a", "2025-06-30", forecast, reserve)
+    later = _write_run(tmp_path / "b", "2025-08-31", forecast.iloc[:0], reserve)
+    assert main([str(earlier), str(later)]) == 1
+    assert "holds both 'month' and 'calendar_month'" in capsys.readouterr().err

@@ -182,12 +182,13 @@ def test_origins_are_the_month_ends_a_horizon_before_the_latest_whole_month():
         origin_dates(dt.date(2026, 11, 30), 3, 0)
 
 
-def test_interval_columns_are_used_when_the_run_has_them():
+@pytest.mark.parametrize("month_name", ["calendar_month", "month"])  # as read now; as a run from before the rename
+def test_interval_columns_are_used_when_the_run_has_them(month_name):
     # hand-made: one product, two build months, origin 2025-03-31, horizon 12, a per-product interval
     origin, jan, feb = dt.date(2025, 3, 31), dt.date(2025, 1, 1), dt.date(2025, 2, 1)
     april, may = dt.date(2025, 4, 1), dt.date(2025, 5, 1)
     forecast = pd.DataFrame({
-        "product": ["P"] * 4, "build_month": [jan, jan, feb, feb], "month": [april, may, april, may],
+        "product": ["P"] * 4, "build_month": [jan, jan, feb, feb], month_name: [april, may, april, may],
         "expected_returns": [2.0, 2.5, 1.0, 1.5], "expected_returns_product_model": [2.0, 2.5, 1.0, 1.5],
         "returns_lower": [1.0, 1.0, 0.0, 0.0], "returns_median": [2.0, 2.0, 1.0, 1.0], "returns_upper": [4.0, 4.0, 1.0, 3.0],
     })
@@ -205,7 +206,7 @@ def test_interval_columns_are_used_when_the_run_has_them():
         }),
         pd.DataFrame({"product": ["P", "P"], "build_month": [jan, feb], "units": [100, 120]}),
     )
-    by_month = pd.DataFrame({"product": ["P", "P"], "month": [april, may], "lower": [2.0, 1.0], "upper": [4.0, 1.5]})
+    by_month = pd.DataFrame({"product": ["P", "P"], month_name: [april, may], "lower": [2.0, 1.0], "upper": [4.0, 1.5]})
     run = OriginRun(origin, forecast, reserve, interval, "reserve_by_product.parquet: x_12_lower, x_12_upper",
                     by_month, "by_month.parquet")
     comparison = compare_origin(run, counted, horizon=12, confidence_level=0.95)
@@ -227,11 +228,12 @@ def test_interval_columns_are_used_when_the_run_has_them():
     assert without.by_month["covered"].isna().all()
 
 
-def test_a_per_product_twelve_month_interval_is_found_in_the_runs_tables(tmp_path):
+@pytest.mark.parametrize("month_name", ["calendar_month", "month"])  # published now; a folder from before the rename
+def test_a_per_product_twelve_month_interval_is_found_in_the_runs_tables(tmp_path, month_name):
     # hand-made output folder: the interval's columns are named by the run (any `<prefix with 12>_lower/_upper`
     # pair in a table without build_month); a table with build_month is not a per-product table
     jan = dt.date(2025, 1, 1)
-    pd.DataFrame({"product": ["P"], "build_month": [jan], "month": [jan], "expected_returns": [1.0]}).to_parquet(
+    pd.DataFrame({"product": ["P"], "build_month": [jan], month_name: [jan], "expected_returns": [1.0]}).to_parquet(
         tmp_path / "forecast.parquet")
     pd.DataFrame({"product": ["P"], "build_month": [jan], "next_12_months_lower": [0.0],
                   "next_12_months_upper": [99.0]}).to_parquet(tmp_path / "reserve.parquet")
@@ -244,18 +246,19 @@ def test_a_per_product_twelve_month_interval_is_found_in_the_runs_tables(tmp_pat
     assert run.interval_source == (
         "reserve_by_product.parquet: returns_next_12_months_lower, returns_next_12_months_upper"
     )
-    assert run.forecast["month"].iloc[0] == jan
+    assert run.forecast["calendar_month"].iloc[0] == jan and "month" not in run.forecast.columns  # either name read
     assert run.month_interval is None
     # a long table of horizons comes first; a per-month table gives the monthly interval
     pd.DataFrame({"product": ["P", "P"], "horizon": ["next_12_months", "to_warranty_end"], "expected": [5.0, 9.0],
                   "lower": [4.0, 7.0], "median": [5.0, 9.0], "upper": [6.0, 11.0]}).to_parquet(
         tmp_path / "prediction_by_product.parquet")
-    pd.DataFrame({"product": ["P"], "month": [jan], "expected_returns": [1.0], "returns_lower": [0.0],
+    pd.DataFrame({"product": ["P"], month_name: [jan], "expected_returns": [1.0], "returns_lower": [0.0],
                   "returns_median": [1.0], "returns_upper": [3.0]}).to_parquet(tmp_path / "prediction_by_month.parquet")
     run = read_origin_run(tmp_path, dt.date(2025, 1, 31))
     assert run.product_interval.to_dict("list") == {"product": ["P"], "lower": [4.0], "upper": [6.0]}
     assert run.interval_source == "prediction_by_product.parquet: lower, upper where horizon = next_12_months"
-    assert run.month_interval.to_dict("list") == {"product": ["P"], "month": [jan], "lower": [0.0], "upper": [3.0]}
+    assert run.month_interval.to_dict("list") == {
+        "product": ["P"], "calendar_month": [jan], "lower": [0.0], "upper": [3.0]}
 
 
 @pytest.mark.parametrize("arguments", [["--origins", "0"], ["--horizon", "-1"], ["--origins", "121"]])

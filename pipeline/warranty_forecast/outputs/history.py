@@ -13,6 +13,14 @@ The database is an index over the run folders, which are the record: runs are on
 updated or deleted), each in one transaction with its tables, and a run folder not yet in the database
 (a run stopped after publishing, or a database held open by a reader at the time) is recorded by the next
 run. A table that gains a column in a later version gains it here too (older runs read NULL there).
+
+A published column that was renamed (`output_columns.OUTPUT_RENAMES`: forecast_by_calendar_month's
+`month`, now `calendar_month`) is stored under its current name only: a run folder written before the
+rename has its table renamed as it is read (`output_columns.current_names`), and a database made before it
+has the column renamed once (`alter table ... rename column`, its rows keep their values) in the
+transaction of the first run recorded after. A database that holds both names (an older version recorded
+runs after a newer one had renamed the column) has them merged there: the old name's values filled into
+the rows whose current-name value is NULL, the old column dropped.
 """
 
 from __future__ import annotations
@@ -25,6 +33,7 @@ from pathlib import Path
 import duckdb
 import pyarrow.parquet as pq
 
+from warranty_forecast.outputs.output_columns import OUTPUT_RENAMES, current_names
 from warranty_forecast.outputs.run_folders import HISTORY_FILE, PublishedRun, published_runs
 
 log = logging.getLogger(__name__)
@@ -79,7 +88,8 @@ def history_path(root: Path) -> Path:
 def record_published_runs(root: Path) -> HistoryUpdate:
     """Record every published run under `root` that the history database does not hold yet, oldest first,
     each in one transaction. Never raises for a database it cannot open or write (held by a reader, full
-    disk): the error is returned and the runs are recorded by a later run."""
+    disk) or a table it cannot take (a renamed column under both names): the error is returned and the
+    runs are recorded by a later run."""
     path = history_path(root)
     recorded: list[str] = []
     try:
@@ -97,7 +107,7 @@ def record_published_runs(root: Path) -> HistoryUpdate:
             recorded.append(run.run_id)
             known.add(run.run_id)
         con.execute("checkpoint")
-    except (duckdb.Error, OSError) as error:
+    except (duckdb.Error, OSError, ValueError) as error:  # ValueError: a table holding a column under two names
         return HistoryUpdate(path, tuple(recorded), _one_line(error))
     finally:
         con.close()
@@ -115,6 +125,9 @@ def _record(con: duckdb.DuckDBPyConnection, run: PublishedRun) -> None:
             arrow = pq.read_table(path)
             if "run_id" not in arrow.column_names:
                 continue  # a table of a version before run ids: kept in its folder only
+            names = current_names(table, arrow.column_names)  # a folder of a version before a rename
+            if names != arrow.column_names:
+                arrow = arrow.rename_columns(names)
             con.register("incoming_table", arrow)
             _append(con, table)
             if table == "reserve_by_product" and arrow.num_rows:
@@ -150,6 +163,7 @@ def _append(con: duckdb.DuckDBPyConnection, table: str) -> None:
     if not exists:
         con.execute(f"create table {quoted} as select * from incoming_table")
         return
+    _rename_old_columns(con, table)
     have = {row[0]: row[1] for row in con.execute(f"describe {quoted}").fetchall()}
     for name, column_type, *_ in con.execute("describe incoming_table").fetchall():
         if name not in have:
@@ -157,6 +171,27 @@ def _append(con: duckdb.DuckDBPyConnection, table: str) -> None:
         elif have[name] == '"NULL"' and column_type != '"NULL"':  # typed at last (an empty table came first)
             con.execute(f"alter table {quoted} alter column {_quoted(name)} type {column_type}")
     con.execute(f"insert into {quoted} by name select * from incoming_table")
+
+
+def _rename_old_columns(con: duckdb.DuckDBPyConnection, table: str) -> None:
+    """Bring `table` (which exists) to the current published names of its columns, in the caller's
+    transaction: an old name alone is renamed (rows keep their values); an old name beside the current one
+    is merged into it (where the current one is NULL) and dropped. Nothing to do: no statement runs."""
+    renames = OUTPUT_RENAMES.get(table, {})
+    if not renames:
+        return
+    quoted = _quoted(table)
+    have = {row[0] for row in con.execute(f"describe {quoted}").fetchall()}
+    for old, new in renames.items():
+        if old not in have:
+            continue
+        if new not in have:
+            con.execute(f"alter table {quoted} rename column {_quoted(old)} to {_quoted(new)}")
+            log.info("history: %s.%s renamed to %s", table, old, new)
+            continue
+        con.execute(f"update {quoted} set {_quoted(new)} = {_quoted(old)} where {_quoted(new)} is null")
+        con.execute(f"alter table {quoted} drop column {_quoted(old)}")
+        log.info("history: %s.%s merged into %s and dropped", table, old, new)
 
 
 def _quoted(identifier: str) -> str:

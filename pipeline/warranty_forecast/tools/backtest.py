@@ -6,8 +6,9 @@ EARLIER_OUT and LATER_OUT are two output folders of the nightly run on the same 
 extracts), the earlier one run with an earlier as-of date (`--as-of`). For every product x build month:
 
     forecast  = the earlier run's expected returns in the calendar months after its as-of date, up to
-                the later run's as-of month (forecast.parquet, `expected_returns`; and
-                `expected_returns_product_model`, what the product's model alone forecast),
+                the later run's as-of month (forecast.parquet, `expected_returns` by `calendar_month`, or
+                `month` in a folder written before that rename; and `expected_returns_product_model`,
+                what the product's model alone forecast),
     came      = the later run's returns to date less the earlier run's (reserve.parquet,
                 returns_to_date), i.e. the counted returns that arrived in between.
 
@@ -31,6 +32,8 @@ from typing import Sequence
 
 import pandas as pd
 
+from warranty_forecast.outputs.output_columns import CALENDAR_MONTH, as_current
+
 BACKTEST_COLUMNS = (
     "product",
     "build_month",
@@ -51,8 +54,8 @@ def backtest(earlier: Path, later: Path) -> pd.DataFrame:
     start, end = _as_of(earlier), _as_of(later)
     if end <= start:
         raise ValueError(f"the later run's as-of date {end} is not after the earlier run's {start}")
-    forecast = pd.read_parquet(earlier / "forecast.parquet")
-    months = pd.to_datetime(forecast["month"])
+    forecast = as_current("forecast", pd.read_parquet(earlier / "forecast.parquet"))  # `month` before the rename
+    months = pd.to_datetime(forecast[CALENDAR_MONTH])
     window = forecast[(months > pd.Timestamp(start)) & (months <= pd.Timestamp(end))]
     if "expected_returns_product_model" not in window.columns:  # outputs of an earlier release
         window = window.assign(expected_returns_product_model=window["expected_returns"])

@@ -34,10 +34,12 @@ the manifest lists what was found at each origin); without them the interval col
     horizon, lower, upper and rows of horizon "next_12_months"; else a table of one row per product with
     a pair `<prefix>_lower` / `<prefix>_upper` whose prefix holds "12" -> backtest.parquet's
     forecast_lower, forecast_upper, covered;
-  * per product x calendar month: a table (no build_month) with product, month, returns_lower,
+  * per product x calendar month: a table (no build_month) with product, calendar_month, returns_lower,
     returns_upper -> backtest_by_month.parquet's forecast_lower, forecast_upper, covered;
-  * per product x build month x month: returns_lower / returns_upper in forecast.parquet -> the by-month
-    table counts the build months whose returns that came lie inside them (interval_cells, _covered).
+  * per product x build month x calendar month: returns_lower / returns_upper in forecast.parquet -> the
+    by-month table counts the build months whose returns that came lie inside them (interval_cells, _covered).
+A run's calendar month is read as `calendar_month`, or as `month` from a folder written before that column
+was renamed (`outputs.output_columns.as_current`); backtest_by_month.parquet keeps its own `month` column.
 
 Counts are returns (units); ratios are forecast / came.
 """
@@ -64,6 +66,7 @@ from scipy import stats
 
 from warranty_forecast.config import RunConfig, load_config
 from warranty_forecast.errors import ConfigError
+from warranty_forecast.outputs.output_columns import CALENDAR_MONTH, as_current
 from warranty_forecast.outputs.publish import lock_output_folder, publish_outputs
 from warranty_forecast.outputs.safe_text import chart_text, one_line
 from warranty_forecast.stages.shaping import shape_extracts
@@ -204,18 +207,19 @@ class OriginRun:
     """The outputs of the nightly job rerun at one origin that the backtest reads."""
 
     origin: dt.date
-    forecast: pd.DataFrame  # forecast.parquet
+    forecast: pd.DataFrame  # forecast.parquet, its calendar month as `calendar_month` (`month` also taken)
     reserve: pd.DataFrame  # reserve.parquet
     product_interval: pd.DataFrame | None  # product, lower, upper (the next 12 months), if the run has one
     interval_source: str | None  # "file: lower, upper" of that interval
-    month_interval: pd.DataFrame | None = None  # product, month, lower, upper (per calendar month), if any
+    month_interval: pd.DataFrame | None = None  # product, calendar_month, lower, upper, if any (`month` also taken)
     month_interval_source: str | None = None
 
 
 def read_origin_run(folder: Path, origin: dt.date) -> OriginRun:
-    """Read a rerun's forecast, reserve and (if any) per-product 12-month interval."""
-    forecast = pd.read_parquet(folder / "forecast.parquet")
-    forecast["month"] = pd.to_datetime(forecast["month"]).dt.date
+    """Read a rerun's forecast (its calendar month as `calendar_month`, from either published name), reserve
+    and (if any) per-product 12-month and per-calendar-month intervals."""
+    forecast = as_current("forecast", pd.read_parquet(folder / "forecast.parquet"))
+    forecast[CALENDAR_MONTH] = pd.to_datetime(forecast[CALENDAR_MONTH]).dt.date
     reserve = pd.read_parquet(folder / "reserve.parquet")
     interval, source = _product_interval(folder)
     by_month, month_source = _month_interval(folder)
@@ -250,16 +254,21 @@ def _product_interval(folder: Path) -> tuple[pd.DataFrame | None, str | None]:
 
 def _month_interval(folder: Path) -> tuple[pd.DataFrame | None, str | None]:
     """A table of one row per product x calendar month with returns_lower / returns_upper and no build_month
-    (the run's interval for a product's returns in a month), as (product, month, lower, upper) and its
-    source; (None, None) when the run has none."""
+    (the run's interval for a product's returns in a month; forecast_by_calendar_month.parquet in the
+    nightly run), as (product, calendar_month, lower, upper) and its source; the month is read as
+    `calendar_month`, or `month` (a folder from before the rename). (None, None) when the run has none."""
     for path in sorted(folder.glob("*.parquet")):
         columns = pq.read_schema(path).names
-        if {"product", "month", "returns_lower", "returns_upper"} <= set(columns) and "build_month" not in columns:
-            table = pd.read_parquet(path, columns=["product", "month", "returns_lower", "returns_upper"])
-            if table.duplicated(["product", "month"]).any():
-                continue
-            table["month"] = pd.to_datetime(table["month"]).dt.date
-            return table.rename(columns={"returns_lower": "lower", "returns_upper": "upper"}), path.name
+        month = next((name for name in (CALENDAR_MONTH, "month") if name in columns), None)
+        needed = {"product", "returns_lower", "returns_upper"}
+        if month is None or "build_month" in columns or not needed <= set(columns):
+            continue
+        table = pd.read_parquet(path, columns=["product", month, "returns_lower", "returns_upper"])
+        table = as_current("forecast_by_calendar_month", table)  # read as that table: `month` -> calendar_month
+        if table.duplicated(["product", CALENDAR_MONTH]).any():
+            continue
+        table[CALENDAR_MONTH] = pd.to_datetime(table[CALENDAR_MONTH]).dt.date
+        return table.rename(columns={"returns_lower": "lower", "returns_upper": "upper"}), path.name
     return None, None
 
 
@@ -286,7 +295,11 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
     known_then = claim_number <= origin_month
     latest_units = counted.cohorts.set_index(["product", "build_month"])["units"]
 
-    forecast = run.forecast[run.forecast["month"].isin(window)]
+    run_forecast = as_current("forecast", run.forecast)  # an OriginRun made by hand may say `month`
+    month_interval = (
+        None if run.month_interval is None else as_current("forecast_by_calendar_month", run.month_interval)
+    )
+    forecast = run_forecast[run_forecast[CALENDAR_MONTH].isin(window)]
     if "expected_returns_product_model" not in forecast.columns:
         forecast = forecast.assign(expected_returns_product_model=forecast["expected_returns"])
     has_cell_interval = {"returns_lower", "returns_upper"} <= set(forecast.columns)
@@ -301,7 +314,7 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
         came_by_month = came_rows.groupby("failure_month")["returns"].sum()
         came = float(came_rows["returns"].sum())
         product_forecast = forecast[forecast["product"] == product]
-        by_month = product_forecast.groupby("month")[["expected_returns", "expected_returns_product_model"]].sum()
+        by_month = product_forecast.groupby(CALENDAR_MONTH)[["expected_returns", "expected_returns_product_model"]].sum()
         total = float(by_month["expected_returns"].sum()) if is_forecast else math.nan
         total_product_model = float(by_month["expected_returns_product_model"].sum()) if is_forecast else math.nan
 
@@ -351,7 +364,7 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
             month_came = float(came_by_month.get(month, 0))
             cells = covered_cells = 0
             if has_cell_interval:
-                here = product_forecast[product_forecast["month"] == month]
+                here = product_forecast[product_forecast[CALENDAR_MONTH] == month]
                 bounded = here[np.isfinite(here["returns_lower"].to_numpy(dtype=float))
                                & np.isfinite(here["returns_upper"].to_numpy(dtype=float))]
                 cell_came = np.array([float(cells_came.get((b, month), 0)) for b in bounded["build_month"]])
@@ -359,8 +372,8 @@ def compare_origin(run: OriginRun, counted: CountedReturns, horizon: int, confid
                 covered_cells = int(np.sum((cell_came >= bounded["returns_lower"].to_numpy(dtype=float))
                                            & (cell_came <= bounded["returns_upper"].to_numpy(dtype=float))))
             month_lower = month_upper = math.nan
-            if run.month_interval is not None:
-                found = run.month_interval[(run.month_interval["product"] == product) & (run.month_interval["month"] == month)]
+            if month_interval is not None:
+                found = month_interval[(month_interval["product"] == product) & (month_interval[CALENDAR_MONTH] == month)]
                 if len(found):
                     month_lower, month_upper = float(found["lower"].iloc[0]), float(found["upper"].iloc[0])
             cl_month = ladder["by_period"][t - 1] if ladder["by_period"] is not None else math.nan
