@@ -18,7 +18,10 @@ AS_OF = dt.date(2026, 11, 30)
 @pytest.fixture(scope="module")
 def demo_tables(demo_run_copy):
     names = ("forecast", "forecast_by_calendar_month", "reserve_by_product", "roll_forward")
-    return {name: pd.read_parquet(demo_run_copy / f"{name}.parquet") for name in names}
+    tables = {name: pd.read_parquet(demo_run_copy / f"{name}.parquet") for name in names}
+    # published as calendar_month (outputs.output_columns); the chart functions take the run's frames (`month`)
+    assert "calendar_month" in tables["forecast"] and "month" not in tables["forecast"]
+    return {name: frame.rename(columns={"calendar_month": "month"}) for name, frame in tables.items()}
 
 
 def test_demo_forecast_starts_after_the_as_of_line(demo_tables):

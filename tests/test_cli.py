@@ -165,7 +165,20 @@ def test_demo_tables_are_consistent(demo_out):
     # the demo's claims are filed a few days after the failure (data_demo/README.md): some are not yet in
     assert 0 < reserve["expected_unreported_returns"].sum() < 0.05 * reserve["expected_future_returns"].sum()
     assert totals["reserve"].sum() == pytest.approx(reserve["reserve"].sum(), rel=1e-12)
-    assert forecast["month"].min() >= pd.Timestamp("2026-11-01").date()
+    assert forecast["calendar_month"].min() >= pd.Timestamp("2026-11-01").date()
+    # the cost by calendar month over all products (issue 12): its months add up to the future claims'
+    # reserve, each month's interval holds its expectation, and every published month is a calendar_month
+    by_month = pd.read_parquet(demo_out / "reserve_by_calendar_month.parquet")
+    assert by_month["expected_cost"].sum() == pytest.approx(reserve["reserve_future_claims"].sum(), rel=1e-9)
+    busy = by_month[by_month["expected_claims"] > 50]
+    assert len(busy) > 24
+    assert ((busy["cost_lower"] < busy["expected_cost"]) & (busy["expected_cost"] < busy["cost_upper"])).all()
+    assert by_month["is_current"].sum() == 12 and (by_month["currency"] == "XXX").all()
+    per_product = pd.read_parquet(demo_out / "forecast_by_calendar_month.parquet")
+    assert per_product.groupby("calendar_month")["expected_cost"].sum().to_numpy() == pytest.approx(
+        by_month.set_index("calendar_month")["expected_cost"].to_numpy(), rel=1e-9)
+    for table in (forecast, per_product, by_month):
+        assert "calendar_month" in table and "month" not in table
     matrix = pd.read_parquet(demo_out / "age_in_service.parquet")
     assert matrix["returns"].sum() == reserve["returns_to_date"].sum()
     assert (matrix["returns"] <= matrix["units_at_risk"] + 1e-9).all()

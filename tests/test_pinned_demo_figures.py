@@ -27,7 +27,8 @@ NOT_PINNED = {"message", "family_message", "iterations", "gradient_norm", "cost_
 
 
 def _figures(out: Path) -> dict[str, pd.DataFrame]:
-    forecast = pd.read_parquet(out / "forecast.parquet")
+    # published as calendar_month since issue 12; pinned under the name it had (`month`)
+    forecast = pd.read_parquet(out / "forecast.parquet").rename(columns={"calendar_month": "month"})
     return {
         "life_model": pd.read_parquet(out / "life_model.parquet"),
         "life_model_by_mode": pd.read_parquet(out / "life_model_by_mode.parquet"),

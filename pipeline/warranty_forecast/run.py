@@ -37,6 +37,7 @@ from warranty_forecast.stages.life_table import life_table
 from warranty_forecast.stages.reporting_delay import reporting_delay_stage
 from warranty_forecast.stages.prediction import claim_costs_by_product, predict_returns
 from warranty_forecast.stages.parallel import worker_count
+from warranty_forecast.outputs.output_columns import for_output
 from warranty_forecast.stages.reserve import book_reserve, reserve_by_calendar_month, with_prediction_intervals
 from warranty_forecast.stages.roll_forward import ReserveMovement, reserve_movement
 from warranty_forecast.stages.shaping import shape_extracts
@@ -312,7 +313,10 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     )
     # every published table says which run wrote it, so nightly outputs can be stacked; the reserve also as
     # CSV for people who open files in a spreadsheet
-    tables = {name: stamped(frame, manifest.run_id, manifest.as_of_date) for name, frame in tables.items()}
+    # published names (output_columns): the calendar month as calendar_month; report and charts keep `month`
+    tables = {
+        name: for_output(name, stamped(frame, manifest.run_id, manifest.as_of_date)) for name, frame in tables.items()
+    }
     texts = {
         "report.md": report, "report.html": report_html,
         "reserve_by_product.csv": tables["reserve_by_product"].to_csv(index=False, lineterminator="\n"),

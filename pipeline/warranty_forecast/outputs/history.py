@@ -43,6 +43,7 @@ HISTORY_TABLES = (
     "reserve",
     "roll_forward",
     "forecast_by_calendar_month",
+    "reserve_by_calendar_month",
     "forecast_intervals",
     "life_model",
     "build_month_alerts",

@@ -29,6 +29,7 @@ CALENDAR_MONTH = "calendar_month"
 OUTPUT_RENAMES: Mapping[str, Mapping[str, str]] = MappingProxyType({
     "forecast": MappingProxyType({"month": CALENDAR_MONTH}),
     "forecast_by_calendar_month": MappingProxyType({"month": CALENDAR_MONTH}),
+    "reserve_by_calendar_month": MappingProxyType({"month": CALENDAR_MONTH}),  # published so from the first
 })
 
 
