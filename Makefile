@@ -7,7 +7,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 SPARK_STAMP := $(VENV)/.installed-spark
 
-.PHONY: demo test setup bench clean
+.PHONY: demo test setup bench clean readme-charts
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -31,6 +31,16 @@ $(SPARK_STAMP): $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out reports/demo
+
+# the charts shown in the README (reports/charts/): the demo run as the nightly job makes them, with an
+# earlier month-end run first so the finance chart has a movement since the last run
+readme-charts: $(STAMP)
+	rm -rf build/readme-charts
+	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out build/readme-charts --as-of 2026-10-31 --no-charts
+	$(BIN)/warranty-forecast run --shipments data_demo/shipments.parquet --claims data_demo/claims.csv --out build/readme-charts
+	mkdir -p reports/charts
+	rm -f reports/charts/*.png
+	cp build/readme-charts/latest/*.png reports/charts/
 
 # one test process per core (pytest-xdist); a test file stays in one process, so a module's fixtures (the
 # Spark session, the demo runs) are made once per process that needs them

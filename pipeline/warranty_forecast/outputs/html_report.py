@@ -63,7 +63,8 @@ METHOD = (
 CHART_CAPTIONS = {
     "return_rate_heatmap": "Returns per 1,000 unit-months by build month and months in service (top row;"
     " hatched: under 100 unit-months) and observed / expected returns per cell against the alert baseline"
-    " (bottom row; red above, blue below).",
+    " (bottom row; red above, blue below; + more and - fewer returns than expected beyond chance, 99% exact"
+    " interval).",
     "observed_to_expected_by_build_month": "Observed / expected returns per build month with exact bounds,"
     " whole window and early life; flagged months marked and labelled.",
     "cumulative_returns_per_unit": "Cumulative returns per 1,000 units by months in service, one line per build"
@@ -71,11 +72,13 @@ CHART_CAPTIONS = {
     "weibull_probability_plot": "Life-table fraction failed with Greenwood bounds, the fitted Weibull line and"
     " its Wald band; points bending away from the line mean the Weibull does not describe the returns.",
     "expected_returns_by_month": "Claims expected per calendar month after the as-of line, with their prediction"
-    " band, beside the returns counted in the 12 months before it; below, the expected cost per month.",
+    " band, beside the returns counted in the 12 months before it; below, the expected cost per month with its"
+    " prediction interval over all products.",
     "failure_mode_pareto": "Returns to date by failure code, largest first, with the cumulative share; below, by"
     " build month (a code piled up in a few months is a batch defect).",
     "reserve_for_finance": "The reserve by product (current and non-current, with its prediction interval), the"
-    " expected cost by month still to come, and the movement since the last run.",
+    " expected cost by month still to come with each month's prediction interval, and the movement since the"
+    " last run.",
 }
 
 # reserve_by_product columns the product table shows (or folds into another column); any other column

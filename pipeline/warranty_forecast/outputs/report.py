@@ -298,7 +298,8 @@ def render_report(
         *([markdown_text(chart_note), ""] if chart_note else []),
         "- `return_rate_heatmap.png`: returns per 1,000 unit-months by build month and months in service (top"
         " row; the newest, partly observed month counts its partial exposure; hatched: under 100 unit-months) and"
-        " observed / expected returns per cell against the alert baseline (bottom row; red above, blue below).",
+        " observed / expected returns per cell against the alert baseline (bottom row; red above, blue below;"
+        " + more and - fewer returns than expected beyond chance, 99% exact interval).",
         "- `observed_to_expected_by_build_month.png`: observed / expected returns per build month with exact"
         " bounds, whole window and early life; flagged months marked and labelled.",
         "- `cumulative_returns_per_unit.png`: cumulative returns per 1,000 units by months in service, one line"
@@ -307,11 +308,13 @@ def render_report(
         "and its Wald band to the warranty end; points bending away from the line mean the Weibull does not describe"
         " the returns.",
         "- `expected_returns_by_month.png`: claims expected per calendar month after the as-of line with their"
-        " prediction band, the returns counted in the 12 months before it, and the expected cost per month.",
+        " prediction band, the returns counted in the 12 months before it, and the expected cost per month with"
+        " its prediction interval over all products.",
         "- `failure_mode_pareto.png`: returns to date by failure code, largest first, with the cumulative share;"
         " below, by build month (a code piled up in a few months is a batch defect).",
         "- `reserve_for_finance.png`: the reserve by product (current / non-current, prediction interval), the"
-        " expected cost by month still to come, and the movement since the last run.",
+        " expected cost by month still to come with each month's prediction interval, and the movement since the"
+        " last run.",
         "",
     ]
     return "\n".join(lines)
