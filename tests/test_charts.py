@@ -497,6 +497,8 @@ def test_cumulative_returns_use_unit_months_and_pick_out_flagged_months():
         assert march.get_ydata().tolist() == [0.0, 0.0, 0.0]  # a month with no returns
     titles = [a.get_title() for a in figure.axes if a.get_visible()]
     assert titles == [r"\$x\$: no build month flagged", "E: no build month flagged", "P: 2024-02 flagged"]
+    panel = next(a for a in figure.axes if a.get_title() == "P: 2024-02 flagged")
+    assert [t for t in panel.get_xticks() if 0 <= t <= 3] == [0.0, 3.0]  # months in service by quarters
     one_month = next(a for a in figure.axes if a.get_title() == r"\$x\$: no build month flagged")
     assert len([line for line in one_month.lines if len(line.get_xdata())]) == 1
     empty = next(a for a in figure.axes if a.get_title() == "E: no build month flagged")

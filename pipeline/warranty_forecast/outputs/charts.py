@@ -23,7 +23,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 from matplotlib.patheffects import withStroke
-from matplotlib.ticker import FixedFormatter, FixedLocator, FuncFormatter, LogLocator, NullFormatter
+from matplotlib.ticker import FixedFormatter, FixedLocator, FuncFormatter, LogLocator, MultipleLocator, NullFormatter
 from scipy import stats
 
 from warranty_forecast.lifecore.data import month_interval_ends
@@ -437,8 +437,9 @@ def return_rate_heatmap(
         _dress_cell_axes(ratio_axis, grid, grid["ratio_thin"])
         _mark_clear_departures(ratio_axis, grid)
     figure.suptitle(
-        "Returns by build month and months in service\n"
-        f"hatched grey, not coloured: under {MIN_EXPOSURE_UNIT_MONTHS:,.0f} unit-months of exposure"
+        "Returns by build month and months in service: a row darker (rates)"
+        + (" or red (observed / expected)" if with_ratio else "") + " from its first months on is a bad build month\n"
+        + f"hatched grey, not coloured: under {MIN_EXPOSURE_UNIT_MONTHS:,.0f} unit-months of exposure"
         + (f" (observed / expected: or under {MIN_EXPECTED_RETURNS:g} expected returns)" if with_ratio else "")
         + "; blank: not yet observed at that age"
         + (f"\nobserved / expected: + more returns than expected, - fewer, beyond chance"
@@ -652,6 +653,8 @@ def cumulative_returns_per_unit(
         axis.set_xlabel("months in service")
         axis.set_ylabel("cumulative returns per 1,000 units")
         axis.set_xlim(left=0)
+        longest = max((len(line.get_xdata()) for line in axis.lines), default=0)
+        axis.xaxis.set_major_locator(MultipleLocator(3 if longest <= 25 else 6))  # quarters or half years
         axis.set_ylim(bottom=0)
         axis.grid(True, alpha=0.3)
         if lines or others:
