@@ -84,6 +84,21 @@ def test_probability_plot_axes_line_band_warranty_end_and_guide():
     assert not any("Weibull shape" in t.get_text() for t in panel_q.get_legend().get_texts())
 
 
+@pytest.mark.parametrize("count", [1, 12])
+def test_the_panels_start_below_a_several_line_title_however_tall_the_grid(count):
+    # 12 product panels made the figure 18 inches tall and the top row's titles ran under the five-line
+    # reading guide (seen on a 40-line run); the footer added afterwards must keep the gap too
+    base = life_table(matrix())
+    base = base[base["product"] == "P"]
+    table = pd.concat([base.assign(product=f"L{i:02d}") for i in range(count)], ignore_index=True)
+    figure = charts.weibull_probability_plot(table, {f"L{i:02d}": small_fit() for i in range(count)})
+    charts.with_footer(figure, "2026-11-30-abc", dt.date(2026, 11, 30))
+    renderer = drawn(figure)
+    title_bottom = figure._suptitle.get_window_extent(renderer).y0
+    tops = [a.get_tightbbox(renderer).y1 for a in figure.axes if a.get_visible()]
+    assert max(tops) < title_bottom
+
+
 def test_fraction_ticks_are_thinned_to_a_readable_gap():
     # a span of 10 on the log(-log) scale: ticks at least 7.5% of it (0.75) apart (hand rule, no source)
     ticks = charts.fraction_ticks(-12.0, -2.0)
@@ -578,6 +593,31 @@ def test_cost_intervals_by_month_are_whiskers_on_both_cost_panels():
     tops = sorted(max(s[:, 1]) for s in whisker.get_segments())
     assert tops == pytest.approx(sorted(month_table["expected_cost"] * 1.3))
     assert [s[0, 0] for s in whisker.get_segments()] == [n + 0.5 for n in charts._month_numbers(month_table["month"])]
+
+
+def test_many_products_keep_a_colour_each_and_the_finance_labels_clear_of_the_whiskers():
+    # 10 products, the run's order most important first: the calendar chart draws the first 7 (one palette
+    # colour each; 8 colours in all with the rest summed), the others as one series
+    months = [dt.date(2024, 12, 1), dt.date(2025, 1, 1)]
+    names = [f"L{i:02d}" for i in range(10)]
+    forecast = pd.DataFrame({"product": [n for n in names for _ in months], "month": months * 10,
+                             "build_month": [dt.date(2024, 1, 1)] * 20, "expected_returns": np.arange(20, 0, -1.0)})
+    order = list(reversed(names))
+    figure = charts.expected_returns_by_month(forecast, products=order, as_of_date=AS_OF)
+    drawn(figure)
+    series = [l.get_gid() for l in figure.axes[0].lines if str(l.get_gid()).startswith("forecast:")]
+    assert series == [f"forecast:{n}" for n in order[:7]] + ["forecast:3 other products"]
+    colours = {l.get_color() for l in figure.axes[0].lines if str(l.get_gid()).startswith("forecast:")}
+    assert len(colours) == 8
+    # finance: a product without open claims or handling (NaN) counts 0 in the title, not NaN; each amount is
+    # written right of its whisker, level with its bar
+    reserve, costs, roll = reserve_frames()
+    reserve.loc[1, ["reserve_open_claims", "reserve_handling"]] = np.nan
+    figure = charts.reserve_for_finance(reserve, costs, roll, as_of_date=AS_OF)
+    drawn(figure)
+    assert "open claims, handling: 10)" in figure.axes[1].get_title()
+    labels = {t.get_text(): t.xy for t in figure.axes[0].texts if t.get_gid() == "reserve-label"}
+    assert labels["300"] == (360.0, 2) and labels["100"] == (125.0, 1)
 
 
 def test_finance_chart_before_any_earlier_run_says_so():

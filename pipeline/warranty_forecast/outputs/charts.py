@@ -17,6 +17,7 @@ from typing import Iterable, Mapping, Protocol
 import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import PatchCollection
 from matplotlib.colors import LogNorm, Normalize
 from matplotlib.figure import Figure
@@ -96,9 +97,17 @@ def _finish(figure: Figure) -> Figure:
         if legend is not None:
             for text in legend.get_texts():
                 text.set_fontsize(TYPE_SIZE)
-    if figure._suptitle is not None:
-        figure._suptitle.set_fontweight("bold")
     figure.tight_layout()
+    if figure._suptitle is not None:
+        # the panels below the (often several-line) suptitle: tight_layout reserves its height from the top
+        # edge, but it hangs from 98% of the figure's height, so in a tall grid (12 product panels of the
+        # probability plot) the top titles ran under it; measure where it ends and lay out beneath it
+        figure._suptitle.set_fontweight("bold")
+        renderer = FigureCanvasAgg(figure).get_renderer()
+        bottom = figure._suptitle.get_window_extent(renderer).y0 / figure.bbox.height
+        pad = 0.5 * TYPE_SIZE / 72.0 / figure.get_figheight()  # half a line
+        figure._suptitle.set_in_layout(False)
+        figure.tight_layout(rect=(0.0, 0.0, 1.0, bottom - pad))
     return figure
 
 
@@ -919,10 +928,12 @@ def expected_returns_by_month(
     interval_label: str = "5-95%",
     history_months: int = 12,
     cost_by_month: pd.DataFrame | None = None,
+    max_series: int = len(PALETTE) - 1,
 ) -> Figure:
     """Claims per calendar month: the returns counted in the `history_months` months to the as-of date's
     month (hollow markers, thin line) and the forecast after it (filled markers, thick line), one series
-    per product (`products` only; the others summed into one series), a dashed vertical line at the end of
+    per product (`products` only, the first `max_series` of them, so each has a colour of its own; the
+    others summed into one series), a dashed vertical line at the end of
     the as-of date; below, the expected cost per calendar month stacked by product (when `costs` is given).
 
     `forecast`: product x (build month x) calendar month `month` (first day) with expected_returns and,
@@ -944,7 +955,7 @@ def expected_returns_by_month(
     count_axis = axes[0]
     value = "expected_claims" if "expected_claims" in forecast else "expected_returns"
     table = _by_month_product(forecast, value)
-    shown, others = _shown_products(table.columns, products)
+    shown, others = _shown_products(table.columns, products, most=max_series)
     series = _grouped_series(table, shown, others)
     band = _interval_band(intervals, forecast, value, shown) if intervals is not None else {}
     past = _returns_by_claim_month(returns_to_date, as_of_date, history_months) if returns_to_date is not None else None
@@ -976,7 +987,7 @@ def expected_returns_by_month(
     if with_cost:
         _cost_panel(axes[1], costs, shown, others, currency)
         if cost_by_month is not None and _cost_whiskers(axes[1], cost_by_month, 0.5, f"{interval_label} prediction interval"):
-            axes[1].legend(loc="upper right", title="product")
+            axes[1].legend(loc="upper right", title="product", ncol=2 if len(axes[1].get_legend_handles_labels()[0]) > 5 else 1)
     months = np.concatenate([_month_numbers(v.index) for v in [*series.values(), *past_series.values()]])
     first, last = int(months.min()), int(months.max())
     if as_of_date is not None:
@@ -1019,12 +1030,21 @@ def _by_month_product(frame: pd.DataFrame, value: str, month: str = "month") -> 
     return table.unstack("product", fill_value=0.0).sort_index()
 
 
-def _shown_products(columns: Iterable[str], products: Iterable[str] | None) -> tuple[list[str], list[str]]:
+def _shown_products(columns: Iterable[str], products: Iterable[str] | None,
+                    most: int | None = None) -> tuple[list[str], list[str]]:
+    """(shown, others): the `products` among `columns` (all when None), in `products`' order (the run
+    passes the most important first), at most `most` of them; the rest are others."""
     names = [str(c) for c in columns]
-    if products is None:
-        return names, []
-    wanted = {str(p) for p in products}
-    return [n for n in names if n in wanted], [n for n in names if n not in wanted]
+    if products is not None:
+        present = set(names)
+        order = [str(p) for p in products if str(p) in present]
+        names = list(dict.fromkeys(order)) + [n for n in names if n not in set(order)]
+        wanted = len(dict.fromkeys(order))
+    else:
+        wanted = len(names)
+    if most is not None:
+        wanted = min(wanted, most)
+    return names[:wanted], names[wanted:]
 
 
 def _grouped_series(table: pd.DataFrame, shown: list[str], others: list[str]) -> dict[str, pd.Series]:
@@ -1104,7 +1124,7 @@ def _cost_panel(axis: Axes, costs: pd.DataFrame, shown: list[str], others: list[
     axis.set_ylabel(f"expected cost{unit}")
     axis.yaxis.set_major_formatter(FuncFormatter(lambda amount, _: f"{amount:,.0f}"))
     axis.set_title(f"Expected cost of those claims: {float(bottom.sum()):,.0f}{unit} still to pay, by month")
-    axis.legend(loc="upper right", title="product")
+    axis.legend(loc="upper right", title="product", ncol=2 if len(series) > 4 else 1)
 
 
 PARETO_CODES = 7
@@ -1276,8 +1296,12 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
             axis.errorbar(middle[has], positions[has], xerr=np.vstack([middle[has] - low[has], high[has] - middle[has]]),
                           fmt="none", ecolor=OKABE_ITO["black"], elinewidth=1.2, capsize=4,
                           label=f"{interval_label} prediction interval", gid="reserve-interval")
-    for position, amount in zip(positions, rows["reserve"].to_numpy(dtype=float)):
-        axis.annotate(_money(amount), (amount, position), xytext=(6, 6), textcoords="offset points", va="bottom")
+    ends = rows["reserve"].to_numpy(dtype=float)
+    if "reserve_upper" in rows:  # the label right of the whisker, level with its bar
+        ends = np.fmax(ends, rows["reserve_upper"].to_numpy(dtype=float))
+    for position, amount, end in zip(positions, rows["reserve"].to_numpy(dtype=float), ends):
+        axis.annotate(_money(amount), (end, position), xytext=(6, 0), textcoords="offset points", va="center",
+                      gid="reserve-label")
     axis.set_yticks(positions, [chart_text(p) for p in rows.index])
     axis.xaxis.set_major_formatter(FuncFormatter(_money))
     amounts = np.concatenate([rows["reserve"].to_numpy(dtype=float),
@@ -1287,7 +1311,7 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
     axis.set_xlim(0, largest * 1.3 if largest > 0 else 1.0)
     axis.set_xlabel(f"reserve{unit}")
     axis.set_title("By product: current part solid, non-current hatched")
-    axis.legend(loc="lower right")
+    axis.legend(loc="best")
     axis.grid(True, axis="x", alpha=0.3)
 
 
@@ -1314,7 +1338,7 @@ def _reserve_by_month_panel(axis: Axes, reserve: pd.DataFrame, costs: pd.DataFra
     axis.yaxis.set_major_formatter(FuncFormatter(_money))
     axis.set_ylabel(f"expected cost{unit}")
     outside = [c for c in ("reserve_open_claims", "reserve_handling") if c in reserve]
-    extra = float(reserve[outside].to_numpy(dtype=float).sum()) if outside else 0.0
+    extra = float(np.nansum(reserve[outside].to_numpy(dtype=float))) if outside else 0.0  # a product without: 0
     axis.set_title(f"By month still to come (open claims, handling: {extra:,.0f})")
     axis.legend(loc="upper right")
     axis.grid(True, axis="y", alpha=0.3)
