@@ -406,6 +406,29 @@ def test_cost_by_calendar_month_sums_the_products_draw_by_draw():
     assert none.cost_by_month.empty and list(none.cost_by_month.columns) == list(COST_BY_MONTH_COLUMNS)
 
 
+def test_current_and_non_current_parts_are_the_month_draws_summed():
+    # parameters known and a fixed cost of 100: the current part (as-of month 2024-06 and the 12 after it, to
+    # 2025-06) is 100 x Poisson(its months' expected returns), the later part likewise: the quantiles of 4,000
+    # draws within 4 standard errors (+1 for the counts' steps) of scipy.stats.poisson.ppf, the standard error
+    # of a sample quantile being sqrt(q (1 - q) / n) / density at it (large-sample result, from memory; the
+    # Poisson's density taken as its normal approximation's). 20,000 draws meet the ppf to 1 count.
+    data = rows(warranty_months=[36] * 4)
+    result = predict_returns(data, {"P": plug_in()}, AS_OF, draws=4000, seed=9, claim_costs={"P": ClaimCosts.fixed(100.0)})
+    months = result.by_month.assign(due=pd.to_datetime(result.by_month["month"]) <= pd.Timestamp(2025, 6, 1))
+    current = months.loc[months["due"], "expected_returns"].sum()
+    later = months.loc[~months["due"], "expected_returns"].sum()
+    assert current > 10 and later > 10
+    row = result.reserve_by_product.iloc[0]
+    levels = np.array(LEVELS)
+    for part, mean in (("reserve_current", current), ("reserve_non_current", later)):
+        drawn = np.array([row[f"{part}_lower"], row[f"{part}_median"], row[f"{part}_upper"]]) / 100.0
+        error = np.sqrt(levels * (1 - levels) / 4000) * np.sqrt(mean) / stats.norm.pdf(stats.norm.ppf(levels))
+        assert (np.abs(drawn - stats.poisson.ppf(LEVELS, mean)) <= 4 * error + 1).all()
+    # a warranty that ends within the current months: nothing later, the later part 0
+    short = predict_returns(rows(), {"P": plug_in()}, AS_OF, draws=200, seed=9, claim_costs={"P": ClaimCosts.fixed(100.0)})
+    assert short.reserve_by_product[["reserve_non_current_lower", "reserve_non_current_upper"]].iloc[0].tolist() == [0.0, 0.0]
+
+
 # ------------------------------------------------------------------------------------------------
 # parametric bootstrap
 # ------------------------------------------------------------------------------------------------

@@ -293,6 +293,22 @@ def test_cost_intervals_by_calendar_month_are_inflated_per_month_with_the_other_
     # the months' expected costs add up to the future claims' reserve of the products
     assert table["expected_cost"].sum() == pytest.approx(booked.by_product["reserve_future_claims"].sum(), rel=1e-12)
     assert (table["currency"] == "XXX").all()
+    # the current / non-current parts' intervals, by hand: (drawn part + its other claims) x its inflation
+    # factor + what the part books beyond its future claims (open claims, handling: none here)
+    prediction.reserve_by_product = prediction.reserve_by_product.assign(
+        reserve_current_lower=[200.0, 0.0], reserve_current_median=[300.0, 200.0], reserve_current_upper=[700.0, 500.0],
+        reserve_non_current_lower=[0.0, 0.0], reserve_non_current_median=[100.0, 0.0],
+        reserve_non_current_upper=[300.0, 0.0],
+    )
+    split, _ = with_prediction_intervals(booked, prediction, as_of)
+    a = split.by_product.set_index("product").loc["A"]
+    assert a["reserve_current_lower"] == pytest.approx(round((200.0 + 50.0) * factor.iloc[0], 2), abs=1e-9)
+    assert a["reserve_current_upper"] == pytest.approx(round((700.0 + 50.0) * factor.iloc[0], 2), abs=1e-9)
+    assert a["reserve_non_current_upper"] == pytest.approx(round(300.0 * factor.iloc[1], 2), abs=1e-9)
+    assert a["reserve_current"] == pytest.approx(350.0 * factor.iloc[0], rel=1e-12)  # inside its interval
+    assert a["reserve_current_lower"] < a["reserve_current"] < a["reserve_current_upper"]
+    without, _ = with_prediction_intervals(booked, prediction)  # no as-of date: no split intervals
+    assert without.by_product["reserve_current_lower"].isna().all()
     # a run with no cost per claim anywhere: an empty table with its columns
     unpriced = book_reserve(_summary(), _no_observed_costs(), _forecast({months[0]: 1.0}), {"A": "forecast (weibull)"},
                             {"A"}, ReserveSettings(), as_of_date=as_of)
@@ -332,7 +348,8 @@ def test_the_report_shows_the_currency_beside_every_reserve_amount(demo_run_copy
     section = report.split("## Reserve by product", 1)[1].split("\n## ", 1)[0]
     money = {"cost_to_date", "cost_per_claim", "reserve", "reserve_interval", "added_by_flagged_months", "current",
              "non_current", "reserve_discounted", "current_discounted", "non_current_discounted",
-             "future_claims_reserve", "open_claims_reserve", "handling_reserve"}
+             "future_claims_reserve", "open_claims_reserve", "handling_reserve", "current_interval",
+             "non_current_interval"}
     tables = [block for block in section.split("\n\n") if block.startswith("| product |")]
     assert len(tables) == 2  # the reserve, and when it falls due
     for block in tables:
@@ -346,4 +363,10 @@ def test_the_report_shows_the_currency_beside_every_reserve_amount(demo_run_copy
     # the demo's total: future claims 1,371,177.51 + its 304 open claims 34,662.46 + handling 0 (issue 10; it was
     # 1,367,955.36 before open claims: the future claims moved as the open claims' estimates left the mean cost)
     assert "Total reserve over products with a forecast: 1,405,839.97 XXX" in section
+    # the discounting sentence says its rate (the text had "{discount_text}" unfilled: found in this stop)
+    assert "{" not in section and "reserve_discounted = each month's amount discounted at 0.00% a year" in section
+    # each part's interval holds its amount (demo: QCP-140 current 93,857.79 in 88,770.07 to 98,758.30)
+    by_product = pd.read_parquet(demo_run_copy / "reserve_by_product.parquet")
+    for part in ("reserve_current", "reserve_non_current"):
+        assert ((by_product[f"{part}_lower"] < by_product[part]) & (by_product[part] < by_product[f"{part}_upper"])).all()
     assert set(pd.read_parquet(demo_run_copy / "reserve_by_product.parquet")["currency"]) == {"XXX"}

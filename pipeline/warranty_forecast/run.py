@@ -165,7 +165,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         ),
         lambda p: f"{p.draws} draws per product at levels {', '.join(f'{v:g}' for v in p.levels)}",
     )
-    reserve, by_calendar_month = with_prediction_intervals(reserve, prediction)
+    reserve, by_calendar_month = with_prediction_intervals(reserve, prediction, shaped.as_of_date)
     cost_by_calendar_month = reserve_by_calendar_month(reserve, prediction, shaped.as_of_date)
     # the runs already published under the output root: the last one before this as-of date (change since
     # the last run) and the last month-end close (the roll-forward's opening)

@@ -90,6 +90,8 @@ _RESERVE_KNOWN = frozenset({
     "returns_lower", "returns_median", "returns_upper", "reserve_lower", "reserve_median", "reserve_upper",
     "currency", "reserve_future_claims", "open_claims", "reserve_open_claims", "expected_handled_claims",
     "reserve_handling",
+    "reserve_current_lower", "reserve_current_median", "reserve_current_upper",  # shown as intervals
+    "reserve_non_current_lower", "reserve_non_current_median", "reserve_non_current_upper",
 })
 
 _CSS = """
@@ -378,6 +380,8 @@ def _reserve_section(reserve: pd.DataFrame, level_text: str) -> list[str]:
     for name in reserve.columns:
         if name not in _RESERVE_KNOWN:
             more[name.replace("_", " ")] = reserve[name].map(_any_value)
+            if name in ("reserve_current", "reserve_non_current"):  # its interval beside it
+                more[f"{name.replace('_', ' ')} interval"] = interval(f"{name}_lower", f"{name}_upper", _money)
     return lines + [
         _table(shown, numeric=set(shown.columns) - {"product", "currency"}),
         _table(more, numeric=set(more.columns) - {"product", "status", "cost basis"}),
@@ -389,7 +393,8 @@ def _reserve_section(reserve: pd.DataFrame, level_text: str) -> list[str]:
             " or pending; counted in claims to date), at their estimated cost, due now. Handled claims: the"
             " rejected and no-fault-found claims expected with the future claims, at the configured handling cost"
             f" (reserve.handling_cost_per_claim; 0 when not set). Intervals: {level_text} prediction intervals of"
-            " the first failures and of the reserve (the open claims and the handling added at their amounts)."
+            " the first failures and of the reserve (the open claims and the handling added at their amounts),"
+            " and of its current part (claims due in the as-of month and the 12 after it) and later part."
             " Added by flagged months: the part of the reserve that comes"
             " from forecasting flagged build months with their own life. Money in the currency units of the"
             " claims extract. Per build month: reserve.parquet.",

@@ -174,8 +174,10 @@ def render_report(
         reserve_discounted=column("reserve_discounted").map(money),
         current_discounted=column("reserve_current_discounted").map(money),
         non_current_discounted=column("reserve_non_current_discounted").map(money),
-    )[["product", "reserve", "current", "non_current", "reserve_discounted", "current_discounted",
-       "non_current_discounted"]]
+        current_interval=interval("reserve_current_lower", "reserve_current_upper", money),
+        non_current_interval=interval("reserve_non_current_lower", "reserve_non_current_upper", money),
+    )[["product", "reserve", "current", "current_interval", "non_current", "non_current_interval",
+       "reserve_discounted", "current_discounted", "non_current_discounted"]]
     currency_text = f"{currency} (reserve.currency)" if currency else "currency units of the claims extract"
     lines += [
         _table(shown),
@@ -206,8 +208,10 @@ def render_report(
         " with their own life rather than with their product's model (see Build-month alerts).",
         "",
         "When the claims fall due: current = the as-of date's month and the 12 calendar months after it"
-        " (the open claims all current), non_current = later; reserve_discounted = each month's amount {discount_text} from the middle of the"
-        " month to the as-of date ((1 + rate) ^ -years, compounded annually).",
+        f" (the open claims all current), non_current = later; reserve_discounted = each month's amount {discount_text} from the middle of the"
+        " month to the as-of date ((1 + rate) ^ -years, compounded annually). current_interval and"
+        " non_current_interval: the parts' prediction intervals, built as the reserve's (each part's own"
+        " quantiles: the two bounds do not add up to the reserve's).",
         "",
         _table(timing),
         "",

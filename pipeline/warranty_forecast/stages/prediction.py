@@ -44,7 +44,8 @@ fitted parameters and (2) the randomness of the counts themselves. The predictiv
    summed over the products (products are independent: each has its own generator, so draw b of one
    product added to draw b of another is a draw of the sum), giving quantiles of every month's cost over
    all products. A quantile of a sum is not the sum of the quantiles, which is why the sum is formed per
-   draw. The sums are folded in as each product's draws arrive, in product order (the same bits for any
+   draw. The same per-draw sums over a product's current months (the as-of date's month and the 12
+   after it) and over its later months give the current and non-current parts' quantiles. The sums are folded in as each product's draws arrive, in product order (the same bits for any
    number of workers), so memory holds one month x draws array, not one per product.
 
 Everything is seeded: the generator of a product is numpy's default generator seeded with (seed, a
@@ -102,7 +103,10 @@ COST_BY_MONTH_COLUMNS = ("month", "products", "expected_cost", "cost_lower", "co
 BY_PRODUCT_COLUMNS = ("product", "horizon", "expected", "lower", "median", "upper")
 RESERVE_BY_PRODUCT_COLUMNS = (
     "product", "expected_reserve", "reserve_lower", "reserve_median", "reserve_upper", "cost_basis",
+    "reserve_current_lower", "reserve_current_median", "reserve_current_upper",
+    "reserve_non_current_lower", "reserve_non_current_median", "reserve_non_current_upper",
 )
+CURRENT_MONTHS = 12  # as reserve.CURRENT_MONTHS: the as-of date's month and the 12 calendar months after it
 
 
 # ------------------------------------------------------------------------------------------------
@@ -861,6 +865,17 @@ def _predict_product(
             month_costs = costs.draw_totals(rng, rng.poisson(mu[:, n_build:total]))
             by_month["expected_cost"] = expected[n_build:total] * costs.mean
             by_month["cost_lower"], by_month["cost_median"], by_month["cost_upper"] = _sample_quantiles(month_costs, levels)
+            # the current and later parts: each draw's months summed (a draw's months share its parameters and
+            # its claim-cost resample, so the sum is a draw of the part's cost); no further random numbers
+            stamps = pd.DatetimeIndex(np.asarray(aggregates.months, dtype="datetime64[s]"))
+            current = (stamps.year * 12 + stamps.month - 1).to_numpy() <= (
+                as_of_date.year * 12 + as_of_date.month - 1 + CURRENT_MONTHS
+            )
+            parts = np.column_stack([month_costs[:, current].sum(axis=1), month_costs[:, ~current].sum(axis=1)])
+            split = _sample_quantiles(parts, levels)  # (3 levels, current / non-current)
+            for column, (name, part) in enumerate((("reserve_current", current), ("reserve_non_current", ~current))):
+                for level, suffix in enumerate(("lower", "median", "upper")):
+                    reserve[f"{name}_{suffix}"] = [split[level, column] if part.any() else 0.0]
     return _ProductPrediction(by_build_month, by_month, by_product, reserve, tuple(notes), method, month_costs)
 
 
@@ -924,7 +939,9 @@ class ReturnsPrediction:
     * by_product (BY_PRODUCT_COLUMNS): per product and horizon, "next_12_months" (the 12 calendar months
       after the as-of date's month; returns placed in calendar months as the forecast places them, at
       the midpoint of their month in service) and "to_warranty_end" (every future return still covered).
-    * reserve_by_product (RESERVE_BY_PRODUCT_COLUMNS): per product with costs.
+    * reserve_by_product (RESERVE_BY_PRODUCT_COLUMNS): per product with costs; reserve_current_* /
+      reserve_non_current_*: the first failures' cost in the as-of date's month and the CURRENT_MONTHS
+      after it / later (0 for a part with no month), from the month draws.
     `methods`: product -> how its parameters were drawn; `notes`: sentences for the run's warnings;
     `seconds`: product -> time taken.
     """

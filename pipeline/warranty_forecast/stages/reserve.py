@@ -525,7 +525,12 @@ RESERVE_BY_CALENDAR_MONTH_COLUMNS = (
 _COST_QUANTILES = ("cost_lower", "cost_median", "cost_upper")
 
 
-def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[ReserveResult, pd.DataFrame]:  # type: ignore[no-untyped-def]
+SPLIT_INTERVAL_COLUMNS = tuple(
+    f"reserve_{part}_{level}" for part in ("current", "non_current") for level in ("lower", "median", "upper")
+)
+
+
+def with_prediction_intervals(result: ReserveResult, prediction, as_of_date: dt.date | None = None) -> tuple[ReserveResult, pd.DataFrame]:  # type: ignore[no-untyped-def]
     """The reserve tables with prediction intervals (stages.prediction.ReturnsPrediction), and the forecast
     per product x calendar month (CALENDAR_MONTH_COLUMNS).
 
@@ -538,7 +543,13 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     exact for the expected timing of the claims, 1 at rate 0), plus the open claims (known: a constant,
     reserve_open_claims) and the handling (at its expectation, reserve_handling), to the cent; so they bound
     the total `reserve`. They are not discounted: set them beside `reserve`, not `reserve_discounted`.
-    Products or build months without an interval keep NaN."""
+    Products or build months without an interval keep NaN.
+
+    With `as_of_date`, reserve_by_product also gets reserve_current_lower / _median / _upper and
+    reserve_non_current_* (SPLIT_INTERVAL_COLUMNS): the same construction for the claims due in the as-of
+    date's month and the 12 after it / later (prediction's per-draw sums of the month costs; the other
+    claims at their expectation; the part's own inflation factor; the open claims, all current, and the
+    part's handling at their amounts), so they bound reserve_current / reserve_non_current."""
     keys = ["product", "build_month"]
     intervals = prediction.by_build_month.loc[:, [*keys, *INTERVAL_COLUMNS]].copy()
     intervals["build_month"] = pd.to_datetime(intervals["build_month"]).dt.date
@@ -575,6 +586,7 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
     known = by_product["reserve_open_claims"] + by_product["reserve_handling"]
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
         by_product[column] = ((by_product[column].astype(float) + beyond) * inflation + known).round(2)
+    by_product = _with_split_intervals(by_product, result, prediction, as_of_date)
     calendar = _priced_by_product_and_month(result)
     months = prediction.by_month.reindex(
         columns=["product", "month", "returns_lower", "returns_median", "returns_upper", *_COST_QUANTILES]
@@ -588,6 +600,33 @@ def with_prediction_intervals(result: ReserveResult, prediction) -> tuple[Reserv
         dataclasses.replace(result, by_build_month=by_build_month, by_product=by_product),
         calendar.loc[:, list(CALENDAR_MONTH_COLUMNS)].sort_values(["product", "month"], ignore_index=True),
     )
+
+
+def _with_split_intervals(by_product: pd.DataFrame, result: ReserveResult, prediction,  # type: ignore[no-untyped-def]
+                          as_of_date: dt.date | None) -> pd.DataFrame:
+    """by_product with SPLIT_INTERVAL_COLUMNS (NaN without an as-of date or without the part's draws)."""
+    by_product = by_product.drop(columns=[c for c in SPLIT_INTERVAL_COLUMNS if c in by_product])
+    drawn = prediction.reserve_by_product.reindex(columns=["product", *SPLIT_INTERVAL_COLUMNS])
+    if as_of_date is None or not {"reserve_current", "reserve_non_current"} <= set(by_product.columns):
+        return by_product.assign(**{c: np.nan for c in SPLIT_INTERVAL_COLUMNS})
+    calendar = _priced_by_product_and_month(result)
+    last_current = _month_index(as_of_date) + CURRENT_MONTHS
+    calendar["is_current"] = [_month_index(m) <= last_current for m in calendar["month"]]
+    by_product = by_product.merge(drawn, on="product", how="left")
+    for part, due in (("current", True), ("non_current", False)):
+        rows = calendar[calendar["is_current"] == due]
+        sums = rows.groupby("product")[["expected_cost", "uninflated_cost", "beyond_first_cost"]].sum(min_count=1)
+        priced = by_product["product"].map(sums["expected_cost"]).astype(float).fillna(0.0)
+        uninflated = by_product["product"].map(sums["uninflated_cost"]).astype(float).fillna(0.0)
+        beyond = by_product["product"].map(sums["beyond_first_cost"]).astype(float).fillna(0.0)
+        inflation = _inflation_factor(priced, uninflated)
+        # the part's handling: what the part books beyond its future claims (and, for the current part,
+        # beyond the open claims), taken at its amount as in the total's interval
+        known = by_product[f"reserve_{part}"] - priced
+        for level in ("lower", "median", "upper"):
+            column = f"reserve_{part}_{level}"
+            by_product[column] = ((by_product[column].astype(float) + beyond) * inflation + known).round(2)
+    return by_product
 
 
 def _currency_by_product(result: ReserveResult) -> dict[str, object]:
