@@ -555,6 +555,7 @@ def test_finance_chart_current_split_interval_months_and_movement():
     whisker = next(c for c in by_product.collections if c.get_gid() == "reserve-interval")
     spans = sorted((min(s[:, 0]), max(s[:, 0])) for s in whisker.get_segments())
     assert spans == [(80.0, 125.0), (250.0, 360.0)]
+    assert not any(c.get_gid() == "current-interval" for c in by_product.collections)  # no split intervals given
     # by month: the current part ends with 2025-11, the as-of month + 12 (reserve.CURRENT_MONTHS)
     end = next(l for l in by_month.lines if l.get_gid() == "current-end")
     assert end.get_xdata()[0] == 2025 * 12 + 10 + 0.5
@@ -567,6 +568,18 @@ def test_finance_chart_current_split_interval_months_and_movement():
                        "movement:+/- changes in estimate": 15.0, "movement:= net change": 30.0}
     assert "420.00 -> 450.00 (EUR)" in movement.get_title()
     assert figure._suptitle.get_text().startswith("Warranty reserve to book as of 2024-11-30: 450.00 (EUR), 310.00")
+
+
+def test_finance_chart_draws_the_current_parts_interval_at_the_end_of_the_solid_part():
+    reserve, costs, roll = reserve_frames()
+    reserve = reserve.assign(reserve_current_lower=[180.0, 50.0, 45.0], reserve_current_upper=[230.0, 70.0, 55.0])
+    figure = charts.reserve_for_finance(reserve, costs, roll, as_of_date=AS_OF, products=["P", "Q"])
+    drawn(figure)
+    whisker = next(c for c in figure.axes[0].collections if c.get_gid() == "current-interval")
+    spans = sorted((min(s[:, 0]), max(s[:, 0])) for s in whisker.get_segments())
+    assert spans == [(50.0, 70.0), (180.0, 230.0)]  # Q and P; R is among the others (quantiles do not add)
+    legend = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
+    assert "5-95% interval of the current part" in legend
 
 
 def test_cost_intervals_by_month_are_whiskers_on_both_cost_panels():

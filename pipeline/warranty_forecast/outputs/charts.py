@@ -1270,14 +1270,14 @@ def _money(amount: float, _: object = None) -> str:
 def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterable[str] | None, unit: str,
                               interval_label: str) -> None:
     table = table.assign(product=table["product"].astype(str))
-    numeric = [c for c in ("reserve", "reserve_current", "reserve_non_current", "reserve_lower", "reserve_upper")
-               if c in table]
+    numeric = [c for c in ("reserve", "reserve_current", "reserve_non_current", "reserve_lower", "reserve_upper",
+                           "reserve_current_lower", "reserve_current_upper") if c in table]
     shown, others = _shown_products(sorted(table["product"].unique()), products)
     rows = table[table["product"].isin(shown)].groupby("product")[numeric].sum(min_count=1)
     rows = rows.sort_values("reserve", ascending=True)
     if others:
         rest = table[table["product"].isin(others)][numeric].sum()
-        rest[["reserve_lower", "reserve_upper"]] = np.nan  # quantiles do not add up
+        rest[[c for c in numeric if c.endswith(("_lower", "_upper"))]] = np.nan  # quantiles do not add up
         rows = pd.concat([rest.to_frame(f"{len(others)} other products").T, rows])
     positions = np.arange(len(rows))
     if {"reserve_current", "reserve_non_current"} <= set(rows.columns):
@@ -1296,6 +1296,18 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
             axis.errorbar(middle[has], positions[has], xerr=np.vstack([middle[has] - low[has], high[has] - middle[has]]),
                           fmt="none", ecolor=OKABE_ITO["black"], elinewidth=1.2, capsize=4,
                           label=f"{interval_label} prediction interval", gid="reserve-interval")
+    if {"reserve_current", "reserve_current_lower", "reserve_current_upper"} <= set(rows.columns):
+        low, high = rows["reserve_current_lower"].to_numpy(dtype=float), rows["reserve_current_upper"].to_numpy(dtype=float)
+        middle = rows["reserve_current"].to_numpy(dtype=float)
+        has = np.isfinite(low) & np.isfinite(high) & np.isfinite(middle)
+        if has.any():  # the current part's own interval, at the end of the solid part
+            bars = axis.errorbar(middle[has], positions[has],
+                                 xerr=np.vstack([np.maximum(middle[has] - low[has], 0.0),
+                                                 np.maximum(high[has] - middle[has], 0.0)]),
+                                 fmt="none", ecolor="white", elinewidth=1.2, capsize=3.5,
+                                 label=f"{interval_label} interval of the current part", gid="current-interval")
+            for artist in (*bars.lines[1], *bars.lines[2]):  # white outlined in black: seen on both parts' colours
+                artist.set_path_effects([withStroke(linewidth=2.8, foreground=OKABE_ITO["black"])])
     ends = rows["reserve"].to_numpy(dtype=float)
     if "reserve_upper" in rows:  # the label right of the whisker, level with its bar
         ends = np.fmax(ends, rows["reserve_upper"].to_numpy(dtype=float))
