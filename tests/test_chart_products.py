@@ -26,6 +26,14 @@ def test_flagged_products_first_then_the_largest_reserves():
     assert charts.products_to_draw(alerts.iloc[0:0], reserve.iloc[0:0], products, 2) == ["A", "B"]
     with pytest.raises(ValueError, match="limit"):
         charts.products_to_draw(alerts, reserve, products, 0)
+    # charts.products: named lines first in their order, then the usual order; unknown names are skipped, and
+    # all named lines are drawn even beyond the limit
+    assert charts.products_to_draw(alerts, reserve, products, 3, first=["E", "X", "D"]) == ["E", "D", "C"]
+    assert charts.products_to_draw(alerts, reserve, products, 1, first=["E", "D"]) == ["E", "D"]
+    assert charts.unknown_chart_products(["E", "X", "Y"], products) == (
+        "charts.products names X, Y: not a product line of the extracts; no chart for it",
+    )
+    assert charts.unknown_chart_products(["E"], products) == ()
 
 
 def test_the_note_names_the_products_drawn_only_when_some_are_left_out():
@@ -50,11 +58,14 @@ def test_expected_returns_chart_sums_the_other_products_into_one_band():
 def test_a_run_with_more_products_than_the_cap_says_which_are_drawn(tmp_path):
     shipments, claims = write_small_extracts(tmp_path)
     config = tmp_path / "settings.toml"
-    config.write_text("[charts]\nmax_products = 1\n[forecast]\nprediction_draws = 200\n")
+    # P2 named first (the flagged-then-reserve order alone would pick by reserve), NOPE is no product line
+    config.write_text('[charts]\nmax_products = 1\nproducts = ["P2", "NOPE"]\n[forecast]\nprediction_draws = 200\n')
     out = tmp_path / "out"
     assert main(["run", "--shipments", str(shipments), "--claims", str(claims), "--out", str(out),
                  "--config", str(config)]) == 0
     report = (out / "latest" / "report.md").read_text(encoding="utf-8")
     assert "The per-product charts show 1 of 2 product lines" in report
+    assert "charts.max_products): P2." in report
+    assert "charts.products names NOPE: not a product line of the extracts" in report
     page = (out / "latest" / "report.html").read_text(encoding="utf-8")
     assert "The per-product charts show 1 of 2 product lines" in page

@@ -94,6 +94,9 @@ min_returns = 20
         ("[warranty]\ndefault_months = 300\n", r"warranty\.default_months must be an integer <= 240"),
         ("[shipments]\nmax_units_per_row = 10_000_000_000\n", r"max_units_per_row must be an integer <= 1_000_000_000"),
         ("[shipments]\nmax_units_per_row = 0\n", r"max_units_per_row must be an integer >= 1"),
+        ("[charts]\nproducts = 'QCP-140'\n", r"charts\.products must be a list of at most 200 product names"),
+        ("[charts]\nproducts = ['QCP-140', 3]\n", r"charts\.products must be a list"),
+        ("[charts]\nproducts = ['  ']\n", r"charts\.products must be a list"),
     ],
 )
 def test_invalid_settings_raise_config_error(tmp_path, text, message):
@@ -181,6 +184,12 @@ def test_settings_round_trip_through_their_document(tmp_path):
     )
     assert all(parsed[name] == getattr(config, name) for name in SECTIONS)
     assert config.life_model.goodness_of_fit_warning_p_value == 0.01
+
+
+def test_chart_products_keep_their_order_once_each(tmp_path):
+    config = config_from(tmp_path, "[charts]\nproducts = ['QHT-360', 'QCP-140', 'QHT-360']\n")
+    assert config.charts.products == ("QHT-360", "QCP-140")
+    assert config_from(tmp_path, "").charts.products == ()
 
 
 def test_safety_terms_default_custom_and_off(tmp_path):

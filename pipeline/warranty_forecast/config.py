@@ -96,6 +96,19 @@ def _statuses(value: Any) -> tuple[str, ...]:
     return tuple(dict.fromkeys(value))
 
 
+MAX_CHART_PRODUCTS = 200
+
+
+def _product_names(value: Any) -> tuple[str, ...]:
+    """Product names as the extracts spell them, each once, in the order given."""
+    if (
+        not isinstance(value, list) or len(value) > MAX_CHART_PRODUCTS
+        or any(not isinstance(name, str) or not name.strip() or len(name) > 200 for name in value)
+    ):
+        raise ValueError(f"must be a list of at most {MAX_CHART_PRODUCTS} product names (text, as in the extracts)")
+    return tuple(dict.fromkeys(value))
+
+
 MAX_SAFETY_TERMS = 50
 SAFETY_TERM_LETTERS = (3, 40)  # a term's length in letters: shorter ones would match half the codes
 
@@ -358,6 +371,9 @@ class ChartSettings:
 
     # the product lines with flagged build months first, then by reserve, largest first
     max_products: int = _key(12, _integer(1, 200))
+    # product lines always drawn, first and in this order (an engineer following a line); they take places of
+    # max_products, and all are drawn when there are more of them; a name not in the extracts is warned about
+    products: tuple[str, ...] = _key((), _product_names)
 
 
 @dataclass(frozen=True)

@@ -189,9 +189,11 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
         lambda: life_table(shaped.age_in_service, config.life_model.confidence_level),
         lambda t: f"life table of {len(t)} rows",
     )
-    # the per-product charts draw at most charts.max_products product lines (flagged first, then by reserve)
+    # the per-product charts draw at most charts.max_products product lines (charts.products first, then
+    # flagged, then by reserve)
     drawn = charts.products_to_draw(
-        alerts.table, reserve.by_product, shaped.known_products, config.charts.max_products
+        alerts.table, reserve.by_product, shaped.known_products, config.charts.max_products,
+        first=config.charts.products,
     )
     chart_note = charts.charted_note(drawn, len(shaped.known_products))
 
@@ -235,7 +237,7 @@ def run_nightly(config: RunConfig, reason: str | None = None) -> RunResult:
     warnings = (
         *shaped.warnings, *delays.warnings, *lives.warnings_given(alerts.concentrated_codes), *alerts.warnings,
         *forecast.warnings, *prediction.notes,
-        *reserve.warnings,
+        *reserve.warnings, *charts.unknown_chart_products(config.charts.products, shaped.known_products),
     )
     for text in warnings:
         log.warning("%s", text)

@@ -140,14 +140,18 @@ def with_footer(figure: Figure, run_id: str, as_of_date: object) -> Figure:
 
 
 def products_to_draw(
-    alerts_table: pd.DataFrame, reserve_by_product: pd.DataFrame, products: Iterable[str], limit: int
+    alerts_table: pd.DataFrame, reserve_by_product: pd.DataFrame, products: Iterable[str], limit: int,
+    first: Iterable[str] = (),
 ) -> list[str]:
-    """The product lines the per-product charts draw, at most `limit`: those with flagged build months first
-    (the smallest month q-value first), then by reserve, largest first, then by name. Every product stays in
-    the tables and the reports; a figure of hundreds of panels is unreadable and slow to draw."""
+    """The product lines the per-product charts draw, at most `limit`: the `first` ones (charts.products:
+    named by the user) in their order, then those with flagged build months (the smallest month q-value
+    first), then by reserve, largest first, then by name. All of `first` that are among `products` are drawn
+    even beyond `limit`. Every product stays in the tables and the reports; a figure of hundreds of panels is
+    unreadable and slow to draw."""
     if limit < 1:
         raise ValueError(f"limit must be >= 1, got {limit!r}")
     everyone = sorted({str(product) for product in products})
+    named = [name for name in dict.fromkeys(str(p) for p in first) if name in set(everyone)]
     flagged_q: dict[str, float] = {}
     if len(alerts_table) and {"product", "is_flagged"} <= set(alerts_table.columns):
         flagged = alerts_table[alerts_table["is_flagged"].fillna(False).astype(bool)]
@@ -163,7 +167,18 @@ def products_to_draw(
         amount = float(amount) if amount is not None and math.isfinite(float(amount)) else -math.inf
         return (0, flagged_q[product], -amount, product) if product in flagged_q else (1, 0.0, -amount, product)
 
-    return sorted(everyone, key=order)[:limit]
+    rest = sorted((product for product in everyone if product not in set(named)), key=order)
+    return named + rest[:max(limit - len(named), 0)]
+
+
+def unknown_chart_products(first: Iterable[str], products: Iterable[str]) -> tuple[str, ...]:
+    """One warning naming the charts.products entries that are not product lines of the extracts (a typo, or a
+    line with no data yet): none when all are known."""
+    known = {str(p) for p in products}
+    missing = [str(name) for name in dict.fromkeys(first) if str(name) not in known]
+    if not missing:
+        return ()
+    return (f"charts.products names {', '.join(missing)}: not a product line of the extracts; no chart for it",)
 
 
 def charted_note(drawn: Iterable[str], count: int) -> str:
@@ -172,8 +187,9 @@ def charted_note(drawn: Iterable[str], count: int) -> str:
     if len(drawn) >= count:
         return ""
     return (
-        f"The per-product charts show {len(drawn)} of {count} product lines (those with flagged build months first,"
-        f" then the largest reserves; charts.max_products): {', '.join(drawn)}. Every product line is in the tables."
+        f"The per-product charts show {len(drawn)} of {count} product lines (those named in charts.products first,"
+        f" then those with flagged build months, then the largest reserves; charts.max_products): {', '.join(drawn)}."
+        " Every product line is in the tables."
     )
 
 
