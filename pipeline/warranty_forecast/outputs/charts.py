@@ -151,7 +151,8 @@ def products_to_draw(
     if limit < 1:
         raise ValueError(f"limit must be >= 1, got {limit!r}")
     everyone = sorted({str(product) for product in products})
-    named = [name for name in dict.fromkeys(str(p) for p in first) if name in set(everyone)]
+    present = set(everyone)
+    named = [name for name in dict.fromkeys(str(p) for p in first) if name in present]
     flagged_q: dict[str, float] = {}
     if len(alerts_table) and {"product", "is_flagged"} <= set(alerts_table.columns):
         flagged = alerts_table[alerts_table["is_flagged"].fillna(False).astype(bool)]
@@ -167,7 +168,7 @@ def products_to_draw(
         amount = float(amount) if amount is not None and math.isfinite(float(amount)) else -math.inf
         return (0, flagged_q[product], -amount, product) if product in flagged_q else (1, 0.0, -amount, product)
 
-    rest = sorted((product for product in everyone if product not in set(named)), key=order)
+    rest = sorted(present - set(named), key=order)
     return named + rest[:max(limit - len(named), 0)]
 
 
@@ -1051,13 +1052,13 @@ def _shown_products(columns: Iterable[str], products: Iterable[str] | None,
     """(shown, others): the `products` among `columns` (all when None), in `products`' order (the run
     passes the most important first), at most `most` of them; the rest are others."""
     names = [str(c) for c in columns]
+    wanted = len(names)
     if products is not None:
         present = set(names)
-        order = [str(p) for p in products if str(p) in present]
-        names = list(dict.fromkeys(order)) + [n for n in names if n not in set(order)]
-        wanted = len(dict.fromkeys(order))
-    else:
-        wanted = len(names)
+        order = list(dict.fromkeys(str(p) for p in products if str(p) in present))
+        chosen = set(order)
+        names = order + [n for n in names if n not in chosen]
+        wanted = len(order)
     if most is not None:
         wanted = min(wanted, most)
     return names[:wanted], names[wanted:]
@@ -1304,26 +1305,13 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
                   linewidth=0.4, label="non-current", gid="reserve-non-current")
     else:
         axis.barh(positions, rows["reserve"].to_numpy(dtype=float), color=DATA, label="reserve", gid="reserve")
-    if {"reserve_lower", "reserve_upper"} <= set(rows.columns):
-        low, high = rows["reserve_lower"].to_numpy(dtype=float), rows["reserve_upper"].to_numpy(dtype=float)
-        middle = rows["reserve"].to_numpy(dtype=float)
-        has = np.isfinite(low) & np.isfinite(high)
-        if has.any():
-            axis.errorbar(middle[has], positions[has], xerr=np.vstack([middle[has] - low[has], high[has] - middle[has]]),
-                          fmt="none", ecolor=OKABE_ITO["black"], elinewidth=1.2, capsize=4,
-                          label=f"{interval_label} prediction interval", gid="reserve-interval")
-    if {"reserve_current", "reserve_current_lower", "reserve_current_upper"} <= set(rows.columns):
-        low, high = rows["reserve_current_lower"].to_numpy(dtype=float), rows["reserve_current_upper"].to_numpy(dtype=float)
-        middle = rows["reserve_current"].to_numpy(dtype=float)
-        has = np.isfinite(low) & np.isfinite(high) & np.isfinite(middle)
-        if has.any():  # the current part's own interval, at the end of the solid part
-            bars = axis.errorbar(middle[has], positions[has],
-                                 xerr=np.vstack([np.maximum(middle[has] - low[has], 0.0),
-                                                 np.maximum(high[has] - middle[has], 0.0)]),
-                                 fmt="none", ecolor="white", elinewidth=1.2, capsize=3.5,
-                                 label=f"{interval_label} interval of the current part", gid="current-interval")
-            for artist in (*bars.lines[1], *bars.lines[2]):  # white outlined in black: seen on both parts' colours
-                artist.set_path_effects([withStroke(linewidth=2.8, foreground=OKABE_ITO["black"])])
+    _bar_whisker(axis, rows, "reserve", positions, ecolor=OKABE_ITO["black"], capsize=4,
+                 label=f"{interval_label} prediction interval", gid="reserve-interval")
+    bars = _bar_whisker(axis, rows, "reserve_current", positions, ecolor="white", capsize=3.5,
+                        label=f"{interval_label} interval of the current part", gid="current-interval")
+    if bars is not None:  # at the end of the solid part: white outlined in black, seen on both parts' colours
+        for artist in (*bars.lines[1], *bars.lines[2]):
+            artist.set_path_effects([withStroke(linewidth=2.8, foreground=OKABE_ITO["black"])])
     ends = rows["reserve"].to_numpy(dtype=float)
     if "reserve_upper" in rows:  # the label right of the whisker, level with its bar
         ends = np.fmax(ends, rows["reserve_upper"].to_numpy(dtype=float))
@@ -1341,6 +1329,20 @@ def _reserve_by_product_panel(axis: Axes, table: pd.DataFrame, products: Iterabl
     axis.set_title("By product: current part solid, non-current hatched")
     axis.legend(loc="best")
     axis.grid(True, axis="x", alpha=0.3)
+
+
+def _bar_whisker(axis: Axes, rows: pd.DataFrame, amount: str, positions: np.ndarray, **style: object) -> object:
+    """The interval `amount`_lower to `amount`_upper of each horizontal bar as a whisker around `amount`
+    (rows where all three are finite); the errorbar container, or None when there is nothing to draw."""
+    if not {amount, f"{amount}_lower", f"{amount}_upper"} <= set(rows.columns):
+        return None
+    middle = rows[amount].to_numpy(dtype=float)
+    low, high = rows[f"{amount}_lower"].to_numpy(dtype=float), rows[f"{amount}_upper"].to_numpy(dtype=float)
+    has = np.isfinite(low) & np.isfinite(high) & np.isfinite(middle)
+    if not has.any():
+        return None
+    spread = np.vstack([np.maximum(middle[has] - low[has], 0.0), np.maximum(high[has] - middle[has], 0.0)])
+    return axis.errorbar(middle[has], positions[has], xerr=spread, fmt="none", elinewidth=1.2, **style)
 
 
 def _reserve_by_month_panel(axis: Axes, reserve: pd.DataFrame, costs: pd.DataFrame, as_of_date: dt.date,

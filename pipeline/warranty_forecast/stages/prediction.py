@@ -45,8 +45,9 @@ fitted parameters and (2) the randomness of the counts themselves. The predictiv
    product added to draw b of another is a draw of the sum), giving quantiles of every month's cost over
    all products. A quantile of a sum is not the sum of the quantiles, which is why the sum is formed per
    draw. The same per-draw sums over a product's current months (the as-of date's month and the 12
-   after it) and over its later months give the current and non-current parts' quantiles. The sums are folded in as each product's draws arrive, in product order (the same bits for any
-   number of workers), so memory holds one month x draws array, not one per product.
+   after it) and over its later months give the current and non-current parts' quantiles. The sums over
+   products are folded in as each product's draws arrive, in product order (the same bits for any number
+   of workers), so memory holds one month x draws array, not one per product.
 
 Everything is seeded: the generator of a product is numpy's default generator seeded with (seed, a
 CRC-32 of the product name), so a product's intervals do not depend on which other products are in the
@@ -79,6 +80,7 @@ from warranty_forecast.stages import forecast
 from warranty_forecast.stages.forecast import CompetingRisks, LifeDistribution
 from warranty_forecast.stages.by_product import rows_by_product
 from warranty_forecast.stages.parallel import map_products
+from warranty_forecast.stages.reserve import is_current_month
 
 FloatArray = npt.NDArray[np.float64]
 
@@ -106,7 +108,6 @@ RESERVE_BY_PRODUCT_COLUMNS = (
     "reserve_current_lower", "reserve_current_median", "reserve_current_upper",
     "reserve_non_current_lower", "reserve_non_current_median", "reserve_non_current_upper",
 )
-CURRENT_MONTHS = 12  # as reserve.CURRENT_MONTHS: the as-of date's month and the 12 calendar months after it
 
 
 # ------------------------------------------------------------------------------------------------
@@ -867,10 +868,7 @@ def _predict_product(
             by_month["cost_lower"], by_month["cost_median"], by_month["cost_upper"] = _sample_quantiles(month_costs, levels)
             # the current and later parts: each draw's months summed (a draw's months share its parameters and
             # its claim-cost resample, so the sum is a draw of the part's cost); no further random numbers
-            stamps = pd.DatetimeIndex(np.asarray(aggregates.months, dtype="datetime64[s]"))
-            current = (stamps.year * 12 + stamps.month - 1).to_numpy() <= (
-                as_of_date.year * 12 + as_of_date.month - 1 + CURRENT_MONTHS
-            )
+            current = is_current_month(aggregates.months, as_of_date)
             parts = np.column_stack([month_costs[:, current].sum(axis=1), month_costs[:, ~current].sum(axis=1)])
             split = _sample_quantiles(parts, levels)  # (3 levels, current / non-current)
             for column, (name, part) in enumerate((("reserve_current", current), ("reserve_non_current", ~current))):
@@ -940,8 +938,8 @@ class ReturnsPrediction:
       after the as-of date's month; returns placed in calendar months as the forecast places them, at
       the midpoint of their month in service) and "to_warranty_end" (every future return still covered).
     * reserve_by_product (RESERVE_BY_PRODUCT_COLUMNS): per product with costs; reserve_current_* /
-      reserve_non_current_*: the first failures' cost in the as-of date's month and the CURRENT_MONTHS
-      after it / later (0 for a part with no month), from the month draws.
+      reserve_non_current_*: the first failures' cost in the months reserve.is_current_month counts
+      current / later (0 for a part with no month), from the month draws.
     `methods`: product -> how its parameters were drawn; `notes`: sentences for the run's warnings;
     `seconds`: product -> time taken.
     """

@@ -173,6 +173,13 @@ def _month_index(value: object) -> int:
     return stamp.year * 12 + stamp.month - 1
 
 
+def is_current_month(months: Iterable[object], as_of_date: dt.date) -> np.ndarray:
+    """For each calendar month (any day of it): True when it is the as-of date's month or one of the
+    CURRENT_MONTHS calendar months after it, the months whose claims reserve_current books."""
+    last_current = _month_index(as_of_date) + CURRENT_MONTHS
+    return np.array([_month_index(month) <= last_current for month in months], dtype=bool)
+
+
 def years_from_as_of(months: Iterable[object], as_of_date: dt.date) -> np.ndarray:
     """Years from the end of `as_of_date` to the middle of each calendar month in `months` (dates, any day
     of the month), on the month grid (a calendar month is 1/12 year); 0 for months at or before it."""
@@ -219,13 +226,12 @@ def claim_timing(months: Iterable[object], as_of_date: dt.date | None, settings:
             "discount_factor": ones, "is_current": pd.array([pd.NA] * len(distinct), dtype="boolean"),
         })
     years = years_from_as_of(distinct, as_of_date)
-    last_current = _month_index(as_of_date) + CURRENT_MONTHS
     return pd.DataFrame({
         "month": pd.Series(distinct, dtype=object),
         "years_from_as_of": years,
         "inflation_factor": inflation_factors(years, settings.annual_inflation_rate),
         "discount_factor": discount_factors(years, settings),
-        "is_current": pd.array([_month_index(m) <= last_current for m in distinct], dtype="boolean"),
+        "is_current": pd.array(is_current_month(distinct, as_of_date), dtype="boolean"),
     })
 
 
@@ -586,8 +592,8 @@ def with_prediction_intervals(result: ReserveResult, prediction, as_of_date: dt.
     known = by_product["reserve_open_claims"] + by_product["reserve_handling"]
     for column in ("reserve_lower", "reserve_median", "reserve_upper"):
         by_product[column] = ((by_product[column].astype(float) + beyond) * inflation + known).round(2)
-    by_product = _with_split_intervals(by_product, result, prediction, as_of_date)
     calendar = _priced_by_product_and_month(result)
+    by_product = _with_split_intervals(by_product, calendar, prediction, as_of_date)
     months = prediction.by_month.reindex(
         columns=["product", "month", "returns_lower", "returns_median", "returns_upper", *_COST_QUANTILES]
     ).copy()
@@ -602,16 +608,15 @@ def with_prediction_intervals(result: ReserveResult, prediction, as_of_date: dt.
     )
 
 
-def _with_split_intervals(by_product: pd.DataFrame, result: ReserveResult, prediction,  # type: ignore[no-untyped-def]
+def _with_split_intervals(by_product: pd.DataFrame, calendar: pd.DataFrame, prediction,  # type: ignore[no-untyped-def]
                           as_of_date: dt.date | None) -> pd.DataFrame:
-    """by_product with SPLIT_INTERVAL_COLUMNS (NaN without an as-of date or without the part's draws)."""
+    """by_product with SPLIT_INTERVAL_COLUMNS (NaN without an as-of date or without the part's draws);
+    `calendar`: _priced_by_product_and_month's table."""
     by_product = by_product.drop(columns=[c for c in SPLIT_INTERVAL_COLUMNS if c in by_product])
     drawn = prediction.reserve_by_product.reindex(columns=["product", *SPLIT_INTERVAL_COLUMNS])
     if as_of_date is None or not {"reserve_current", "reserve_non_current"} <= set(by_product.columns):
         return by_product.assign(**{c: np.nan for c in SPLIT_INTERVAL_COLUMNS})
-    calendar = _priced_by_product_and_month(result)
-    last_current = _month_index(as_of_date) + CURRENT_MONTHS
-    calendar["is_current"] = [_month_index(m) <= last_current for m in calendar["month"]]
+    calendar = calendar.assign(is_current=is_current_month(calendar["month"], as_of_date))
     by_product = by_product.merge(drawn, on="product", how="left")
     for part, due in (("current", True), ("non_current", False)):
         rows = calendar[calendar["is_current"] == due]
@@ -682,8 +687,7 @@ def reserve_by_calendar_month(result: ReserveResult, prediction, as_of_date: dt.
     totals = totals.merge(drawn, on="month", how="left")
     for column in _COST_QUANTILES:
         totals[column] = ((totals[column].astype(float) + totals["beyond_first_cost"]) * totals["inflation"]).round(2)
-    last_current = _month_index(as_of_date) + CURRENT_MONTHS
-    totals["is_current"] = [_month_index(m) <= last_current for m in totals["month"]]
+    totals["is_current"] = is_current_month(totals["month"], as_of_date)
     currencies = sorted(set(_currency_by_product(result).values()) - {None})
     totals["currency"] = currencies[0] if len(currencies) == 1 else None
     return totals.loc[:, columns].sort_values("month", ignore_index=True)
